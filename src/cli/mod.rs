@@ -1,0 +1,80 @@
+//! The command line. The only module that reads arguments and prints.
+//!
+//! Exit codes: 0 success; 1 the run failed; 2 the input or the arguments are
+//! wrong (nothing has been written).
+
+mod args;
+mod demo;
+
+use std::ffi::OsString;
+use std::process::ExitCode;
+
+use clap::Parser;
+
+pub use args::{Args, Command};
+
+/// Exit code for wrong input or arguments.
+pub const EXIT_BAD_INPUT: u8 = 2;
+/// Exit code for a run that failed.
+pub const EXIT_FAILED: u8 = 1;
+
+/// An error on its way to the user, with the exit code it maps to.
+#[derive(Debug)]
+pub struct CliError {
+    pub code: u8,
+    pub error: anyhow::Error,
+}
+
+impl CliError {
+    pub fn bad_input(error: impl Into<anyhow::Error>) -> Self {
+        CliError {
+            code: EXIT_BAD_INPUT,
+            error: error.into(),
+        }
+    }
+    pub fn failed(error: impl Into<anyhow::Error>) -> Self {
+        CliError {
+            code: EXIT_FAILED,
+            error: error.into(),
+        }
+    }
+}
+
+/// Parses `args` (the first is the program name), runs, and returns the exit code.
+pub fn main_with_args<I, T>(args: I) -> ExitCode
+where
+    I: IntoIterator<Item = T>,
+    T: Into<OsString> + Clone,
+{
+    let args = match Args::try_parse_from(args) {
+        Ok(a) => a,
+        Err(e) => {
+            // --help and --version are "errors" to clap but succeed for us.
+            let _ = e.print();
+            return ExitCode::from(if e.use_stderr() { EXIT_BAD_INPUT } else { 0 });
+        }
+    };
+    match run(args) {
+        Ok(()) => ExitCode::SUCCESS,
+        Err(CliError { code, error }) => {
+            if is_broken_pipe(&error) {
+                return ExitCode::SUCCESS;
+            }
+            eprintln!("latens: error: {error:#}");
+            ExitCode::from(code)
+        }
+    }
+}
+
+fn run(args: Args) -> Result<(), CliError> {
+    match args.command {
+        Command::Demo(demo_args) => demo::run(&demo_args),
+    }
+}
+
+fn is_broken_pipe(error: &anyhow::Error) -> bool {
+    error.chain().any(|e| {
+        e.downcast_ref::<std::io::Error>()
+            .is_some_and(|io| io.kind() == std::io::ErrorKind::BrokenPipe)
+    })
+}

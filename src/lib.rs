@@ -1,0 +1,24 @@
+//! # Latens
+//!
+//! Latens takes the astrometric observations of a tracked body, fits its orbit
+//! under the Sun and the known planets, and decides whether the leftover drift
+//! (the O-C residuals) means an unseen mass is pulling on it; if so, it fits
+//! that perturber and says where on the sky to look.
+//!
+//! Modules, in pipeline order (see `docs/architecture.md`):
+//! - [`units`], [`vec3`]: constants with their sources; a small 3-vector.
+//! - [`time`]: UTC/TT/TDB and the parsing of times people write.
+//! - [`frames`]: ICRF and ecliptic axes, directions on the sky.
+//! - [`ephemeris`]: where the planets are (embedded VSOP87A, JPL SPK files).
+//! - [`dynamics`]: orbits (two-body motion so far).
+//! - [`io`]: writing output files safely.
+//! - [`cli`]: the command line; the only module that prints.
+
+pub mod cli;
+pub mod dynamics;
+pub mod ephemeris;
+pub mod frames;
+pub mod io;
+pub mod time;
+pub mod units;
+pub mod vec3;

@@ -1,0 +1,73 @@
+//! The `latens` binary end to end: exit codes, files written, messages.
+
+use std::path::PathBuf;
+use std::process::Command;
+
+fn latens() -> Command {
+    Command::new(env!("CARGO_BIN_EXE_latens"))
+}
+
+fn temp_dir(name: &str) -> PathBuf {
+    let d = std::env::temp_dir().join(format!("latens-cli-{name}-{}", std::process::id()));
+    let _ = std::fs::remove_dir_all(&d);
+    d
+}
+
+#[test]
+fn version_and_help_exit_zero() {
+    let out = latens().arg("--version").output().unwrap();
+    assert!(out.status.success());
+    assert!(String::from_utf8_lossy(&out.stdout).starts_with("latens "));
+    let out = latens().arg("--help").output().unwrap();
+    assert!(out.status.success());
+    assert!(String::from_utf8_lossy(&out.stdout).contains("demo"));
+}
+
+#[test]
+fn bad_arguments_exit_two() {
+    let out = latens().arg("no-such-command").output().unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    let out = latens().output().unwrap();
+    assert_eq!(out.status.code(), Some(2));
+}
+
+#[test]
+fn demo_writes_its_track_and_says_what_it_did() {
+    let dir = temp_dir("demo");
+    let out = latens().args(["demo", "--out"]).arg(&dir).output().unwrap();
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    let stdout = String::from_utf8_lossy(&out.stdout);
+    assert!(stdout.contains("Files written") && stdout.contains("not built yet"), "{stdout}");
+    let track = std::fs::read_to_string(dir.join("two_body_track.csv")).unwrap();
+    let lines: Vec<&str> = track.lines().collect();
+    assert_eq!(lines[0], "epoch_utc,t_tdb_days,ra_deg,dec_deg,heliocentric_distance_au,geocentric_distance_au,solar_elongation_deg");
+    assert_eq!(lines.len(), 1 + 241);
+    // Every row is complete and every number finite; RA and Dec in range.
+    for line in &lines[1..] {
+        let f: Vec<&str> = line.split(',').collect();
+        assert_eq!(f.len(), 7);
+        let nums: Vec<f64> = f[1..].iter().map(|x| x.parse().unwrap()).collect();
+        assert!(nums.iter().all(|x| x.is_finite()));
+        assert!((0.0..360.0).contains(&nums[1]) && (-90.0..=90.0).contains(&nums[2]));
+        // The invented body stays between its perihelion and aphelion.
+        assert!(nums[3] > 44.0 * 0.88 - 1e-9 && nums[3] < 44.0 * 1.12 + 1e-9);
+    }
+    // No temporary files left behind.
+    let names: Vec<String> = std::fs::read_dir(&dir).unwrap().map(|e| e.unwrap().file_name().to_string_lossy().into_owned()).collect();
+    assert_eq!(names, vec!["two_body_track.csv".to_string()]);
+    std::fs::remove_dir_all(&dir).unwrap();
+}
+
+#[test]
+fn unwritable_output_is_an_error_naming_the_path() {
+    // A regular file where the output directory should be.
+    let dir = temp_dir("blocked");
+    std::fs::create_dir_all(&dir).unwrap();
+    let blocker = dir.join("file");
+    std::fs::write(&blocker, b"x").unwrap();
+    let out = latens().args(["demo", "--out"]).arg(blocker.join("sub")).output().unwrap();
+    assert_eq!(out.status.code(), Some(1));
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert!(stderr.contains("latens: error") && stderr.contains("sub"), "{stderr}");
+    std::fs::remove_dir_all(&dir).unwrap();
+}
