@@ -92,11 +92,7 @@ pub fn wrap_pi(angle_rad: f64) -> f64 {
         return angle_rad;
     }
     let w = wrap_two_pi(angle_rad + std::f64::consts::PI) - std::f64::consts::PI;
-    if w >= std::f64::consts::PI {
-        -std::f64::consts::PI
-    } else {
-        w
-    }
+    if w >= std::f64::consts::PI { -std::f64::consts::PI } else { w }
 }
 
 #[cfg(test)]

@@ -15,22 +15,14 @@ pub struct Vec3 {
 }
 
 impl Vec3 {
-    pub const ZERO: Vec3 = Vec3 {
-        x: 0.0,
-        y: 0.0,
-        z: 0.0,
-    };
+    pub const ZERO: Vec3 = Vec3 { x: 0.0, y: 0.0, z: 0.0 };
 
     pub const fn new(x: f64, y: f64, z: f64) -> Self {
         Vec3 { x, y, z }
     }
 
     pub const fn from_array(a: [f64; 3]) -> Self {
-        Vec3 {
-            x: a[0],
-            y: a[1],
-            z: a[2],
-        }
+        Vec3 { x: a[0], y: a[1], z: a[2] }
     }
 
     pub const fn to_array(self) -> [f64; 3] {
@@ -42,11 +34,7 @@ impl Vec3 {
     }
 
     pub fn cross(self, o: Vec3) -> Vec3 {
-        Vec3 {
-            x: self.y * o.z - self.z * o.y,
-            y: self.z * o.x - self.x * o.z,
-            z: self.x * o.y - self.y * o.x,
-        }
+        Vec3 { x: self.y * o.z - self.z * o.y, y: self.z * o.x - self.x * o.z, z: self.x * o.y - self.y * o.x }
     }
 
     pub fn norm_squared(self) -> f64 {

@@ -35,16 +35,9 @@ fn bad_arguments_exit_two() {
 fn demo_writes_its_track_and_says_what_it_did() {
     let dir = temp_dir("demo");
     let out = latens().args(["demo", "--out"]).arg(&dir).output().unwrap();
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
     let stdout = String::from_utf8_lossy(&out.stdout);
-    assert!(
-        stdout.contains("Files written") && stdout.contains("not built yet"),
-        "{stdout}"
-    );
+    assert!(stdout.contains("Files written") && stdout.contains("not built yet"), "{stdout}");
     let track = std::fs::read_to_string(dir.join("two_body_track.csv")).unwrap();
     let lines: Vec<&str> = track.lines().collect();
     assert_eq!(
@@ -63,10 +56,8 @@ fn demo_writes_its_track_and_says_what_it_did() {
         assert!(nums[3] > 44.0 * 0.88 - 1e-9 && nums[3] < 44.0 * 1.12 + 1e-9);
     }
     // No temporary files left behind.
-    let names: Vec<String> = std::fs::read_dir(&dir)
-        .unwrap()
-        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
-        .collect();
+    let names: Vec<String> =
+        std::fs::read_dir(&dir).unwrap().map(|e| e.unwrap().file_name().to_string_lossy().into_owned()).collect();
     assert_eq!(names, vec!["two_body_track.csv".to_string()]);
     std::fs::remove_dir_all(&dir).unwrap();
 }
@@ -78,16 +69,9 @@ fn unwritable_output_is_an_error_naming_the_path() {
     std::fs::create_dir_all(&dir).unwrap();
     let blocker = dir.join("file");
     std::fs::write(&blocker, b"x").unwrap();
-    let out = latens()
-        .args(["demo", "--out"])
-        .arg(blocker.join("sub"))
-        .output()
-        .unwrap();
+    let out = latens().args(["demo", "--out"]).arg(blocker.join("sub")).output().unwrap();
     assert_eq!(out.status.code(), Some(1));
     let stderr = String::from_utf8_lossy(&out.stderr);
-    assert!(
-        stderr.contains("latens: error") && stderr.contains("sub"),
-        "{stderr}"
-    );
+    assert!(stderr.contains("latens: error") && stderr.contains("sub"), "{stderr}");
     std::fs::remove_dir_all(&dir).unwrap();
 }

@@ -5,8 +5,7 @@ mod common;
 use common::*;
 
 use latens::dynamics::kepler::{
-    Elements, eccentric_anomaly, elements_from_state, mean_anomaly_from_true, propagate,
-    state_from_elements,
+    Elements, eccentric_anomaly, elements_from_state, mean_anomaly_from_true, propagate, state_from_elements,
 };
 use latens::units::{RAD_PER_DEG, wrap_pi};
 use latens::vec3::Vec3;
@@ -41,20 +40,8 @@ fn curtis_example_4_3_elements_from_state() {
     compare("i", el.inclination_rad / RAD_PER_DEG, 153.2, 0.05, "deg");
     compare("node", el.node_rad / RAD_PER_DEG, 255.3, 0.05, "deg");
     compare("e", el.eccentricity, 0.1712, 0.00005, "");
-    compare(
-        "peri",
-        el.periapsis_arg_rad / RAD_PER_DEG,
-        20.07,
-        0.005,
-        "deg",
-    );
-    compare(
-        "true anomaly",
-        el.true_anomaly_rad / RAD_PER_DEG,
-        28.45,
-        0.005,
-        "deg",
-    );
+    compare("peri", el.periapsis_arg_rad / RAD_PER_DEG, 20.07, 0.005, "deg");
+    compare("true anomaly", el.true_anomaly_rad / RAD_PER_DEG, 28.45, 0.005, "deg");
 }
 
 #[test]
@@ -74,20 +61,8 @@ fn elements_to_state_matches_rebound() {
         let (r, v) = state_from_elements(gm, &el).unwrap();
         let want_r = row_vec(&row, ["x", "y", "z"]);
         let want_v = row_vec(&row, ["vx", "vy", "vz"]);
-        compare(
-            "position (relative)",
-            (r - want_r).norm() / want_r.norm(),
-            0.0,
-            1e-13,
-            "",
-        );
-        compare(
-            "velocity (relative)",
-            (v - want_v).norm() / want_v.norm(),
-            0.0,
-            1e-13,
-            "",
-        );
+        compare("position (relative)", (r - want_r).norm() / want_r.norm(), 0.0, 1e-13, "");
+        compare("velocity (relative)", (v - want_v).norm() / want_v.norm(), 0.0, 1e-13, "");
     }
 }
 
@@ -95,34 +70,15 @@ fn elements_to_state_matches_rebound() {
 fn state_to_elements_matches_rebound() {
     for row in read_rows("kepler/state_to_elements.csv") {
         let gm = num(&row, "gm");
-        let el = elements_from_state(
-            gm,
-            row_vec(&row, ["x", "y", "z"]),
-            row_vec(&row, ["vx", "vy", "vz"]),
-        )
-        .unwrap();
-        compare(
-            "a (relative)",
-            el.semi_major_axis_au() / num(&row, "a") - 1.0,
-            0.0,
-            1e-12,
-            "",
-        );
+        let el = elements_from_state(gm, row_vec(&row, ["x", "y", "z"]), row_vec(&row, ["vx", "vy", "vz"])).unwrap();
+        compare("a (relative)", el.semi_major_axis_au() / num(&row, "a") - 1.0, 0.0, 1e-12, "");
         compare("e", el.eccentricity, num(&row, "e"), 1e-12, "");
         compare("inc", el.inclination_rad, num(&row, "inc"), 1e-12, "rad");
         for (name, got, want) in [
             ("node", el.node_rad, num(&row, "node")),
             ("peri", el.periapsis_arg_rad, num(&row, "peri")),
-            (
-                "true anomaly",
-                el.true_anomaly_rad,
-                num(&row, "true_anomaly"),
-            ),
-            (
-                "mean anomaly",
-                el.mean_anomaly_rad(),
-                num(&row, "mean_anomaly"),
-            ),
+            ("true anomaly", el.true_anomaly_rad, num(&row, "true_anomaly")),
+            ("mean anomaly", el.mean_anomaly_rad(), num(&row, "mean_anomaly")),
         ] {
             compare(name, wrap_pi(got - want), 0.0, 1e-10, "rad");
         }
@@ -133,30 +89,14 @@ fn state_to_elements_matches_rebound() {
 fn universal_variable_propagation_matches_rebound_ias15() {
     for row in read_rows("kepler/propagation.csv") {
         let gm = num(&row, "gm");
-        let (r, v) = propagate(
-            gm,
-            row_vec(&row, ["x", "y", "z"]),
-            row_vec(&row, ["vx", "vy", "vz"]),
-            num(&row, "dt_days"),
-        )
-        .unwrap();
+        let (r, v) =
+            propagate(gm, row_vec(&row, ["x", "y", "z"]), row_vec(&row, ["vx", "vy", "vz"]), num(&row, "dt_days"))
+                .unwrap();
         let want_r = row_vec(&row, ["x1", "y1", "z1"]);
         let want_v = row_vec(&row, ["vx1", "vy1", "vz1"]);
         // IAS15 over up to three periods keeps about 1e-12 relative accuracy.
-        compare(
-            "position (relative)",
-            (r - want_r).norm() / want_r.norm(),
-            0.0,
-            1e-9,
-            "",
-        );
-        compare(
-            "velocity (relative)",
-            (v - want_v).norm() / want_v.norm(),
-            0.0,
-            1e-9,
-            "",
-        );
+        compare("position (relative)", (r - want_r).norm() / want_r.norm(), 0.0, 1e-9, "");
+        compare("velocity (relative)", (v - want_v).norm() / want_v.norm(), 0.0, 1e-9, "");
     }
 }
 

@@ -19,13 +19,7 @@ fn utc_to_tt_and_tdb_match_skyfield() {
         let tdb_want = num(row, "tdb_days") * 86400.0 + num(row, "tdb_rem_s");
         // TT is TAI + 32.184 s and TAI - UTC comes from the same leap-second
         // table (held at 10 s before 1972 by both): agreement to the microsecond.
-        compare(
-            &format!("TT of {iso}"),
-            tt_seconds_from_j2000(e),
-            tt_want,
-            1.0 * MICROSECOND,
-            "s",
-        );
+        compare(&format!("TT of {iso}"), tt_seconds_from_j2000(e), tt_want, 1.0 * MICROSECOND, "s");
         let d = (tdb_seconds_from_j2000(e) - tdb_want).abs();
         if iso.as_str() < "1972" {
             worst_tdb_before_1972 = worst_tdb_before_1972.max(d);
@@ -35,14 +29,8 @@ fn utc_to_tt_and_tdb_match_skyfield() {
     }
     // Latens and skyfield evaluate the same published series (USNO Circular
     // 179, eq. 2.6), so they agree to the float rounding of the inputs.
-    assert!(
-        worst_tdb_after_1972 <= 1.0 * MICROSECOND,
-        "TDB after 1972 off by {worst_tdb_after_1972:e} s"
-    );
-    assert!(
-        worst_tdb_before_1972 <= 1.0 * MICROSECOND,
-        "TDB before 1972 off by {worst_tdb_before_1972:e} s"
-    );
+    assert!(worst_tdb_after_1972 <= 1.0 * MICROSECOND, "TDB after 1972 off by {worst_tdb_after_1972:e} s");
+    assert!(worst_tdb_before_1972 <= 1.0 * MICROSECOND, "TDB before 1972 off by {worst_tdb_before_1972:e} s");
     eprintln!(
         "TDB vs skyfield: max {:.2} us after 1972, {:.2} us before",
         worst_tdb_after_1972 * 1e6,
@@ -61,10 +49,7 @@ fn tdb_minus_tt_is_within_ten_microseconds_of_the_full_series() {
         let ours = tdb_seconds_from_j2000(e) - tt_seconds_from_j2000(e);
         worst = worst.max((ours - num(&row, "erfa_tdb_minus_tt_s")).abs());
     }
-    eprintln!(
-        "TDB - TT vs full series (ERFA eraDtdb): max {:.2} us",
-        worst * 1e6
-    );
+    eprintln!("TDB - TT vs full series (ERFA eraDtdb): max {:.2} us", worst * 1e6);
     assert!(worst <= 10.0 * MICROSECOND, "{worst:e} s");
 }
 
@@ -73,10 +58,7 @@ fn julian_date_in_tdb_agrees_with_iso_utc() {
     // Take the skyfield TDB of one fixture row and write it as a JD TDB: the
     // two inputs must name the same instant.
     let rows = read_rows("time/utc_tdb.csv");
-    let row = rows
-        .iter()
-        .find(|r| r["iso_utc"].starts_with("2017-01-01"))
-        .unwrap();
+    let row = rows.iter().find(|r| r["iso_utc"].starts_with("2017-01-01")).unwrap();
     let days = num(row, "tdb_days") + num(row, "tdb_rem_s") / 86400.0;
     let jd = format!("JD {:.12} TDB", 2_451_545.0 + days);
     let a = tdb_seconds_from_j2000(parse_epoch(&jd).unwrap());

@@ -13,9 +13,7 @@ use super::CliError;
 use super::args::DemoArgs;
 use crate::dynamics::kepler::{Elements, elements_from_state, propagate, state_from_elements};
 use crate::ephemeris::{Body, Ephemeris, Tabulated, Vsop87};
-use crate::frames::{
-    angular_separation, ecliptic_from_icrf, icrf_from_ecliptic, radec_from_vector,
-};
+use crate::frames::{angular_separation, ecliptic_from_icrf, icrf_from_ecliptic, radec_from_vector};
 use crate::io::write_atomically;
 use crate::time::{epoch_from_tdb_days, parse_epoch, tdb_days_from_j2000, utc_iso_from_epoch};
 use crate::units::{GM_SUN_AU3_PER_DAY2, RAD_PER_DEG};
@@ -64,12 +62,11 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
         body.mean_anomaly_deg * RAD_PER_DEG,
     )
     .map_err(CliError::failed)?;
-    let (r_ecl, v_ecl) =
-        state_from_elements(GM_SUN_AU3_PER_DAY2, &elements).map_err(CliError::failed)?;
+    let (r_ecl, v_ecl) = state_from_elements(GM_SUN_AU3_PER_DAY2, &elements).map_err(CliError::failed)?;
     let (r0, v0) = (icrf_from_ecliptic(r_ecl), icrf_from_ecliptic(v_ecl));
 
-    let ephemeris = Tabulated::new(&Vsop87::new(), &[Body::Earth], (t_start - 1.0, t_end + 1.0))
-        .map_err(CliError::failed)?;
+    let ephemeris =
+        Tabulated::new(&Vsop87::new(), &[Body::Earth], (t_start - 1.0, t_end + 1.0)).map_err(CliError::failed)?;
 
     let mut csv = String::from(
         "epoch_utc,t_tdb_days,ra_deg,dec_deg,heliocentric_distance_au,geocentric_distance_au,solar_elongation_deg\n",
@@ -78,9 +75,7 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
     let mut t = t_start;
     while t <= t_end + 1e-9 {
         let (r, _) = propagate(GM_SUN_AU3_PER_DAY2, r0, v0, t - t_ref).map_err(CliError::failed)?;
-        let earth = ephemeris
-            .heliocentric_position_au(Body::Earth, t)
-            .map_err(CliError::failed)?;
+        let earth = ephemeris.heliocentric_position_au(Body::Earth, t).map_err(CliError::failed)?;
         let geo = r - earth;
         let d = radec_from_vector(geo);
         let elongation = angular_separation(geo, -earth) / RAD_PER_DEG;
@@ -99,17 +94,11 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
         t += VISIT_SPACING_DAYS;
     }
     let track_path = args.out.join("two_body_track.csv");
-    write_atomically(&track_path, csv.as_bytes())
-        .context("writing the demo track")
-        .map_err(CliError::failed)?;
+    write_atomically(&track_path, csv.as_bytes()).context("writing the demo track").map_err(CliError::failed)?;
 
     // Round trip of the elements through the ICRF state, as a visible check.
-    let back = elements_from_state(
-        GM_SUN_AU3_PER_DAY2,
-        ecliptic_from_icrf(r0),
-        ecliptic_from_icrf(v0),
-    )
-    .map_err(CliError::failed)?;
+    let back = elements_from_state(GM_SUN_AU3_PER_DAY2, ecliptic_from_icrf(r0), ecliptic_from_icrf(v0))
+        .map_err(CliError::failed)?;
 
     println!("Latens demo: invented scenario, tracked body {}", body.name);
     println!(
@@ -119,19 +108,12 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
         back.eccentricity,
         back.inclination_rad / RAD_PER_DEG
     );
-    println!(
-        "  embedded ephemeris: {} for the Earth",
-        ephemeris.description()
-    );
+    println!("  embedded ephemeris: {} for the Earth", ephemeris.description());
     println!(
         "  computed {visits} geocentric positions, one every {VISIT_SPACING_DAYS} days from {SURVEY_START_UTC} to {SURVEY_END_UTC}"
     );
-    println!(
-        "What this demo did not do yet: planetary perturbations, light time, observations with noise,"
-    );
-    println!(
-        "the orbit fit, the perturber search and the search products. Those stages are not built yet;"
-    );
+    println!("What this demo did not do yet: planetary perturbations, light time, observations with noise,");
+    println!("the orbit fit, the perturber search and the search products. Those stages are not built yet;");
     println!("positions here are geometric two-body positions about the Sun alone.");
     println!("Files written:");
     println!(

@@ -27,16 +27,10 @@ pub struct CliError {
 
 impl CliError {
     pub fn bad_input(error: impl Into<anyhow::Error>) -> Self {
-        CliError {
-            code: EXIT_BAD_INPUT,
-            error: error.into(),
-        }
+        CliError { code: EXIT_BAD_INPUT, error: error.into() }
     }
     pub fn failed(error: impl Into<anyhow::Error>) -> Self {
-        CliError {
-            code: EXIT_FAILED,
-            error: error.into(),
-        }
+        CliError { code: EXIT_FAILED, error: error.into() }
     }
 }
 
@@ -73,8 +67,7 @@ fn run(args: Args) -> Result<(), CliError> {
 }
 
 fn is_broken_pipe(error: &anyhow::Error) -> bool {
-    error.chain().any(|e| {
-        e.downcast_ref::<std::io::Error>()
-            .is_some_and(|io| io.kind() == std::io::ErrorKind::BrokenPipe)
-    })
+    error
+        .chain()
+        .any(|e| e.downcast_ref::<std::io::Error>().is_some_and(|io| io.kind() == std::io::ErrorKind::BrokenPipe))
 }

@@ -20,6 +20,10 @@
 //!   da_i/dr_j  = mu_j [ F(r_j - r_i) - F(r_j) ]      (j propagated, massive)
 //!   da_i/dmu_m = f(r_m - r_i) - f(r_m)  (m != i),    -f(r_i)  (m = i)
 //!
+//! With planets folded into the Sun, "heliocentric" above reads "relative to
+//! the barycentre of the Sun and the folded planets" and mu_sun is their
+//! total GM (see [`ForceModel`]).
+//!
 //! The 1PN term is left out of the variational equations: it changes a
 //! distant body's acceleration by about 1e-8 of itself, and the partials by
 //! less.
@@ -45,11 +49,25 @@ pub struct KnownBody {
 }
 
 /// Which forces act on the propagated bodies.
+///
+/// With `folded` bodies (the inner planets, for a distant target), the Sun and
+/// those bodies act as one point mass at their common barycentre B, and the
+/// equations of motion are written relative to B instead of the Sun. The
+/// choice of origin matters: heliocentric positions of the giant planets carry
+/// the Sun's reflex wobble about B (the Earth alone moves the Sun by 650 km
+/// over a year, Mercury by 10 000 km... of which a 88-day wiggle of 9 500 km
+/// only through Jupiter's indirect term), and an integrator would have to
+/// follow those wiggles with steps of days. Relative to B everything is
+/// smooth. The propagator converts states to and from heliocentric ones at
+/// its boundary, so callers only ever see heliocentric states.
 #[derive(Clone, Debug, PartialEq)]
 pub struct ForceModel {
-    /// GM of the central mass: the Sun, plus any inner planets folded into it.
+    /// GM of the Sun alone.
     pub gm_sun_au3_per_day2: f64,
-    /// Planets taken from the ephemeris.
+    /// Planets folded into the central mass (their barycentre with the Sun is
+    /// the origin of integration).
+    pub folded: Vec<KnownBody>,
+    /// Planets taken from the ephemeris as separate attracting bodies.
     pub known: Vec<KnownBody>,
     /// Whether to add the 1PN solar relativistic term.
     pub relativity: bool,
@@ -60,6 +78,7 @@ impl ForceModel {
     pub fn sun_only() -> Self {
         ForceModel {
             gm_sun_au3_per_day2: Body::Sun.gm_au3_per_day2(),
+            folded: Vec::new(),
             known: Vec::new(),
             relativity: false,
         }
@@ -69,13 +88,8 @@ impl ForceModel {
     pub fn with_known(bodies: &[Body]) -> Self {
         ForceModel {
             gm_sun_au3_per_day2: Body::Sun.gm_au3_per_day2(),
-            known: bodies
-                .iter()
-                .map(|&b| KnownBody {
-                    body: b,
-                    gm_au3_per_day2: b.gm_au3_per_day2(),
-                })
-                .collect(),
+            folded: Vec::new(),
+            known: bodies.iter().map(|&b| KnownBody { body: b, gm_au3_per_day2: b.gm_au3_per_day2() }).collect(),
             relativity: false,
         }
     }
@@ -85,21 +99,45 @@ impl ForceModel {
     /// and Mars folded into the Sun's mass.
     ///
     /// Folding is accurate for bodies far outside the inner planets: seen from
-    /// r, the inner planets at distance d from the Sun act as a point mass at
-    /// the Sun plus a quadrupole whose acceleration is smaller by (d/r)^2
-    /// (below 1e-3 of their already 6e-6 share of the Sun's pull at 40 au),
-    /// and the indirect terms average out over their short periods.
+    /// r, the Sun and the inner planets (within d of it) act as a point mass at
+    /// their barycentre plus a quadrupole smaller by (d/r)^2, below 1e-3 of the
+    /// inner planets' 6e-6 share of the central pull at 40 au. The integration
+    /// origin is that barycentre (see [`ForceModel`]).
     pub fn outer_planets_with_inner_folded() -> Self {
-        let inner = [
-            Body::Mercury,
-            Body::Venus,
-            Body::EarthMoonBarycenter,
-            Body::Mars,
-        ];
-        let mut m =
-            ForceModel::with_known(&[Body::Jupiter, Body::Saturn, Body::Uranus, Body::Neptune]);
-        m.gm_sun_au3_per_day2 += inner.iter().map(|b| b.gm_au3_per_day2()).sum::<f64>();
+        let inner = [Body::Mercury, Body::Venus, Body::EarthMoonBarycenter, Body::Mars];
+        let mut m = ForceModel::with_known(&[Body::Jupiter, Body::Saturn, Body::Uranus, Body::Neptune]);
+        m.folded = inner.iter().map(|&b| KnownBody { body: b, gm_au3_per_day2: b.gm_au3_per_day2() }).collect();
         m
+    }
+
+    /// Every body this model reads from the ephemeris (known and folded), for
+    /// building a [`crate::ephemeris::Tabulated`] cache.
+    pub fn ephemeris_bodies(&self) -> Vec<Body> {
+        self.known.iter().chain(self.folded.iter()).map(|k| k.body).collect()
+    }
+
+    /// GM of the central point mass: the Sun plus the folded planets.
+    pub fn central_gm_au3_per_day2(&self) -> f64 {
+        self.gm_sun_au3_per_day2 + self.folded.iter().map(|k| k.gm_au3_per_day2).sum::<f64>()
+    }
+
+    /// Heliocentric position (au) and velocity (au/day) of the integration
+    /// origin: the barycentre of the Sun and the folded planets (the Sun itself
+    /// when nothing is folded).
+    pub fn origin_heliocentric_state(
+        &self,
+        ephemeris: &dyn Ephemeris,
+        t_tdb_days: f64,
+    ) -> Result<(Vec3, Vec3), PropagationError> {
+        let mut p = Vec3::ZERO;
+        let mut v = Vec3::ZERO;
+        for f in &self.folded {
+            let s = ephemeris.heliocentric_state(f.body, t_tdb_days)?;
+            p += s.position_au * f.gm_au3_per_day2;
+            v += s.velocity_au_per_day * f.gm_au3_per_day2;
+        }
+        let m = self.central_gm_au3_per_day2();
+        Ok((p / m, v / m))
     }
 
     /// The same model with the 1PN solar term switched on or off.
@@ -235,8 +273,7 @@ impl SecondOrderSystem for GravitySystem<'_> {
             for (node, h) in RADAU_NODES.iter().enumerate() {
                 let t = t0 + h * dt;
                 for (j, kb) in self.model.known.iter().enumerate() {
-                    self.node_positions[node * k + j] =
-                        self.ephemeris.heliocentric_position_au(kb.body, t)?;
+                    self.node_positions[node * k + j] = self.ephemeris.heliocentric_position_au(kb.body, t)?;
                 }
             }
             self.ephemeris_evaluations += (8 * k) as u64;
@@ -264,7 +301,7 @@ impl SecondOrderSystem for GravitySystem<'_> {
     ) -> Result<(), PropagationError> {
         let nb = self.masses.len();
         let k = self.model.known.len();
-        let mu_sun = self.model.gm_sun_au3_per_day2;
+        let mu_sun = self.model.central_gm_au3_per_day2();
         for i in 0..nb {
             self.positions[i] = Vec3::new(x[3 * i], x[3 * i + 1], x[3 * i + 2]);
         }
@@ -286,8 +323,7 @@ impl SecondOrderSystem for GravitySystem<'_> {
                 let rn = r.norm();
                 let c2 = C_AU_PER_DAY * C_AU_PER_DAY;
                 let factor = mu_sun / (c2 * rn * rn * rn);
-                acc += (r * (4.0 * mu_sun / rn - vel.norm_squared()) + vel * (4.0 * r.dot(vel)))
-                    * factor;
+                acc += (r * (4.0 * mu_sun / rn - vel.norm_squared()) + vel * (4.0 * r.dot(vel))) * factor;
             }
             a[3 * i] = acc.x;
             a[3 * i + 1] = acc.y;
@@ -374,7 +410,7 @@ mod tests {
     fn folded_model_adds_inner_masses_to_the_sun() {
         let m = ForceModel::outer_planets_with_inner_folded();
         assert_eq!(m.known.len(), 4);
-        let ratio = m.gm_sun_au3_per_day2 / Body::Sun.gm_au3_per_day2() - 1.0;
+        let ratio = m.central_gm_au3_per_day2() / Body::Sun.gm_au3_per_day2() - 1.0;
         // Mercury..Mars together are about 6.0e-6 solar masses (DE440 GMs).
         assert!((ratio - 6.0e-6).abs() < 0.1e-6, "{ratio}");
     }

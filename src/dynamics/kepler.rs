@@ -26,10 +26,7 @@ pub enum KeplerError {
     #[error("invalid orbit: {0}")]
     InvalidOrbit(String),
     #[error("Kepler's equation did not converge (M = {mean_anomaly}, e = {eccentricity})")]
-    NoConvergence {
-        mean_anomaly: f64,
-        eccentricity: f64,
-    },
+    NoConvergence { mean_anomaly: f64, eccentricity: f64 },
 }
 
 /// Eccentricities closer to 1 than this, and angular momenta this small
@@ -69,11 +66,7 @@ impl Elements {
                 "eccentricity {e} needs a periapsis distance, not a semi-major axis"
             )));
         }
-        let fits = if e < 1.0 {
-            a_au > 0.0 && a_au.is_finite()
-        } else {
-            a_au < 0.0 && a_au.is_finite()
-        };
+        let fits = if e < 1.0 { a_au > 0.0 && a_au.is_finite() } else { a_au < 0.0 && a_au.is_finite() };
         if !fits {
             return Err(KeplerError::InvalidOrbit(format!(
                 "semi-major axis {a_au} au does not fit eccentricity {e} (positive for ellipses, negative for hyperbolae)"
@@ -186,8 +179,8 @@ pub fn eccentric_anomaly(mean_anomaly_rad: f64, eccentricity: f64) -> Result<f64
         if !(next > lo && next < hi) {
             next = 0.5 * (lo + hi);
         }
-        let converged = (next - x).abs() <= 4.0 * f64::EPSILON * x.abs().max(1e-300)
-            || hi - lo <= 4.0 * f64::EPSILON * hi;
+        let converged =
+            (next - x).abs() <= 4.0 * f64::EPSILON * x.abs().max(1e-300) || hi - lo <= 4.0 * f64::EPSILON * hi;
         x = next;
         if converged {
             return Ok(revolutions + sign * x);
@@ -196,10 +189,7 @@ pub fn eccentric_anomaly(mean_anomaly_rad: f64, eccentricity: f64) -> Result<f64
     if hi - lo <= 1e-12 * hi {
         return Ok(revolutions + sign * x);
     }
-    Err(KeplerError::NoConvergence {
-        mean_anomaly: mean_anomaly_rad,
-        eccentricity: e,
-    })
+    Err(KeplerError::NoConvergence { mean_anomaly: mean_anomaly_rad, eccentricity: e })
 }
 
 /// Solves the hyperbolic Kepler equation `M = e sinh H - H`, e > 1.
@@ -222,11 +212,7 @@ pub fn hyperbolic_anomaly(mean_anomaly_rad: f64, eccentricity: f64) -> Result<f6
     let e_minus_1 = e - 1.0;
     let f = |h: f64| e_minus_1 * h.sinh() + sinh_minus_x(h) - m;
     let (mut lo, mut hi) = ((m / e).asinh(), (m / e_minus_1).asinh());
-    let mut x = if m < 1.0 && e < 1.1 {
-        (6.0 * m).cbrt().clamp(lo, hi)
-    } else {
-        (m / e).asinh().max(lo)
-    };
+    let mut x = if m < 1.0 && e < 1.1 { (6.0 * m).cbrt().clamp(lo, hi) } else { (m / e).asinh().max(lo) };
     x = x.clamp(lo, hi);
     for _ in 0..200 {
         let fx = f(x);
@@ -243,8 +229,7 @@ pub fn hyperbolic_anomaly(mean_anomaly_rad: f64, eccentricity: f64) -> Result<f6
         if !(next > lo && next < hi) {
             next = 0.5 * (lo + hi);
         }
-        let converged =
-            (next - x).abs() <= 4.0 * f64::EPSILON * x.abs() || hi - lo <= 4.0 * f64::EPSILON * hi;
+        let converged = (next - x).abs() <= 4.0 * f64::EPSILON * x.abs() || hi - lo <= 4.0 * f64::EPSILON * hi;
         x = next;
         if converged {
             return Ok(sign * x);
@@ -253,18 +238,12 @@ pub fn hyperbolic_anomaly(mean_anomaly_rad: f64, eccentricity: f64) -> Result<f6
     if hi - lo <= 1e-12 * hi {
         return Ok(sign * x);
     }
-    Err(KeplerError::NoConvergence {
-        mean_anomaly: mean_anomaly_rad,
-        eccentricity: e,
-    })
+    Err(KeplerError::NoConvergence { mean_anomaly: mean_anomaly_rad, eccentricity: e })
 }
 
 /// True anomaly from mean anomaly for any conic (e = 1: Barker's equation with
 /// M = D + D^3/3, D = tan(nu/2)). Elliptic results are in [-pi, pi).
-pub fn true_anomaly_from_mean(
-    mean_anomaly_rad: f64,
-    eccentricity: f64,
-) -> Result<f64, KeplerError> {
+pub fn true_anomaly_from_mean(mean_anomaly_rad: f64, eccentricity: f64) -> Result<f64, KeplerError> {
     let e = eccentricity;
     if e < 1.0 {
         let big_e = eccentric_anomaly(wrap_pi(mean_anomaly_rad), e)?;
@@ -308,16 +287,11 @@ pub fn mean_anomaly_from_true(true_anomaly_rad: f64, eccentricity: f64) -> f64 {
 
 /// Heliocentric (or planetocentric) position (au) and velocity (au/day) from
 /// elements, for central body `gm_au3_per_day2`.
-pub fn state_from_elements(
-    gm_au3_per_day2: f64,
-    el: &Elements,
-) -> Result<(Vec3, Vec3), KeplerError> {
+pub fn state_from_elements(gm_au3_per_day2: f64, el: &Elements) -> Result<(Vec3, Vec3), KeplerError> {
     let e = el.eccentricity;
     let q = el.periapsis_au;
     if !is_positive_finite(gm_au3_per_day2) {
-        return Err(KeplerError::InvalidOrbit(format!(
-            "GM must be positive, got {gm_au3_per_day2}"
-        )));
+        return Err(KeplerError::InvalidOrbit(format!("GM must be positive, got {gm_au3_per_day2}")));
     }
     if !(is_positive_finite(q) && e.is_finite() && e >= 0.0) {
         return Err(KeplerError::InvalidOrbit(format!(
@@ -344,10 +318,7 @@ pub fn state_from_elements(
     // in-plane direction Q at 90 degrees of motion further on.
     let pvec = Vec3::new(co * cw - so * sw * ci, so * cw + co * sw * ci, sw * si);
     let qvec = Vec3::new(-co * sw - so * cw * ci, -so * sw + co * cw * ci, cw * si);
-    Ok((
-        pvec * pos_pf.x + qvec * pos_pf.y,
-        pvec * vel_pf.x + qvec * vel_pf.y,
-    ))
+    Ok((pvec * pos_pf.x + qvec * pos_pf.y, pvec * vel_pf.x + qvec * vel_pf.y))
 }
 
 /// Elements from a position (au) and velocity (au/day) about a central body.
@@ -360,24 +331,16 @@ pub fn elements_from_state(
     let mu = gm_au3_per_day2;
     let (r, v) = (position_au, velocity_au_per_day);
     if !is_positive_finite(mu) || !r.is_finite() || !v.is_finite() || r.norm() == 0.0 {
-        return Err(KeplerError::InvalidOrbit(
-            "a state needs a finite, non-zero position and a positive GM".into(),
-        ));
+        return Err(KeplerError::InvalidOrbit("a state needs a finite, non-zero position and a positive GM".into()));
     }
     let h = r.cross(v);
     let hn = h.norm();
     if hn <= ANGLE_DEGENERACY_TOL * r.norm() * v.norm() || hn == 0.0 {
-        return Err(KeplerError::InvalidOrbit(
-            "the motion is radial (zero angular momentum): no orbital plane".into(),
-        ));
+        return Err(KeplerError::InvalidOrbit("the motion is radial (zero angular momentum): no orbital plane".into()));
     }
     let h_xy = h.x.hypot(h.y);
     let inclination = h_xy.atan2(h.z);
-    let node = if h_xy > ANGLE_DEGENERACY_TOL * hn {
-        wrap_two_pi(h.x.atan2(-h.y))
-    } else {
-        0.0
-    };
+    let node = if h_xy > ANGLE_DEGENERACY_TOL * hn { wrap_two_pi(h.x.atan2(-h.y)) } else { 0.0 };
     let n_hat = Vec3::new(node.cos(), node.sin(), 0.0);
     let w_hat = (h / hn).cross(n_hat);
     let rn = r.norm();
@@ -442,12 +405,7 @@ pub fn propagate(
     let mu = gm_au3_per_day2;
     let (r0, v0) = (position_au, velocity_au_per_day);
     let r0n = r0.norm();
-    if !is_positive_finite(mu)
-        || r0n == 0.0
-        || !r0.is_finite()
-        || !v0.is_finite()
-        || !dt_days.is_finite()
-    {
+    if !is_positive_finite(mu) || r0n == 0.0 || !r0.is_finite() || !v0.is_finite() || !dt_days.is_finite() {
         return Err(KeplerError::InvalidOrbit(
             "propagation needs a finite non-zero position, a positive GM and a finite time".into(),
         ));
@@ -470,12 +428,7 @@ pub fn propagate(
         let z = alpha * x * x;
         let (c, s) = stumpff(z);
         let x2 = x * x;
-        let terms = [
-            sigma0 * x2 * c,
-            (1.0 - alpha * r0n) * x2 * x * s,
-            r0n * x,
-            -sqrt_mu * dt,
-        ];
+        let terms = [sigma0 * x2 * c, (1.0 - alpha * r0n) * x2 * x * s, r0n * x, -sqrt_mu * dt];
         let f: f64 = terms.iter().sum();
         let scale: f64 = terms.iter().map(|t| t.abs()).sum();
         let df = sigma0 * x * (1.0 - z * s) + (1.0 - alpha * r0n) * x2 * c + r0n; // = r(x)
@@ -490,13 +443,8 @@ pub fn propagate(
     } else if alpha < -1e-12 {
         let a = 1.0 / alpha;
         let s = dt.signum();
-        let arg =
-            (-2.0 * mu * alpha * dt) / (r0.dot(v0) + s * (-mu * a).sqrt() * (1.0 - r0n * alpha));
-        if arg > 0.0 && arg.is_finite() {
-            s * (-a).sqrt() * arg.ln()
-        } else {
-            sqrt_mu * dt / r0n
-        }
+        let arg = (-2.0 * mu * alpha * dt) / (r0.dot(v0) + s * (-mu * a).sqrt() * (1.0 - r0n * alpha));
+        if arg > 0.0 && arg.is_finite() { s * (-a).sqrt() * arg.ln() } else { sqrt_mu * dt / r0n }
     } else {
         sqrt_mu * dt / r0n
     };
@@ -505,9 +453,7 @@ pub fn propagate(
     let mut previous_step = f64::INFINITY;
     for _ in 0..500 {
         let (f, df, d2f, scale, _, _) = f_of(x);
-        let disc = ((n - 1.0) * (n - 1.0) * df * df - n * (n - 1.0) * f * d2f)
-            .abs()
-            .sqrt();
+        let disc = ((n - 1.0) * (n - 1.0) * df * df - n * (n - 1.0) * f * d2f).abs().sqrt();
         let denom = if df >= 0.0 { df + disc } else { df - disc };
         let dx = n * f / denom;
         // Converged when the step reaches the last bits of x, or the rounding
@@ -527,10 +473,7 @@ pub fn propagate(
         previous_step = step;
     }
     if !converged || !x.is_finite() {
-        return Err(KeplerError::NoConvergence {
-            mean_anomaly: dt,
-            eccentricity: f64::NAN,
-        });
+        return Err(KeplerError::NoConvergence { mean_anomaly: dt, eccentricity: f64::NAN });
     }
     let (_, rn, _, _, c, s) = f_of(x);
     let x2 = x * x;
@@ -569,10 +512,7 @@ mod tests {
                 let big_e = eccentric_anomaly(m, e).unwrap();
                 let back = x_minus_sin(big_e) + (1.0 - e) * big_e.sin();
                 let rel = ((back - m) / m).abs();
-                assert!(
-                    rel < 1e-13,
-                    "e = {e}, M = {m}: M back = {back}, rel {rel:e}"
-                );
+                assert!(rel < 1e-13, "e = {e}, M = {m}: M back = {back}, rel {rel:e}");
             }
         }
     }

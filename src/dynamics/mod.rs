@@ -14,9 +14,7 @@ pub mod kepler;
 pub mod propagate;
 
 pub use forces::{ForceModel, KnownBody};
-pub use propagate::{
-    InitialState, Perturber, PropagationSettings, PropagationStats, Propagator, Trajectory,
-};
+pub use propagate::{InitialState, Perturber, PropagationSettings, PropagationStats, Propagator, Trajectory};
 
 use crate::ephemeris::EphemerisError;
 

@@ -65,12 +65,7 @@ pub struct PropagationSettings {
 
 impl Default for PropagationSettings {
     fn default() -> Self {
-        PropagationSettings {
-            tolerance: 1e-9,
-            partials: false,
-            reuse_steps: false,
-            max_steps: 1_000_000,
-        }
+        PropagationSettings { tolerance: 1e-9, partials: false, reuse_steps: false, max_steps: 1_000_000 }
     }
 }
 
@@ -115,6 +110,9 @@ impl Trajectory {
     }
 }
 
+/// The shortest step the propagator accepts, days (about 0.9 us).
+const MIN_STEP_DAYS: f64 = 1e-11;
+
 #[derive(Clone, Debug, Default)]
 struct StepPlan {
     t0: f64,
@@ -130,6 +128,9 @@ pub struct Propagator<'a> {
     settings: PropagationSettings,
     plan: Option<StepPlan>,
     cache: NodeCache,
+    /// Heliocentric states of the integration origin at output epochs (kept
+    /// with a step plan).
+    origin_cache: std::collections::HashMap<u64, (Vec3, Vec3)>,
 }
 
 impl<'a> Propagator<'a> {
@@ -138,12 +139,8 @@ impl<'a> Propagator<'a> {
         ephemeris: &'a dyn Ephemeris,
         settings: PropagationSettings,
     ) -> Result<Self, PropagationError> {
-        if !(settings.tolerance.is_finite() && settings.tolerance > 0.0 && settings.tolerance < 1.0)
-        {
-            return Err(PropagationError::Invalid(format!(
-                "tolerance {} must lie in (0, 1)",
-                settings.tolerance
-            )));
+        if !(settings.tolerance.is_finite() && settings.tolerance > 0.0 && settings.tolerance < 1.0) {
+            return Err(PropagationError::Invalid(format!("tolerance {} must lie in (0, 1)", settings.tolerance)));
         }
         Ok(Propagator {
             model,
@@ -151,6 +148,7 @@ impl<'a> Propagator<'a> {
             settings,
             plan: None,
             cache: NodeCache::new(),
+            origin_cache: Default::default(),
         })
     }
 
@@ -162,6 +160,7 @@ impl<'a> Propagator<'a> {
     pub fn forget_plan(&mut self) {
         self.plan = None;
         self.cache.clear();
+        self.origin_cache.clear();
     }
 
     /// Propagates `initial` to each of `epochs_tdb_days` (any order; before and
@@ -182,9 +181,7 @@ impl<'a> Propagator<'a> {
             Err(PlanOutcome::TooCoarse) => {
                 // Replan adaptively from scratch.
                 self.forget_plan();
-                let mut out = self
-                    .run(initial, epochs_tdb_days, false)
-                    .map_err(PlanOutcome::into_error)?;
+                let mut out = self.run(initial, epochs_tdb_days, false).map_err(PlanOutcome::into_error)?;
                 out.stats.replans += 1;
                 Ok(out)
             }
@@ -192,12 +189,7 @@ impl<'a> Propagator<'a> {
         }
     }
 
-    fn run(
-        &mut self,
-        initial: &InitialState,
-        epochs: &[f64],
-        replay: bool,
-    ) -> Result<Trajectory, PlanOutcome> {
+    fn run(&mut self, initial: &InitialState, epochs: &[f64], replay: bool) -> Result<Trajectory, PlanOutcome> {
         let t0 = initial.t0_tdb_days;
         let mut masses = vec![0.0];
         masses.extend(initial.perturbers.iter().map(|p| p.gm_au3_per_day2));
@@ -205,30 +197,22 @@ impl<'a> Propagator<'a> {
         let model = self.model;
         let replayed_plan = if replay { self.plan.clone() } else { None };
         let use_cache = self.settings.reuse_steps;
-        let cache = if use_cache {
-            Some(&mut self.cache)
-        } else {
-            None
-        };
-        let mut system = GravitySystem::new(
-            self.model,
-            self.ephemeris,
-            masses,
-            self.settings.partials,
-            cache,
-        );
+        let cache = if use_cache { Some(&mut self.cache) } else { None };
+        let mut system = GravitySystem::new(self.model, self.ephemeris, masses, self.settings.partials, cache);
         let nb = system.n_bodies();
         let n_params = system.n_params();
         let dim = system.dim();
 
-        // Initial x and v, with the variational identity for the state parameters.
+        // Initial x and v relative to the integration origin, with the
+        // variational identity for the state parameters.
+        let (origin_p, origin_v) = model.origin_heliocentric_state(self.ephemeris, t0)?;
         let mut x0 = vec![0.0; dim];
         let mut v0 = vec![0.0; dim];
-        x0[0..3].copy_from_slice(&initial.tracked_position_au.to_array());
-        v0[0..3].copy_from_slice(&initial.tracked_velocity_au_per_day.to_array());
+        x0[0..3].copy_from_slice(&(initial.tracked_position_au - origin_p).to_array());
+        v0[0..3].copy_from_slice(&(initial.tracked_velocity_au_per_day - origin_v).to_array());
         for (k, p) in initial.perturbers.iter().enumerate() {
-            x0[3 * (k + 1)..3 * (k + 2)].copy_from_slice(&p.position_au.to_array());
-            v0[3 * (k + 1)..3 * (k + 2)].copy_from_slice(&p.velocity_au_per_day.to_array());
+            x0[3 * (k + 1)..3 * (k + 2)].copy_from_slice(&(p.position_au - origin_p).to_array());
+            v0[3 * (k + 1)..3 * (k + 2)].copy_from_slice(&(p.velocity_au_per_day - origin_v).to_array());
         }
         if n_params > 0 {
             let block = 3 * nb;
@@ -255,21 +239,13 @@ impl<'a> Propagator<'a> {
         backward.sort_by(|&a, &b| epochs[b].total_cmp(&epochs[a]));
 
         let mut integrator = GaussRadau::new(dim, self.settings.tolerance);
-        let mut new_plan = StepPlan {
-            t0,
-            ..StepPlan::default()
-        };
+        let mut new_plan = StepPlan { t0, ..StepPlan::default() };
         for (leg_index, order) in [(0, &forward), (1, &backward)] {
             if order.is_empty() {
                 continue;
             }
-            let replayed = replayed_plan.as_ref().map(|p| {
-                if leg_index == 0 {
-                    p.forward.clone()
-                } else {
-                    p.backward.clone()
-                }
-            });
+            let replayed =
+                replayed_plan.as_ref().map(|p| if leg_index == 0 { p.forward.clone() } else { p.backward.clone() });
             integrator.reset();
             let steps = Self::leg(
                 &settings,
@@ -288,6 +264,27 @@ impl<'a> Propagator<'a> {
                 new_plan.forward = steps;
             } else {
                 new_plan.backward = steps;
+            }
+        }
+        // Back to heliocentric states.
+        if !model.folded.is_empty() {
+            for (e, &t) in epochs.iter().enumerate() {
+                let (op, ov) = match self.origin_cache.get(&t.to_bits()) {
+                    Some(&o) => o,
+                    None => {
+                        let o = model.origin_heliocentric_state(self.ephemeris, t)?;
+                        if settings.reuse_steps {
+                            self.origin_cache.insert(t.to_bits(), o);
+                        }
+                        o
+                    }
+                };
+                let shift = |s: &mut StateVector| {
+                    s.position_au += op;
+                    s.velocity_au_per_day += ov;
+                };
+                shift(&mut out.tracked[e]);
+                out.perturbers.iter_mut().for_each(|p| shift(&mut p[e]));
             }
         }
         out.stats.force_evaluations = integrator.evaluations;
@@ -329,16 +326,13 @@ impl<'a> Propagator<'a> {
             next += 1;
         }
         let mut taken = Vec::new();
-        let mut dt =
-            direction * initial_step_days(initial, model).min((t_end - t0).abs().max(1e-6));
+        let mut dt = direction * initial_step_days(initial, model).min((t_end - t0).abs().max(1e-6));
         let mut scratch_x = vec![0.0; x.len()];
         let mut scratch_v = vec![0.0; v.len()];
         let mut plan_index = 0usize;
         while next < order.len() {
             if taken.len() >= settings.max_steps {
-                return Err(PlanOutcome::Failed(PropagationError::TooManySteps {
-                    max_steps: settings.max_steps,
-                }));
+                return Err(PlanOutcome::Failed(PropagationError::TooManySteps { max_steps: settings.max_steps }));
             }
             let adaptive = replayed.is_none();
             if let Some(plan) = replayed {
@@ -356,9 +350,9 @@ impl<'a> Propagator<'a> {
             match integrator.step(system, t, &mut x, &mut v, dt, adaptive)? {
                 StepOutcome::Rejected { retry_dt, .. } => {
                     out.stats.rejected_steps += 1;
-                    if retry_dt.abs() < 1e-9 * t_end.abs().max(1.0) * f64::EPSILON.sqrt()
-                        || !retry_dt.is_finite()
-                    {
+                    // Below a microsecond no astrometric question is being
+                    // answered any more: a collision or a numerical failure.
+                    if retry_dt.abs() < MIN_STEP_DAYS || !retry_dt.is_finite() {
                         return Err(PlanOutcome::Failed(PropagationError::StepSizeUnderflow {
                             t_tdb_days: t,
                             dt_days: retry_dt,
@@ -383,9 +377,7 @@ impl<'a> Propagator<'a> {
                         next += 1;
                     }
                     if !x.iter().all(|c| c.is_finite()) {
-                        return Err(PlanOutcome::Failed(PropagationError::NonFinite {
-                            t_tdb_days: t,
-                        }));
+                        return Err(PlanOutcome::Failed(PropagationError::NonFinite { t_tdb_days: t }));
                     }
                     if adaptive {
                         dt = next_dt;
@@ -407,9 +399,7 @@ impl PlanOutcome {
     fn into_error(self) -> PropagationError {
         match self {
             PlanOutcome::Failed(e) => e,
-            PlanOutcome::TooCoarse => {
-                PropagationError::Invalid("step plan too coarse after replanning".into())
-            }
+            PlanOutcome::TooCoarse => PropagationError::Invalid("step plan too coarse after replanning".into()),
         }
     }
 }
@@ -447,7 +437,7 @@ fn record(out: &mut Trajectory, e: usize, x: &[f64], v: &[f64], nb: usize) {
 /// A first step of a hundredth of the shortest orbital period involved (the
 /// step control adapts from there within a step or two).
 fn initial_step_days(initial: &InitialState, model: &ForceModel) -> f64 {
-    let mu = model.gm_sun_au3_per_day2;
+    let mu = model.central_gm_au3_per_day2();
     let period = |r: f64| std::f64::consts::TAU * (r * r * r / mu).sqrt();
     let mut shortest = period(initial.tracked_position_au.norm());
     for p in &initial.perturbers {
@@ -468,18 +458,11 @@ fn validate(initial: &InitialState, epochs: &[f64]) -> Result<(), PropagationErr
         return bad("the tracked body's initial state must be finite and away from the Sun");
     }
     for (k, p) in initial.perturbers.iter().enumerate() {
-        if !p.position_au.is_finite()
-            || !p.velocity_au_per_day.is_finite()
-            || p.position_au.norm() == 0.0
-        {
-            return bad(&format!(
-                "perturber {k}: the initial state must be finite and away from the Sun"
-            ));
+        if !p.position_au.is_finite() || !p.velocity_au_per_day.is_finite() || p.position_au.norm() == 0.0 {
+            return bad(&format!("perturber {k}: the initial state must be finite and away from the Sun"));
         }
         if !(p.gm_au3_per_day2.is_finite() && p.gm_au3_per_day2 >= 0.0) {
-            return bad(&format!(
-                "perturber {k}: GM must be finite and not negative"
-            ));
+            return bad(&format!("perturber {k}: GM must be finite and not negative"));
         }
     }
     if epochs.iter().any(|t| !t.is_finite()) {
@@ -521,11 +504,7 @@ mod tests {
             )
             .unwrap();
             let s = traj.tracked[e];
-            assert!(
-                (s.position_au - r).norm() < 1e-10,
-                "{t}: {:e}",
-                (s.position_au - r).norm()
-            );
+            assert!((s.position_au - r).norm() < 1e-10, "{t}: {:e}", (s.position_au - r).norm());
             assert!((s.velocity_au_per_day - v).norm() < 1e-13);
         }
         assert!(traj.stats.steps > 0 && traj.stats.force_evaluations > traj.stats.steps);
@@ -535,10 +514,7 @@ mod tests {
     fn replayed_plan_gives_the_same_answer_without_ephemeris_calls() {
         let model = ForceModel::outer_planets_with_inner_folded();
         let eph = Vsop87::new();
-        let settings = PropagationSettings {
-            reuse_steps: true,
-            ..PropagationSettings::default()
-        };
+        let settings = PropagationSettings { reuse_steps: true, ..PropagationSettings::default() };
         let mut p = Propagator::new(&model, &eph, settings).unwrap();
         let init = tracked();
         let epochs: Vec<f64> = (0..20).map(|k| -2000.0 + 400.0 * k as f64).collect();
@@ -562,16 +538,6 @@ mod tests {
         assert!(p.propagate(&init, &[f64::NAN]).is_err());
         init.tracked_position_au = Vec3::ZERO;
         assert!(p.propagate(&init, &[0.0]).is_err());
-        assert!(
-            Propagator::new(
-                &model,
-                &eph,
-                PropagationSettings {
-                    tolerance: 0.0,
-                    ..Default::default()
-                }
-            )
-            .is_err()
-        );
+        assert!(Propagator::new(&model, &eph, PropagationSettings { tolerance: 0.0, ..Default::default() }).is_err());
     }
 }

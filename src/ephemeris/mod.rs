@@ -150,12 +150,7 @@ pub enum EphemerisError {
         "{ephemeris} covers {body} from {} to {} (TDB), but {} was asked for",
         tdb_label(covered_tdb_days.0), tdb_label(covered_tdb_days.1), tdb_label(*t_tdb_days)
     )]
-    OutOfRange {
-        ephemeris: String,
-        body: String,
-        t_tdb_days: f64,
-        covered_tdb_days: (f64, f64),
-    },
+    OutOfRange { ephemeris: String, body: String, t_tdb_days: f64, covered_tdb_days: (f64, f64) },
     #[error("{ephemeris} has no data for {body}")]
     NotProvided { ephemeris: String, body: String },
     #[error("{path}: {reason}")]
@@ -185,28 +180,17 @@ pub trait Ephemeris: Send + Sync {
     fn covered_tdb_days(&self, body: Body) -> Option<(f64, f64)>;
 
     /// The heliocentric ICRF state of `body` at `t_tdb_days`.
-    fn heliocentric_state(
-        &self,
-        body: Body,
-        t_tdb_days: f64,
-    ) -> Result<HeliocentricState, EphemerisError>;
+    fn heliocentric_state(&self, body: Body, t_tdb_days: f64) -> Result<HeliocentricState, EphemerisError>;
 
     /// The heliocentric ICRF position of `body` at `t_tdb_days`, au.
-    fn heliocentric_position_au(
-        &self,
-        body: Body,
-        t_tdb_days: f64,
-    ) -> Result<Vec3, EphemerisError> {
+    fn heliocentric_position_au(&self, body: Body, t_tdb_days: f64) -> Result<Vec3, EphemerisError> {
         Ok(self.heliocentric_state(body, t_tdb_days)?.position_au)
     }
 
     /// Checks that `t_tdb_days` lies inside the coverage of `body`.
     fn check_covered(&self, body: Body, t_tdb_days: f64) -> Result<(), EphemerisError> {
         match self.covered_tdb_days(body) {
-            None => Err(EphemerisError::NotProvided {
-                ephemeris: self.description(),
-                body: body.to_string(),
-            }),
+            None => Err(EphemerisError::NotProvided { ephemeris: self.description(), body: body.to_string() }),
             Some((a, b)) if t_tdb_days >= a && t_tdb_days <= b => Ok(()),
             Some(span) => Err(EphemerisError::OutOfRange {
                 ephemeris: self.description(),
@@ -240,9 +224,6 @@ mod tests {
             covered_tdb_days: (0.0, 365.25),
         };
         let text = e.to_string();
-        assert!(
-            text.contains("jupiter") && text.contains("2000-01-01") && text.contains("2054-"),
-            "{text}"
-        );
+        assert!(text.contains("jupiter") && text.contains("2000-01-01") && text.contains("2054-"), "{text}");
     }
 }

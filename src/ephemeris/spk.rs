@@ -68,19 +68,14 @@ impl SpkFile {
     /// Reads an SPK file.
     pub fn open(path: &Path) -> Result<SpkFile, EphemerisError> {
         let label = path.display().to_string();
-        let bytes = std::fs::read(path).map_err(|e| EphemerisError::File {
-            path: label.clone(),
-            reason: format!("cannot read: {e}"),
-        })?;
+        let bytes = std::fs::read(path)
+            .map_err(|e| EphemerisError::File { path: label.clone(), reason: format!("cannot read: {e}") })?;
         SpkFile::from_bytes(&bytes, &label)
     }
 
     /// Parses SPK bytes; `label` names the source in error messages.
     pub fn from_bytes(bytes: &[u8], label: &str) -> Result<SpkFile, EphemerisError> {
-        let fail = |reason: String| EphemerisError::File {
-            path: label.to_string(),
-            reason,
-        };
+        let fail = |reason: String| EphemerisError::File { path: label.to_string(), reason };
         if bytes.len() < RECORD_BYTES {
             return Err(fail("too short to be an SPK file (no file record)".into()));
         }
@@ -100,9 +95,7 @@ impl SpkFile {
         let nd = reader.int_at_byte(8);
         let ni = reader.int_at_byte(12);
         if nd != 2 || ni != 6 {
-            return Err(fail(format!(
-                "summary sizes ND={nd}, NI={ni}; an SPK file has ND=2, NI=6"
-            )));
+            return Err(fail(format!("summary sizes ND={nd}, NI={ni}; an SPK file has ND=2, NI=6")));
         }
         let summary_doubles = 2 + 3; // ND + (NI + 1) / 2
         let mut record = reader.int_at_byte(76);
@@ -114,25 +107,17 @@ impl SpkFile {
                 return Err(fail("the chain of summary records loops".into()));
             }
             let base_word = (record as usize - 1) * (RECORD_BYTES / 8);
-            let control = reader.doubles(base_word, 3).ok_or_else(|| {
-                fail(format!(
-                    "summary record {record} lies past the end of the file"
-                ))
-            })?;
+            let control = reader
+                .doubles(base_word, 3)
+                .ok_or_else(|| fail(format!("summary record {record} lies past the end of the file")))?;
             let (next, count) = (control[0], control[2]);
             if !(0.0..=125.0).contains(&count) || count.fract() != 0.0 {
-                return Err(fail(format!(
-                    "summary record {record} claims {count} summaries"
-                )));
+                return Err(fail(format!("summary record {record} claims {count} summaries")));
             }
             for k in 0..count as usize {
                 let s = reader
                     .doubles(base_word + 3 + k * summary_doubles, summary_doubles)
-                    .ok_or_else(|| {
-                        fail(format!(
-                            "summary {k} of record {record} lies past the end of the file"
-                        ))
-                    })?;
+                    .ok_or_else(|| fail(format!("summary {k} of record {record} lies past the end of the file")))?;
                 let ints = reader.ints_in_doubles(&s[2..5]);
                 let info = SpkSegmentInfo {
                     target: ints[0],
@@ -156,10 +141,7 @@ impl SpkFile {
         if segments.is_empty() {
             return Err(fail("no segment of type 2 or 3".into()));
         }
-        Ok(SpkFile {
-            label: label.to_string(),
-            segments,
-        })
+        Ok(SpkFile { label: label.to_string(), segments })
     }
 
     /// Descriptions of the segments Latens can use, in file order.
@@ -170,12 +152,7 @@ impl SpkFile {
     /// Position (km) and velocity (km/s) of `target` relative to `center` at
     /// `tdb_s` TDB seconds past J2000, chaining segments through the
     /// solar-system barycentre (e.g. Earth = EMB + Earth-from-EMB).
-    pub fn state_km(
-        &self,
-        target: i32,
-        center: i32,
-        tdb_s: f64,
-    ) -> Result<(Vec3, Vec3), EphemerisError> {
+    pub fn state_km(&self, target: i32, center: i32, tdb_s: f64) -> Result<(Vec3, Vec3), EphemerisError> {
         let (pt, vt) = self.barycentric_km(target, tdb_s)?;
         let (pc, vc) = self.barycentric_km(center, tdb_s)?;
         Ok((pt - pc, vt - vc))
@@ -221,10 +198,9 @@ impl SpkFile {
             span = Some((a.min(seg.info.start_tdb_s), b.max(seg.info.end_tdb_s)));
         }
         match span {
-            None => Err(EphemerisError::NotProvided {
-                ephemeris: self.description(),
-                body: format!("NAIF body {body}"),
-            }),
+            None => {
+                Err(EphemerisError::NotProvided { ephemeris: self.description(), body: format!("NAIF body {body}") })
+            }
             Some((a, b)) => Err(EphemerisError::OutOfRange {
                 ephemeris: self.description(),
                 body: format!("NAIF body {body}"),
@@ -243,20 +219,10 @@ impl SpkFile {
             if b == SSB {
                 return Some(span);
             }
-            let segs: Vec<&Segment> = self
-                .segments
-                .iter()
-                .filter(|s| s.info.target == b)
-                .collect();
+            let segs: Vec<&Segment> = self.segments.iter().filter(|s| s.info.target == b).collect();
             let last = segs.last()?;
-            let start = segs
-                .iter()
-                .map(|s| s.info.start_tdb_s)
-                .fold(f64::INFINITY, f64::min);
-            let end = segs
-                .iter()
-                .map(|s| s.info.end_tdb_s)
-                .fold(f64::NEG_INFINITY, f64::max);
+            let start = segs.iter().map(|s| s.info.start_tdb_s).fold(f64::INFINITY, f64::min);
+            let end = segs.iter().map(|s| s.info.end_tdb_s).fold(f64::NEG_INFINITY, f64::max);
             span = (span.0.max(start), span.1.min(end));
             b = last.info.center;
         }
@@ -276,11 +242,7 @@ impl Ephemeris for SpkFile {
         (lo <= hi).then_some((lo / DAY_S, hi / DAY_S))
     }
 
-    fn heliocentric_state(
-        &self,
-        body: Body,
-        t_tdb_days: f64,
-    ) -> Result<HeliocentricState, EphemerisError> {
+    fn heliocentric_state(&self, body: Body, t_tdb_days: f64) -> Result<HeliocentricState, EphemerisError> {
         if !t_tdb_days.is_finite() {
             return Err(EphemerisError::OutOfRange {
                 ephemeris: self.description(),
@@ -291,35 +253,23 @@ impl Ephemeris for SpkFile {
         }
         let tdb_s = t_tdb_days * DAY_S;
         let named = |e: EphemerisError| match e {
-            EphemerisError::OutOfRange {
-                ephemeris,
-                t_tdb_days,
-                covered_tdb_days,
-                ..
-            } => EphemerisError::OutOfRange {
+            EphemerisError::OutOfRange { ephemeris, t_tdb_days, covered_tdb_days, .. } => EphemerisError::OutOfRange {
                 ephemeris,
                 body: body.to_string(),
                 t_tdb_days,
                 covered_tdb_days: self.covered_tdb_days(body).unwrap_or(covered_tdb_days),
             },
-            EphemerisError::NotProvided { ephemeris, .. } => EphemerisError::NotProvided {
-                ephemeris,
-                body: body.to_string(),
-            },
+            EphemerisError::NotProvided { ephemeris, .. } => {
+                EphemerisError::NotProvided { ephemeris, body: body.to_string() }
+            }
             other => other,
         };
         let (p, v) = if body == Body::Sun {
             (Vec3::ZERO, Vec3::ZERO)
         } else {
-            self.state_km(body.naif_id(), Body::Sun.naif_id(), tdb_s)
-                .map_err(named)?
+            self.state_km(body.naif_id(), Body::Sun.naif_id(), tdb_s).map_err(named)?
         };
-        Ok(HeliocentricState {
-            body,
-            t_tdb_days,
-            position_au: p / AU_KM,
-            velocity_au_per_day: v * (DAY_S / AU_KM),
-        })
+        Ok(HeliocentricState { body, t_tdb_days, position_au: p / AU_KM, velocity_au_per_day: v * (DAY_S / AU_KM) })
     }
 }
 
@@ -327,11 +277,7 @@ impl Segment {
     /// Position (km) and velocity (km/s) from this segment at `tdb_s`.
     fn state_km(&self, tdb_s: f64) -> (Vec3, Vec3) {
         let raw = ((tdb_s - self.init_s) / self.interval_s).floor();
-        let index = if raw < 0.0 {
-            0
-        } else {
-            (raw as usize).min(self.n_records - 1)
-        };
+        let index = if raw < 0.0 { 0 } else { (raw as usize).min(self.n_records - 1) };
         let rec = &self.records[index * self.record_len..(index + 1) * self.record_len];
         let (mid, radius) = (rec[0], rec[1]);
         let s = (tdb_s - mid) / radius;
@@ -374,25 +320,13 @@ fn chebyshev_with_derivative(c: &[f64], s: f64) -> (f64, f64) {
     (value, deriv)
 }
 
-fn read_segment(
-    reader: &Words,
-    info: SpkSegmentInfo,
-    first: i32,
-    last: i32,
-) -> Result<Segment, String> {
-    let what = format!(
-        "segment {} -> {} (type {})",
-        info.center, info.target, info.data_type
-    );
+fn read_segment(reader: &Words, info: SpkSegmentInfo, first: i32, last: i32) -> Result<Segment, String> {
+    let what = format!("segment {} -> {} (type {})", info.center, info.target, info.data_type);
     if first < 1 || last < first + 3 {
-        return Err(format!(
-            "{what}: word addresses {first}..{last} are not a valid range"
-        ));
+        return Err(format!("{what}: word addresses {first}..{last} are not a valid range"));
     }
     let (first, last) = (first as usize, last as usize);
-    let tail = reader
-        .doubles(last - 4, 4)
-        .ok_or_else(|| format!("{what}: its data lie past the end of the file"))?;
+    let tail = reader.doubles(last - 4, 4).ok_or_else(|| format!("{what}: its data lie past the end of the file"))?;
     let (init_s, interval_s, record_len, n_records) = (tail[0], tail[1], tail[2], tail[3]);
     let components = if info.data_type == 3 { 6.0 } else { 3.0 };
     let bad = interval_s.is_nan()
@@ -409,24 +343,14 @@ fn read_segment(
         ));
     }
     let (record_len, n_records) = (record_len as usize, n_records as usize);
-    let total = record_len
-        .checked_mul(n_records)
-        .ok_or_else(|| format!("{what}: size overflows"))?;
+    let total = record_len.checked_mul(n_records).ok_or_else(|| format!("{what}: size overflows"))?;
     if first - 1 + total + 4 > last {
-        return Err(format!(
-            "{what}: {n_records} records of {record_len} words do not fit in words {first}..{last}"
-        ));
+        return Err(format!("{what}: {n_records} records of {record_len} words do not fit in words {first}..{last}"));
     }
-    let records = reader
-        .doubles(first - 1, total)
-        .ok_or_else(|| format!("{what}: its records lie past the end of the file"))?;
-    if records
-        .chunks(record_len)
-        .any(|r| r[1] <= 0.0 || !r.iter().all(|x| x.is_finite()))
-    {
-        return Err(format!(
-            "{what}: a record has a non-positive radius or a non-finite coefficient"
-        ));
+    let records =
+        reader.doubles(first - 1, total).ok_or_else(|| format!("{what}: its records lie past the end of the file"))?;
+    if records.chunks(record_len).any(|r| r[1] <= 0.0 || !r.iter().all(|x| x.is_finite())) {
+        return Err(format!("{what}: a record has a non-positive radius or a non-finite coefficient"));
     }
     Ok(Segment {
         coef_per_component: (record_len - 2) / components as usize,
@@ -448,17 +372,8 @@ struct Words<'a> {
 
 impl Words<'_> {
     fn int_at_byte(&self, at: usize) -> i32 {
-        let b = [
-            self.bytes[at],
-            self.bytes[at + 1],
-            self.bytes[at + 2],
-            self.bytes[at + 3],
-        ];
-        if self.little {
-            i32::from_le_bytes(b)
-        } else {
-            i32::from_be_bytes(b)
-        }
+        let b = [self.bytes[at], self.bytes[at + 1], self.bytes[at + 2], self.bytes[at + 3]];
+        if self.little { i32::from_le_bytes(b) } else { i32::from_be_bytes(b) }
     }
 
     fn doubles(&self, first_word: usize, count: usize) -> Option<Vec<f64>> {
@@ -470,11 +385,7 @@ impl Words<'_> {
                 .chunks_exact(8)
                 .map(|c| {
                     let a: [u8; 8] = c.try_into().unwrap_or([0; 8]);
-                    if self.little {
-                        f64::from_le_bytes(a)
-                    } else {
-                        f64::from_be_bytes(a)
-                    }
+                    if self.little { f64::from_le_bytes(a) } else { f64::from_be_bytes(a) }
                 })
                 .collect(),
         )
@@ -484,18 +395,10 @@ impl Words<'_> {
     fn ints_in_doubles(&self, d: &[f64]) -> Vec<i32> {
         let mut out = Vec::with_capacity(2 * d.len());
         for x in d {
-            let b = if self.little {
-                x.to_le_bytes()
-            } else {
-                x.to_be_bytes()
-            };
+            let b = if self.little { x.to_le_bytes() } else { x.to_be_bytes() };
             for half in [&b[0..4], &b[4..8]] {
                 let a: [u8; 4] = half.try_into().unwrap_or([0; 4]);
-                out.push(if self.little {
-                    i32::from_le_bytes(a)
-                } else {
-                    i32::from_be_bytes(a)
-                });
+                out.push(if self.little { i32::from_le_bytes(a) } else { i32::from_be_bytes(a) });
             }
         }
         out

@@ -67,9 +67,19 @@ impl Tabulated {
         bodies: &[Body],
         span_tdb_days: (f64, f64),
     ) -> Result<Tabulated, EphemerisError> {
+        let with_spacing: Vec<(Body, f64)> = bodies.iter().map(|&b| (b, node_spacing_days(b))).collect();
+        Tabulated::with_spacings(source, &with_spacing, span_tdb_days)
+    }
+
+    /// Like [`Tabulated::new`], with the node spacing (days) chosen per body.
+    pub fn with_spacings(
+        source: &dyn Ephemeris,
+        bodies: &[(Body, f64)],
+        span_tdb_days: (f64, f64),
+    ) -> Result<Tabulated, EphemerisError> {
         let (a, b) = span_tdb_days;
         let mut tables = Vec::with_capacity(bodies.len());
-        for &body in bodies {
+        for &(body, spacing) in bodies {
             if body == Body::Sun {
                 tables.push(BodyTable {
                     body,
@@ -82,7 +92,7 @@ impl Tabulated {
             source.check_covered(body, a)?;
             source.check_covered(body, b)?;
             let (lo, hi) = source.covered_tdb_days(body).unwrap_or((a, b));
-            let mut h = node_spacing_days(body);
+            let mut h = spacing;
             let pad = (NODES / 2) as f64 * h;
             let mut start = (a - pad).max(lo);
             let mut end = (b + pad).min(hi);
@@ -95,27 +105,39 @@ impl Tabulated {
             }
             let count = (((end - start) / h).ceil() as usize + 1).max(NODES);
             // Keep the last node inside the coverage by spacing the grid evenly.
-            let h = if count > 1 {
-                (end - start) / (count - 1) as f64
-            } else {
-                h
-            };
+            let h = if count > 1 { (end - start) / (count - 1) as f64 } else { h };
             let positions: Result<Vec<Vec3>, EphemerisError> = (0..count)
                 .into_par_iter()
                 .map(|i| source.heliocentric_position_au(body, start + i as f64 * h))
                 .collect();
-            tables.push(BodyTable {
-                body,
-                first_node_tdb_days: start,
-                spacing_days: h,
-                positions_au: positions?,
-            });
+            tables.push(BodyTable { body, first_node_tdb_days: start, spacing_days: h, positions_au: positions? });
         }
-        Ok(Tabulated {
-            description: format!("{} tabulated", source.description()),
-            span_tdb_days,
-            tables,
-        })
+        Ok(Tabulated { description: format!("{} tabulated", source.description()), span_tdb_days, tables })
+    }
+
+    /// An ephemeris from positions sampled elsewhere (for example by another
+    /// integrator): for each body, the first sample's TDB time, the spacing in
+    /// days and the heliocentric ICRF positions (au). At least eight samples per
+    /// body; the covered span is the common span of all bodies.
+    pub fn from_samples(
+        description: &str,
+        samples: Vec<(Body, f64, f64, Vec<Vec3>)>,
+    ) -> Result<Tabulated, EphemerisError> {
+        let fail = |reason: String| EphemerisError::File { path: description.to_string(), reason };
+        let mut span = (f64::NEG_INFINITY, f64::INFINITY);
+        let mut tables = Vec::new();
+        for (body, first, spacing, positions) in samples {
+            if positions.len() < NODES || !(spacing.is_finite() && spacing > 0.0) || !first.is_finite() {
+                return Err(fail(format!("{body}: need at least {NODES} samples at a positive spacing")));
+            }
+            let last = first + spacing * (positions.len() - 1) as f64;
+            span = (span.0.max(first), span.1.min(last));
+            tables.push(BodyTable { body, first_node_tdb_days: first, spacing_days: spacing, positions_au: positions });
+        }
+        if tables.is_empty() || span.0 > span.1 {
+            return Err(fail("no common span".into()));
+        }
+        Ok(Tabulated { description: description.to_string(), span_tdb_days: span, tables })
     }
 
     fn table(&self, body: Body) -> Option<&BodyTable> {
@@ -131,8 +153,7 @@ impl BodyTable {
         }
         let n = self.positions_au.len();
         let x = (t_tdb_days - self.first_node_tdb_days) / self.spacing_days;
-        let i =
-            (x.floor() as isize - (NODES as isize / 2 - 1)).clamp(0, (n - NODES) as isize) as usize;
+        let i = (x.floor() as isize - (NODES as isize / 2 - 1)).clamp(0, (n - NODES) as isize) as usize;
         let u = x - i as f64; // position in units of the spacing, relative to node i
         // Lagrange basis on nodes 0..NODES and its derivative.
         let mut pos = Vec3::ZERO;
@@ -165,32 +186,16 @@ impl Ephemeris for Tabulated {
         self.table(body).map(|_| self.span_tdb_days)
     }
 
-    fn heliocentric_state(
-        &self,
-        body: Body,
-        t_tdb_days: f64,
-    ) -> Result<HeliocentricState, EphemerisError> {
+    fn heliocentric_state(&self, body: Body, t_tdb_days: f64) -> Result<HeliocentricState, EphemerisError> {
         self.check_covered(body, t_tdb_days)?;
         let table = self
             .table(body)
-            .ok_or_else(|| EphemerisError::NotProvided {
-                ephemeris: self.description(),
-                body: body.to_string(),
-            })?;
+            .ok_or_else(|| EphemerisError::NotProvided { ephemeris: self.description(), body: body.to_string() })?;
         let (position_au, velocity_au_per_day) = table.interpolate(t_tdb_days);
-        Ok(HeliocentricState {
-            body,
-            t_tdb_days,
-            position_au,
-            velocity_au_per_day,
-        })
+        Ok(HeliocentricState { body, t_tdb_days, position_au, velocity_au_per_day })
     }
 
-    fn heliocentric_position_au(
-        &self,
-        body: Body,
-        t_tdb_days: f64,
-    ) -> Result<Vec3, EphemerisError> {
+    fn heliocentric_position_au(&self, body: Body, t_tdb_days: f64) -> Result<Vec3, EphemerisError> {
         Ok(self.heliocentric_state(body, t_tdb_days)?.position_au)
     }
 }
@@ -203,13 +208,7 @@ mod tests {
     #[test]
     fn table_reproduces_vsop87_to_fifteen_metres() {
         let src = Vsop87::new();
-        let bodies = [
-            Body::Mercury,
-            Body::Earth,
-            Body::Mars,
-            Body::Jupiter,
-            Body::Neptune,
-        ];
+        let bodies = [Body::Mercury, Body::Earth, Body::Mars, Body::Jupiter, Body::Neptune];
         let table = Tabulated::new(&src, &bodies, (-400.0, 400.0)).unwrap();
         for &b in &bodies {
             for k in 0..37 {

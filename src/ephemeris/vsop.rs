@@ -83,11 +83,7 @@ impl Ephemeris for Vsop87 {
         Some((-half, half))
     }
 
-    fn heliocentric_state(
-        &self,
-        body: Body,
-        t_tdb_days: f64,
-    ) -> Result<HeliocentricState, EphemerisError> {
+    fn heliocentric_state(&self, body: Body, t_tdb_days: f64) -> Result<HeliocentricState, EphemerisError> {
         self.check_covered(body, t_tdb_days)?;
         let at = |dt: f64| Self::ecliptic_position_au(body, t_tdb_days + dt).unwrap_or(Vec3::ZERO);
         let h = DERIVATIVE_STEP_DAYS;
@@ -101,14 +97,9 @@ impl Ephemeris for Vsop87 {
         })
     }
 
-    fn heliocentric_position_au(
-        &self,
-        body: Body,
-        t_tdb_days: f64,
-    ) -> Result<Vec3, EphemerisError> {
+    fn heliocentric_position_au(&self, body: Body, t_tdb_days: f64) -> Result<Vec3, EphemerisError> {
         self.check_covered(body, t_tdb_days)?;
-        Ok(ICRF_FROM_VSOP87
-            .apply(Self::ecliptic_position_au(body, t_tdb_days).unwrap_or(Vec3::ZERO)))
+        Ok(ICRF_FROM_VSOP87.apply(Self::ecliptic_position_au(body, t_tdb_days).unwrap_or(Vec3::ZERO)))
     }
 }
 
@@ -119,35 +110,21 @@ mod tests {
     #[test]
     fn moon_and_pluto_are_not_provided() {
         let e = Vsop87::new();
-        assert!(matches!(
-            e.heliocentric_state(Body::Moon, 0.0),
-            Err(EphemerisError::NotProvided { .. })
-        ));
-        assert!(matches!(
-            e.heliocentric_state(Body::Pluto, 0.0),
-            Err(EphemerisError::NotProvided { .. })
-        ));
+        assert!(matches!(e.heliocentric_state(Body::Moon, 0.0), Err(EphemerisError::NotProvided { .. })));
+        assert!(matches!(e.heliocentric_state(Body::Pluto, 0.0), Err(EphemerisError::NotProvided { .. })));
     }
 
     #[test]
     fn outside_two_millennia_is_an_error() {
         let e = Vsop87::new();
-        assert!(matches!(
-            e.heliocentric_state(Body::Earth, 1.0e6),
-            Err(EphemerisError::OutOfRange { .. })
-        ));
+        assert!(matches!(e.heliocentric_state(Body::Earth, 1.0e6), Err(EphemerisError::OutOfRange { .. })));
     }
 
     #[test]
     fn earth_speed_is_about_one_au_per_year() {
-        let s = Vsop87::new()
-            .heliocentric_state(Body::Earth, 1234.5)
-            .unwrap();
+        let s = Vsop87::new().heliocentric_state(Body::Earth, 1234.5).unwrap();
         let v = s.velocity_au_per_day.norm();
         // 2 pi au per 365.25 days, within the eccentricity (common practice).
-        assert!(
-            (v / (std::f64::consts::TAU / 365.25) - 1.0).abs() < 0.02,
-            "{v}"
-        );
+        assert!((v / (std::f64::consts::TAU / 365.25) - 1.0).abs() < 0.02, "{v}");
     }
 }

@@ -17,8 +17,7 @@
 mod sky;
 
 pub use sky::{
-    EclipticLonLat, RaDec, angular_separation, angular_separation_radec, radec_from_vector,
-    vector_from_radec,
+    EclipticLonLat, RaDec, angular_separation, angular_separation_radec, radec_from_vector, vector_from_radec,
 };
 
 use std::sync::LazyLock;
@@ -47,11 +46,7 @@ impl Matrix3 {
 
     pub fn transpose(&self) -> Matrix3 {
         let m = &self.0;
-        Matrix3([
-            [m[0][0], m[1][0], m[2][0]],
-            [m[0][1], m[1][1], m[2][1]],
-            [m[0][2], m[1][2], m[2][2]],
-        ])
+        Matrix3([[m[0][0], m[1][0], m[2][0]], [m[0][1], m[1][1], m[2][1]], [m[0][2], m[1][2], m[2][2]]])
     }
 
     /// The product `self * other` (apply `other` first).
@@ -84,12 +79,8 @@ const FW_PSI_BAR_J2000_ARCSEC: f64 = -0.041_775;
 
 static ECLIPTIC_FROM_ICRF: LazyLock<Matrix3> = LazyLock::new(|| {
     Matrix3::rotation_about_z(-FW_PSI_BAR_J2000_ARCSEC * RAD_PER_ARCSEC)
-        .then_after(&Matrix3::rotation_about_x(
-            FW_PHI_BAR_J2000_ARCSEC * RAD_PER_ARCSEC,
-        ))
-        .then_after(&Matrix3::rotation_about_z(
-            FW_GAMMA_BAR_J2000_ARCSEC * RAD_PER_ARCSEC,
-        ))
+        .then_after(&Matrix3::rotation_about_x(FW_PHI_BAR_J2000_ARCSEC * RAD_PER_ARCSEC))
+        .then_after(&Matrix3::rotation_about_z(FW_GAMMA_BAR_J2000_ARCSEC * RAD_PER_ARCSEC))
 });
 static ICRF_FROM_ECLIPTIC: LazyLock<Matrix3> = LazyLock::new(|| ECLIPTIC_FROM_ICRF.transpose());
 
@@ -111,18 +102,12 @@ pub fn icrf_from_ecliptic(v_ecliptic: Vec3) -> Vec3 {
 /// Ecliptic longitude and latitude (IAU 2006 ecliptic of J2000) of an ICRF direction.
 pub fn ecliptic_lonlat_from_icrf(v_icrf: Vec3) -> EclipticLonLat {
     let d = radec_from_vector(ecliptic_from_icrf(v_icrf));
-    EclipticLonLat {
-        lon_rad: d.ra_rad,
-        lat_rad: d.dec_rad,
-    }
+    EclipticLonLat { lon_rad: d.ra_rad, lat_rad: d.dec_rad }
 }
 
 /// The ICRF unit vector of an ecliptic longitude and latitude (IAU 2006, J2000).
 pub fn icrf_from_ecliptic_lonlat(lonlat: EclipticLonLat) -> Vec3 {
-    icrf_from_ecliptic(vector_from_radec(RaDec {
-        ra_rad: lonlat.lon_rad,
-        dec_rad: lonlat.lat_rad,
-    }))
+    icrf_from_ecliptic(vector_from_radec(RaDec { ra_rad: lonlat.lon_rad, dec_rad: lonlat.lat_rad }))
 }
 
 #[cfg(test)]
@@ -146,10 +131,7 @@ mod tests {
         let pole = icrf_from_ecliptic(Vec3::new(0.0, 0.0, 1.0));
         let tilt = pole.z.acos() / RAD_PER_ARCSEC;
         // IAU 2006 obliquity 84381.406" plus at most a few tens of mas of frame bias.
-        assert!(
-            (tilt - crate::units::OBLIQUITY_J2000_ARCSEC).abs() < 0.05,
-            "{tilt}"
-        );
+        assert!((tilt - crate::units::OBLIQUITY_J2000_ARCSEC).abs() < 0.05, "{tilt}");
     }
 
     #[test]

@@ -22,10 +22,7 @@ pub struct EclipticLonLat {
 /// `atan2` for both angles keeps full precision near the poles.
 pub fn radec_from_vector(v: Vec3) -> RaDec {
     let rho = v.x.hypot(v.y);
-    RaDec {
-        ra_rad: wrap_two_pi(v.y.atan2(v.x)),
-        dec_rad: v.z.atan2(rho),
-    }
+    RaDec { ra_rad: wrap_two_pi(v.y.atan2(v.x)), dec_rad: v.z.atan2(rho) }
 }
 
 /// The unit vector of a spherical direction.
@@ -62,24 +59,15 @@ mod tests {
             (3.0, std::f64::consts::FRAC_PI_2 - 1e-7),
             (1.0, 1e-7 - std::f64::consts::FRAC_PI_2),
         ] {
-            let d = radec_from_vector(vector_from_radec(RaDec {
-                ra_rad: ra,
-                dec_rad: dec,
-            }));
+            let d = radec_from_vector(vector_from_radec(RaDec { ra_rad: ra, dec_rad: dec }));
             assert!((d.ra_rad - ra).abs() < 1e-9 && (d.dec_rad - dec).abs() < 1e-15);
         }
     }
 
     #[test]
     fn tiny_separation_is_not_lost() {
-        let a = RaDec {
-            ra_rad: 1.0,
-            dec_rad: 0.5,
-        };
-        let b = RaDec {
-            ra_rad: 1.0,
-            dec_rad: 0.5 + RAD_PER_MAS,
-        };
+        let a = RaDec { ra_rad: 1.0, dec_rad: 0.5 };
+        let b = RaDec { ra_rad: 1.0, dec_rad: 0.5 + RAD_PER_MAS };
         let s = angular_separation_radec(a, b);
         assert!((s / RAD_PER_MAS - 1.0).abs() < 1e-6, "{}", s / RAD_PER_MAS);
     }

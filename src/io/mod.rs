@@ -9,29 +9,17 @@ use std::path::{Path, PathBuf};
 #[derive(Debug, thiserror::Error)]
 pub enum IoError {
     #[error("{path}: {source}")]
-    Os {
-        path: String,
-        source: std::io::Error,
-    },
+    Os { path: String, source: std::io::Error },
 }
 
 /// Writes `contents` to `path` atomically: a temporary file in the same
 /// directory is written, flushed and renamed over the target, so a reader (or an
 /// interrupted run) sees either the old file or the whole new one.
 pub fn write_atomically(path: &Path, contents: &[u8]) -> Result<(), IoError> {
-    let os = |source| IoError::Os {
-        path: path.display().to_string(),
-        source,
-    };
-    let dir = path
-        .parent()
-        .filter(|p| !p.as_os_str().is_empty())
-        .unwrap_or(Path::new("."));
+    let os = |source| IoError::Os { path: path.display().to_string(), source };
+    let dir = path.parent().filter(|p| !p.as_os_str().is_empty()).unwrap_or(Path::new("."));
     fs::create_dir_all(dir).map_err(os)?;
-    let name = path
-        .file_name()
-        .map(|n| n.to_string_lossy().into_owned())
-        .unwrap_or_else(|| "out".into());
+    let name = path.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_else(|| "out".into());
     let tmp: PathBuf = dir.join(format!(".{name}.{}.tmp", std::process::id()));
     let result = (|| {
         let mut f = fs::File::create(&tmp)?;
@@ -58,13 +46,7 @@ mod tests {
         assert_eq!(fs::read(&path).unwrap(), b"second");
         let leftovers = fs::read_dir(&dir)
             .unwrap()
-            .filter(|e| {
-                e.as_ref()
-                    .unwrap()
-                    .file_name()
-                    .to_string_lossy()
-                    .ends_with(".tmp")
-            })
+            .filter(|e| e.as_ref().unwrap().file_name().to_string_lossy().ends_with(".tmp"))
             .count();
         assert_eq!(leftovers, 0);
         fs::remove_dir_all(&dir).unwrap();

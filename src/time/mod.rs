@@ -69,9 +69,7 @@ pub fn epoch_from_utc_calendar(
         return Err(format!("day {day} does not exist in {year:04}-{month:02}"));
     }
     if hour > 23 || minute > 59 || second > 60 || nanos >= 1_000_000_000 {
-        return Err(format!(
-            "time of day {hour:02}:{minute:02}:{second:02} is out of range"
-        ));
+        return Err(format!("time of day {hour:02}:{minute:02}:{second:02} is out of range"));
     }
     if second == 60 {
         // A leap second: 23:59:60 exists only if TAI - UTC grows by one at the
@@ -80,40 +78,20 @@ pub fn epoch_from_utc_calendar(
         let (ny, nm, nd) = next_day(year, month, day);
         let after = epoch_from_utc_calendar(ny, nm, nd, 0, 0, 0, 0)?;
         if hour != 23 || minute != 59 || (after - before) != 2 * Unit::Second {
-            return Err(format!(
-                "{year:04}-{month:02}-{day:02}T{hour:02}:{minute:02}:60 is not a leap second"
-            ));
+            return Err(format!("{year:04}-{month:02}-{day:02}T{hour:02}:{minute:02}:60 is not a leap second"));
         }
         return Ok(before + Unit::Second + (nanos as i64) * Unit::Nanosecond);
     }
-    let as_tai = Epoch::maybe_from_gregorian(
-        year,
-        month,
-        day,
-        hour,
-        minute,
-        second,
-        nanos,
-        TimeScale::TAI,
-    )
-    .map_err(|e| e.to_string())?;
+    let as_tai = Epoch::maybe_from_gregorian(year, month, day, hour, minute, second, nanos, TimeScale::TAI)
+        .map_err(|e| e.to_string())?;
     if as_tai + TAI_MINUS_UTC_BEFORE_1972_S * Unit::Second < utc_start_in_tai() {
         return Ok(as_tai + TAI_MINUS_UTC_BEFORE_1972_S * Unit::Second);
     }
     // Keep the epoch on the TAI scale: hifitime subtracts epochs in the scale
     // of the left operand, and UTC-scale arithmetic would skip leap seconds.
-    Epoch::maybe_from_gregorian(
-        year,
-        month,
-        day,
-        hour,
-        minute,
-        second,
-        nanos,
-        TimeScale::UTC,
-    )
-    .map(|e| e.to_time_scale(TimeScale::TAI))
-    .map_err(|e| e.to_string())
+    Epoch::maybe_from_gregorian(year, month, day, hour, minute, second, nanos, TimeScale::UTC)
+        .map(|e| e.to_time_scale(TimeScale::TAI))
+        .map_err(|e| e.to_string())
 }
 
 /// TDB - TT in seconds at `tt_seconds` TT seconds after J2000.0, at the
@@ -194,14 +172,9 @@ pub fn utc_iso_from_epoch(epoch: Epoch) -> String {
     // Round to the millisecond first so that 59.9996 s does not print as 60.000.
     // Rounding happens on the TAI scale, which differs from UTC by whole
     // seconds, so the UTC milliseconds are rounded correctly.
-    let rounded = epoch
-        .to_time_scale(TimeScale::TAI)
-        .round(Duration::from_milliseconds(1.0));
+    let rounded = epoch.to_time_scale(TimeScale::TAI).round(Duration::from_milliseconds(1.0));
     let (y, mo, d, h, mi, s, ns) = utc_calendar_from_epoch(rounded);
-    format!(
-        "{y:04}-{mo:02}-{d:02}T{h:02}:{mi:02}:{s:02}.{:03}Z",
-        ns / 1_000_000
-    )
+    format!("{y:04}-{mo:02}-{d:02}T{h:02}:{mi:02}:{s:02}.{:03}Z", ns / 1_000_000)
 }
 
 pub(crate) fn is_leap_year(year: i32) -> bool {

@@ -18,20 +18,11 @@ use super::{TimeError, epoch_from_tdb_j2000, epoch_from_tt_j2000, epoch_from_utc
 /// assert!(latens::time::tdb_days_from_j2000(e).abs() < 1e-8);
 /// ```
 pub fn parse_utc_iso(text: &str) -> Result<Epoch, TimeError> {
-    let err = |reason: &str| TimeError::Parse {
-        text: text.to_string(),
-        reason: reason.to_string(),
-    };
+    let err = |reason: &str| TimeError::Parse { text: text.to_string(), reason: reason.to_string() };
     let s = text.trim();
-    let s = s
-        .strip_suffix('Z')
-        .or_else(|| s.strip_suffix('z'))
-        .or_else(|| s.strip_suffix("+00:00"))
-        .unwrap_or(s);
+    let s = s.strip_suffix('Z').or_else(|| s.strip_suffix('z')).or_else(|| s.strip_suffix("+00:00")).unwrap_or(s);
     if s.get(10..).is_some_and(|rest| rest.contains(['+', '-'])) {
-        return Err(err(
-            "only UTC is accepted: write the time with `Z` or without an offset",
-        ));
+        return Err(err("only UTC is accepted: write the time with `Z` or without an offset"));
     }
     let (date, time) = match s.find(['T', 't', ' ']) {
         Some(i) => (&s[..i], Some(&s[i + 1..])),
@@ -66,9 +57,7 @@ pub fn parse_utc_iso(text: &str) -> Result<Epoch, TimeError> {
                     return Err(err("the fraction of a second is not a number"));
                 }
                 // Round to the nanosecond.
-                let f: f64 = format!("0.{frac}")
-                    .parse()
-                    .map_err(|_| err("bad fraction"))?;
+                let f: f64 = format!("0.{frac}").parse().map_err(|_| err("bad fraction"))?;
                 nanos = (f * 1e9).round() as u32;
                 if nanos == 1_000_000_000 {
                     // Carry without building an impossible 60th second.
@@ -79,12 +68,8 @@ pub fn parse_utc_iso(text: &str) -> Result<Epoch, TimeError> {
             }
         }
     }
-    epoch_from_utc_calendar(year, month, day, hour, minute, second, nanos).map_err(|reason| {
-        TimeError::Impossible {
-            text: text.to_string(),
-            reason,
-        }
-    })
+    epoch_from_utc_calendar(year, month, day, hour, minute, second, nanos)
+        .map_err(|reason| TimeError::Impossible { text: text.to_string(), reason })
 }
 
 /// Reads a time as either ISO 8601 UTC (see [`parse_utc_iso`]) or a Julian
@@ -98,10 +83,7 @@ pub fn parse_utc_iso(text: &str) -> Result<Epoch, TimeError> {
 /// In a UTC Julian date every day is taken as 86400 s long; a leap second
 /// itself cannot be named that way (write it in ISO form).
 pub fn parse_epoch(text: &str) -> Result<Epoch, TimeError> {
-    let err = |reason: &str| TimeError::Parse {
-        text: text.to_string(),
-        reason: reason.to_string(),
-    };
+    let err = |reason: &str| TimeError::Parse { text: text.to_string(), reason: reason.to_string() };
     let tokens: Vec<&str> = text.split_whitespace().collect();
     let Some(first) = tokens.first() else {
         return Err(err("the time is empty"));
@@ -113,18 +95,13 @@ pub fn parse_epoch(text: &str) -> Result<Epoch, TimeError> {
     let (number, scale) = match tokens.as_slice() {
         [_, n, s] => (*n, s.to_ascii_uppercase()),
         [_, _] => {
-            return Err(err(
-                "name the time scale after the date, e.g. `JD 2451545.0 TDB`",
-            ));
+            return Err(err("name the time scale after the date, e.g. `JD 2451545.0 TDB`"));
         }
         _ => {
-            return Err(err(
-                "expected `JD <days> <UTC|TT|TDB>` or `MJD <days> <UTC|TT|TDB>`",
-            ));
+            return Err(err("expected `JD <days> <UTC|TT|TDB>` or `MJD <days> <UTC|TT|TDB>`"));
         }
     };
-    let (mut whole, mut frac) =
-        split_decimal(number).ok_or_else(|| err("the day count is not a number"))?;
+    let (mut whole, mut frac) = split_decimal(number).ok_or_else(|| err("the day count is not a number"))?;
     if kind == "MJD" {
         // JD = MJD + 2400000.5
         whole += 2_400_000;
@@ -146,17 +123,11 @@ pub fn parse_epoch(text: &str) -> Result<Epoch, TimeError> {
                 day_number += 1;
             }
             let (y, m, d) = gregorian_from_day_number(day_number);
-            let midnight = epoch_from_utc_calendar(y, m, d, 0, 0, 0, 0).map_err(|reason| {
-                TimeError::Impossible {
-                    text: text.to_string(),
-                    reason,
-                }
-            })?;
+            let midnight = epoch_from_utc_calendar(y, m, d, 0, 0, 0, 0)
+                .map_err(|reason| TimeError::Impossible { text: text.to_string(), reason })?;
             Ok(midnight + day_frac * 86_400.0 * Unit::Second)
         }
-        other => Err(err(&format!(
-            "unknown time scale `{other}`: use UTC, TT or TDB"
-        ))),
+        other => Err(err(&format!("unknown time scale `{other}`: use UTC, TT or TDB"))),
     }
 }
 
@@ -183,16 +154,8 @@ fn split_decimal(text: &str) -> Option<(i64, f64)> {
         None => (false, text.strip_prefix('+').unwrap_or(text)),
     };
     let (int_part, frac_part) = body.split_once('.').unwrap_or((body, ""));
-    let mut whole: i64 = if int_part.is_empty() {
-        0
-    } else {
-        int_part.parse().ok()?
-    };
-    let mut frac: f64 = if frac_part.is_empty() {
-        0.0
-    } else {
-        format!("0.{frac_part}").parse().ok()?
-    };
+    let mut whole: i64 = if int_part.is_empty() { 0 } else { int_part.parse().ok()? };
+    let mut frac: f64 = if frac_part.is_empty() { 0.0 } else { format!("0.{frac_part}").parse().ok()? };
     if neg {
         whole = -whole;
         frac = -frac;

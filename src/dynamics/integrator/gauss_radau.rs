@@ -142,9 +142,7 @@ impl GaussRadau {
     /// Position and velocity at fraction `tau` of the last accepted step
     /// (dense output), into `x` and `v`.
     pub fn interpolate(&self, tau: f64, x: &mut [f64], v: &mut [f64]) {
-        interpolate_into(
-            &self.b, &self.a0, &self.x0, &self.v0, self.dim, self.dt, tau, x, v,
-        );
+        interpolate_into(&self.b, &self.a0, &self.x0, &self.v0, self.dim, self.dt, tau, x, v);
     }
 
     /// Whether a step with this error estimate would be accepted by the
@@ -239,11 +237,7 @@ impl GaussRadau {
                     }
                 }
             }
-            let change = if a_scale > 0.0 {
-                b6_change / a_scale
-            } else {
-                0.0
-            };
+            let change = if a_scale > 0.0 { b6_change / a_scale } else { 0.0 };
             if !change.is_finite() {
                 self.a0 = a0;
                 return Err(PropagationError::NonFinite { t_tdb_days: t });
@@ -262,17 +256,10 @@ impl GaussRadau {
             a_max = a_max.max(self.an[i].abs());
         }
         let error = if a_max > 0.0 { b6_max / a_max } else { 0.0 };
-        let ratio = if error > 0.0 {
-            (self.tolerance / error).powf(1.0 / 7.0)
-        } else {
-            1.0 / SAFETY_FACTOR
-        };
+        let ratio = if error > 0.0 { (self.tolerance / error).powf(1.0 / 7.0) } else { 1.0 / SAFETY_FACTOR };
         if adaptive && ratio < SAFETY_FACTOR {
             self.a0 = a0;
-            return Ok(StepOutcome::Rejected {
-                retry_dt: dt * ratio,
-                error,
-            });
+            return Ok(StepOutcome::Rejected { retry_dt: dt * ratio, error });
         }
         let next_dt = dt * ratio.min(1.0 / SAFETY_FACTOR);
 
@@ -306,15 +293,8 @@ fn interpolate_into(
 ) {
     let dtt = dt * tau;
     for i in 0..n {
-        let (b0, b1, b2, b3, b4, b5, b6) = (
-            b[i],
-            b[n + i],
-            b[2 * n + i],
-            b[3 * n + i],
-            b[4 * n + i],
-            b[5 * n + i],
-            b[6 * n + i],
-        );
+        let (b0, b1, b2, b3, b4, b5, b6) =
+            (b[i], b[n + i], b[2 * n + i], b[3 * n + i], b[4 * n + i], b[5 * n + i], b[6 * n + i]);
         let px = a0[i] / 2.0
             + tau
                 * (b0 / 6.0
@@ -322,11 +302,7 @@ fn interpolate_into(
                         * (b1 / 12.0
                             + tau
                                 * (b2 / 20.0
-                                    + tau
-                                        * (b3 / 30.0
-                                            + tau
-                                                * (b4 / 42.0
-                                                    + tau * (b5 / 56.0 + tau * b6 / 72.0))))));
+                                    + tau * (b3 / 30.0 + tau * (b4 / 42.0 + tau * (b5 / 56.0 + tau * b6 / 72.0))))));
         let pv = a0[i]
             + tau
                 * (b0 / 2.0
@@ -334,11 +310,7 @@ fn interpolate_into(
                         * (b1 / 3.0
                             + tau
                                 * (b2 / 4.0
-                                    + tau
-                                        * (b3 / 5.0
-                                            + tau
-                                                * (b4 / 6.0
-                                                    + tau * (b5 / 7.0 + tau * b6 / 8.0))))));
+                                    + tau * (b3 / 5.0 + tau * (b4 / 6.0 + tau * (b5 / 7.0 + tau * b6 / 8.0))))));
         x[i] = x0[i] + dtt * v0[i] + dtt * dtt * px;
         v[i] = v0[i] + dtt * pv;
     }
@@ -413,18 +385,13 @@ mod tests {
         let mut worst_dense: f64 = 0.0;
         while t < end {
             dt = dt.min(end - t);
-            match gr
-                .step(&mut Oscillator, t, &mut x, &mut v, dt, true)
-                .unwrap()
-            {
+            match gr.step(&mut Oscillator, t, &mut x, &mut v, dt, true).unwrap() {
                 StepOutcome::Accepted { next_dt, .. } => {
                     // Dense output in the middle of the step.
                     let (mut xm, mut vm) = ([0.0], [0.0]);
                     gr.interpolate(0.37, &mut xm, &mut vm);
                     let tm = t + 0.37 * dt;
-                    worst_dense = worst_dense
-                        .max((xm[0] - tm.cos()).abs())
-                        .max((vm[0] + tm.sin()).abs());
+                    worst_dense = worst_dense.max((xm[0] - tm.cos()).abs()).max((vm[0] + tm.sin()).abs());
                     t += dt;
                     dt = next_dt;
                 }
