@@ -116,6 +116,32 @@ impl ForceModel {
         self.known.iter().chain(self.folded.iter()).map(|k| k.body).collect()
     }
 
+    /// A tabulated cache of `source` with every body this model reads, plus
+    /// `extra` bodies (e.g. the Earth, for the observer), over `span_tdb_days`.
+    /// Folded planets enter only weighted by their tiny mass ratios (below
+    /// 3e-6), so their nodes are spaced 4 days apart whatever their own motion
+    /// (Mercury's interpolation error of 1e-5 au then moves the origin by 2e-12
+    /// au); the rest use the default spacings.
+    pub fn tabulate(
+        &self,
+        source: &dyn Ephemeris,
+        extra: &[Body],
+        span_tdb_days: (f64, f64),
+    ) -> Result<crate::ephemeris::Tabulated, crate::ephemeris::EphemerisError> {
+        let mut bodies: Vec<(Body, f64)> = Vec::new();
+        for &b in self.known.iter().map(|k| &k.body).chain(extra) {
+            if !bodies.iter().any(|(x, _)| *x == b) {
+                bodies.push((b, crate::ephemeris::default_node_spacing_days(b)));
+            }
+        }
+        for f in &self.folded {
+            if !bodies.iter().any(|(x, _)| *x == f.body) {
+                bodies.push((f.body, 4.0));
+            }
+        }
+        crate::ephemeris::Tabulated::with_spacings(source, &bodies, span_tdb_days)
+    }
+
     /// GM of the central point mass: the Sun plus the folded planets.
     pub fn central_gm_au3_per_day2(&self) -> f64 {
         self.gm_sun_au3_per_day2 + self.folded.iter().map(|k| k.gm_au3_per_day2).sum::<f64>()

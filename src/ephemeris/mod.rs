@@ -20,7 +20,7 @@ mod table;
 mod vsop;
 
 pub use spk::{SpkFile, SpkSegmentInfo};
-pub use table::Tabulated;
+pub use table::{Tabulated, default_node_spacing_days};
 pub use vsop::Vsop87;
 
 use crate::units::{self, gm_au3_per_day2_from_km3_per_s2};

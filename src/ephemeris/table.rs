@@ -24,7 +24,7 @@ const NODES: usize = 8;
 /// error of VSOP87A below 1e-10 au over 1986-2027 (Mercury 1.2e-12 at 0.5 d;
 /// Earth 9e-12 at 1 d; Venus, Mars, the giants 3e-12..4e-11 at 4 d; Neptune
 /// 8e-12 at 2 d). SPK Chebyshev series are smoother still.
-pub(crate) fn node_spacing_days(body: Body) -> f64 {
+pub fn default_node_spacing_days(body: Body) -> f64 {
     match body {
         Body::Sun => 1.0e9,
         Body::Moon => 0.25,
@@ -67,7 +67,7 @@ impl Tabulated {
         bodies: &[Body],
         span_tdb_days: (f64, f64),
     ) -> Result<Tabulated, EphemerisError> {
-        let with_spacing: Vec<(Body, f64)> = bodies.iter().map(|&b| (b, node_spacing_days(b))).collect();
+        let with_spacing: Vec<(Body, f64)> = bodies.iter().map(|&b| (b, default_node_spacing_days(b))).collect();
         Tabulated::with_spacings(source, &with_spacing, span_tdb_days)
     }
 
