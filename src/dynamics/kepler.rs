@@ -100,37 +100,28 @@ fn is_positive_finite(x: f64) -> bool {
     x.is_finite() && x > 0.0
 }
 
+/// x^3/3! + sign x^5/5! + sign^2 x^7/7! + ...: the Taylor tail shared by
+/// `x - sin x` (sign = -1) and `sinh x - x` (sign = +1), for |x| < 0.3 where
+/// twelve terms reach full precision.
+fn odd_taylor_tail(x: f64, sign: f64) -> f64 {
+    let x2 = x * x;
+    let mut term = x * x2 / 6.0;
+    let mut sum = term;
+    for k in 1..12 {
+        term *= sign * x2 / ((2 * k + 2) as f64 * (2 * k + 3) as f64);
+        sum += term;
+    }
+    sum
+}
+
 /// `x - sin(x)` without cancellation for small `x`.
 fn x_minus_sin(x: f64) -> f64 {
-    if x.abs() < 0.3 {
-        // Taylor series: x^3/3! - x^5/5! + ...
-        let x2 = x * x;
-        let mut term = x * x2 / 6.0;
-        let mut sum = term;
-        for k in 1..12 {
-            term *= -x2 / ((2 * k + 2) as f64 * (2 * k + 3) as f64);
-            sum += term;
-        }
-        sum
-    } else {
-        x - x.sin()
-    }
+    if x.abs() < 0.3 { odd_taylor_tail(x, -1.0) } else { x - x.sin() }
 }
 
 /// `sinh(x) - x` without cancellation for small `x`.
 fn sinh_minus_x(x: f64) -> f64 {
-    if x.abs() < 0.3 {
-        let x2 = x * x;
-        let mut term = x * x2 / 6.0;
-        let mut sum = term;
-        for k in 1..12 {
-            term *= x2 / ((2 * k + 2) as f64 * (2 * k + 3) as f64);
-            sum += term;
-        }
-        sum
-    } else {
-        x.sinh() - x
-    }
+    if x.abs() < 0.3 { odd_taylor_tail(x, 1.0) } else { x.sinh() - x }
 }
 
 /// Solves Kepler's equation `M = E - e sin E` for the eccentric anomaly,
