@@ -10,13 +10,16 @@
 //! - [`time`]: UTC/TT/TDB and the parsing of times people write.
 //! - [`frames`]: ICRF and ecliptic axes, directions on the sky.
 //! - [`ephemeris`]: where the planets are (embedded VSOP87A, JPL SPK files).
-//! - [`dynamics`]: orbits (two-body motion so far).
+//! - [`dynamics`]: orbits: two-body motion, the N-body force model, the
+//!   integrator, propagation with variational equations.
+//! - [`fit`]: Levenberg-Marquardt least squares (knows nothing of orbits).
 //! - [`io`]: writing output files safely.
 //! - [`cli`]: the command line; the only module that prints.
 
 pub mod cli;
 pub mod dynamics;
 pub mod ephemeris;
+pub mod fit;
 pub mod frames;
 pub mod io;
 pub mod time;
