@@ -469,8 +469,8 @@ mod tests {
             self.x.len()
         }
         fn residuals(&mut self, p: &[f64], out: &mut [f64]) -> Result<(), FitError> {
-            for i in 0..self.x.len() {
-                out[i] = (p[0] * self.x[i] + p[1] - self.y[i]) / self.sigma;
+            for ((o, x), y) in out.iter_mut().zip(&self.x).zip(&self.y) {
+                *o = (p[0] * x + p[1] - y) / self.sigma;
             }
             Ok(())
         }
