@@ -31,8 +31,8 @@ impl LeastSquaresProblem for Curve {
         self.x.len()
     }
     fn residuals(&mut self, p: &[f64], out: &mut [f64]) -> Result<(), FitError> {
-        for i in 0..self.x.len() {
-            out[i] = ((self.f)(p, self.x[i]) - self.y[i]) / self.sigma[i];
+        for (i, o) in out.iter_mut().enumerate() {
+            *o = ((self.f)(p, self.x[i]) - self.y[i]) / self.sigma[i];
         }
         Ok(())
     }
@@ -66,14 +66,28 @@ fn meyer_grad(b: &[f64], x: f64, g: &mut [f64]) {
     g[2] = -b[0] * e * b[1] / ((x + b[2]) * (x + b[2]));
 }
 
-fn nist(name: &str) -> (Vec<f64>, Vec<f64>, Vec<Vec<f64>>, Vec<f64>, f64) {
+/// One NIST problem: data, the two starting points, certified values and RSS.
+struct Nist {
+    x: Vec<f64>,
+    y: Vec<f64>,
+    starts: Vec<Vec<f64>>,
+    certified: Vec<f64>,
+    rss: f64,
+}
+
+fn nist(name: &str) -> Nist {
     let rows = read_rows("lm/nist.csv");
     let get = |kind: &str| -> Vec<f64> {
         let r = rows.iter().find(|r| r["problem"] == name && r["kind"] == kind).unwrap();
         r["values"].split_whitespace().map(|v| v.parse().unwrap()).collect()
     };
-    let starts = vec![get("start1"), get("start2")];
-    (get("x"), get("y"), starts, get("certified"), get("rss")[0])
+    Nist {
+        x: get("x"),
+        y: get("y"),
+        starts: vec![get("start1"), get("start2")],
+        certified: get("certified"),
+        rss: get("rss")[0],
+    }
 }
 
 #[test]
@@ -83,7 +97,7 @@ fn nist_strd_certified_values_are_reproduced_from_both_starts() {
         ("boxbod", exponential_rise, exponential_rise_grad),
         ("mgh10", meyer, meyer_grad),
     ] {
-        let (x, y, starts, certified, rss) = nist(name);
+        let Nist { x, y, starts, certified, rss } = nist(name);
         for (k, start) in starts.iter().enumerate() {
             let sigma = vec![1.0; x.len()];
             let mut problem = Curve { x: x.clone(), y: y.clone(), sigma, n: certified.len(), f, grad };
