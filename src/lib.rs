@@ -13,15 +13,20 @@
 //! - [`dynamics`]: orbits: two-body motion, the N-body force model, the
 //!   integrator, propagation with variational equations.
 //! - [`fit`]: Levenberg-Marquardt least squares (knows nothing of orbits).
-//! - [`io`]: writing output files safely.
+//! - [`reference`]: the reference orbit fit and its O-C residuals.
+//! - [`astrometry`]: the observation model (light time, observing sites).
+//! - [`io`]: reading observations, writing output files safely.
 //! - [`cli`]: the command line; the only module that prints.
 
+pub mod astrometry;
 pub mod cli;
 pub mod dynamics;
 pub mod ephemeris;
 pub mod fit;
 pub mod frames;
 pub mod io;
+pub mod reference;
+pub mod stats;
 pub mod time;
 pub mod units;
 pub mod vec3;

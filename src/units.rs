@@ -17,6 +17,8 @@ pub const JULIAN_YEAR_DAYS: f64 = 365.25;
 pub const C_KM_PER_S: f64 = 299_792.458;
 /// Speed of light in au/day.
 pub const C_AU_PER_DAY: f64 = C_KM_PER_S * DAY_S / AU_KM;
+/// TAI - TT in seconds: TT = TAI + 32.184 s exactly (IAU 1991 Resolution A4).
+pub const TAI_MINUS_TT_S: f64 = -32.184;
 /// Julian date of the J2000.0 epoch, 2000-01-01T12:00:00 (TT or TDB).
 pub const J2000_JD: f64 = 2_451_545.0;
 

@@ -345,12 +345,12 @@ impl<'a> Propagator<'a> {
             if taken.len() >= settings.max_steps {
                 return Err(PlanOutcome::Failed(PropagationError::TooManySteps { max_steps: settings.max_steps }));
             }
-            let adaptive = replayed.is_none();
-            if let Some(plan) = replayed {
-                match plan.get(plan_index) {
-                    Some(&d) => dt = d,
-                    None => return Err(PlanOutcome::TooCoarse),
-                }
+            // Replay the plan while it lasts; epochs past its end (a fitter's
+            // light-time epochs move by seconds) are reached adaptively.
+            let planned = replayed.and_then(|plan| plan.get(plan_index).copied());
+            let adaptive = planned.is_none();
+            if let Some(d) = planned {
+                dt = d;
             }
             // Land the last step on the last epoch, so the planets are never
             // needed beyond the arc; earlier epochs come from dense output.

@@ -38,6 +38,12 @@ impl Matrix3 {
         Matrix3([[1.0, 0.0, 0.0], [0.0, c, s], [0.0, -s, c]])
     }
 
+    /// Rotation of the coordinate axes about y by `angle_rad` (SOFA's R2).
+    pub fn rotation_about_y(angle_rad: f64) -> Matrix3 {
+        let (s, c) = angle_rad.sin_cos();
+        Matrix3([[c, 0.0, -s], [0.0, 1.0, 0.0], [s, 0.0, c]])
+    }
+
     /// Rotation of the coordinate axes about z by `angle_rad` (SOFA's R3).
     pub fn rotation_about_z(angle_rad: f64) -> Matrix3 {
         let (s, c) = angle_rad.sin_cos();

@@ -1,5 +1,8 @@
 //! Reading and writing files. Output is never half-written: every file is
-//! written to a temporary sibling and renamed into place.
+//! written to a temporary sibling and renamed into place. Inputs are never
+//! modified.
+
+pub mod observations;
 
 use std::fs;
 use std::io::Write;

@@ -1,0 +1,393 @@
+//! Reading astrometric observations and observing sites.
+//!
+//! Two observation formats (see `docs/formats.md`):
+//! - Latens CSV: a header naming the columns (any order), `#` comment lines,
+//!   columns `epoch_utc`, `ra_deg`, `dec_deg`, `sigma_ra_arcsec` (of
+//!   RA*cos(Dec), on the sky), `sigma_dec_arcsec`, and optionally `site` and
+//!   `corr` (the RA/Dec error correlation);
+//! - IAU ADES pipe-separated values (PSV) for optical astrometry: the fields
+//!   `obsTime`, `ra`, `dec`, `rmsRA`, `rmsDec`, `stn`, and optionally `rmsCorr`.
+//!
+//! Every problem is reported with the file, the line and the field. A
+//! byte-order mark and CRLF line ends are accepted. Rows are returned sorted
+//! by time.
+
+use std::collections::HashMap;
+use std::path::Path;
+
+use hifitime::Epoch;
+
+use crate::time::{parse_utc_iso, tdb_days_from_j2000};
+use crate::units::RAD_PER_DEG;
+
+/// The name of the Earth's centre as an observing site.
+pub const GEOCENTER: &str = "geocenter";
+
+/// A problem in an input file, located to its line and field.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+#[error("{file}:{line}: {}{message}", field.as_ref().map(|f| format!("field `{f}`: ")).unwrap_or_default())]
+pub struct InputError {
+    pub file: String,
+    /// 1-based line number (0 for the file as a whole).
+    pub line: usize,
+    pub field: Option<String>,
+    pub message: String,
+}
+
+/// An observing site: geodetic longitude (east positive) and latitude on the
+/// WGS84 ellipsoid, degrees, and height above it, metres.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Site {
+    pub name: String,
+    pub lon_deg: f64,
+    pub lat_deg: f64,
+    pub height_m: f64,
+}
+
+/// Known sites by name. Always contains `geocenter`.
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct SiteTable {
+    sites: HashMap<String, Site>,
+}
+
+impl SiteTable {
+    pub fn new() -> Self {
+        SiteTable::default()
+    }
+
+    /// Looks a site up; `None` for the geocentre (and for unknown names, which
+    /// [`SiteTable::contains`] tells apart).
+    pub fn get(&self, name: &str) -> Option<&Site> {
+        self.sites.get(name)
+    }
+
+    pub fn contains(&self, name: &str) -> bool {
+        name == GEOCENTER || self.sites.contains_key(name)
+    }
+
+    pub fn insert(&mut self, site: Site) {
+        self.sites.insert(site.name.clone(), site);
+    }
+
+    /// Reads a sites file: CSV with the columns `name`, `lon_deg`, `lat_deg`,
+    /// `height_m` (any order, `#` comments).
+    pub fn read(path: &Path) -> Result<SiteTable, InputError> {
+        let file = path.display().to_string();
+        let text = read_text(path)?;
+        let table = Table::parse(&text, &file, ',')?;
+        let mut sites = SiteTable::new();
+        table.require(&["name", "lon_deg", "lat_deg", "height_m"], &[])?;
+        for row in &table.rows {
+            let name = row.text("name")?.to_string();
+            if name.is_empty() {
+                return Err(row.error("name", "a site needs a name"));
+            }
+            let lon = row.number("lon_deg")?;
+            let lat = row.number("lat_deg")?;
+            let height = row.number("height_m")?;
+            if !(-180.0..=360.0).contains(&lon) {
+                return Err(row.error("lon_deg", &format!("{lon} is not a longitude")));
+            }
+            if !(-90.0..=90.0).contains(&lat) {
+                return Err(row.error("lat_deg", &format!("{lat} is not a latitude")));
+            }
+            if !(-12_000.0..=100_000.0).contains(&height) {
+                return Err(row.error("height_m", &format!("{height} m is not a height on the Earth")));
+            }
+            if sites.sites.contains_key(&name) || name == GEOCENTER {
+                return Err(row.error("name", &format!("site `{name}` is defined twice")));
+            }
+            sites.insert(Site { name, lon_deg: lon, lat_deg: lat, height_m: height });
+        }
+        Ok(sites)
+    }
+}
+
+/// One astrometric observation: an astrometric ICRF position of the tracked
+/// body seen from a site at a UTC instant.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Observation {
+    /// The instant of observation (hifitime, on the TAI scale).
+    pub epoch: Epoch,
+    /// The same instant as TDB days after J2000.0.
+    pub t_tdb_days: f64,
+    pub ra_rad: f64,
+    pub dec_rad: f64,
+    /// 1-sigma error of RA*cos(Dec), arcsec.
+    pub sigma_ra_arcsec: f64,
+    /// 1-sigma error of Dec, arcsec.
+    pub sigma_dec_arcsec: f64,
+    /// Correlation of the RA and Dec errors, in (-1, 1).
+    pub corr: f64,
+    pub site: String,
+    /// Where the observation came from, for messages: `file:line`.
+    pub source: String,
+    /// The epoch text as written.
+    pub epoch_text: String,
+}
+
+/// Reads observations in Latens CSV or ADES PSV (chosen by content: a header
+/// with `|` separators is ADES). Needs at least `min_count` observations.
+pub fn read_observations(path: &Path, sites: &SiteTable, min_count: usize) -> Result<Vec<Observation>, InputError> {
+    let file = path.display().to_string();
+    let text = read_text(path)?;
+    let header = text.lines().map(str::trim).find(|l| !l.is_empty() && !l.starts_with('#'));
+    let Some(header) = header else {
+        return Err(InputError {
+            file,
+            line: 0,
+            field: None,
+            message: "the file has no header and no observations".into(),
+        });
+    };
+    let ades = header.contains('|');
+    let table = Table::parse(&text, &file, if ades { '|' } else { ',' })?;
+    let names = if ades {
+        table.require(&["obsTime", "ra", "dec", "rmsRA", "rmsDec"], &["stn", "rmsCorr"])?;
+        ColumnNames {
+            epoch: "obsTime",
+            ra: "ra",
+            dec: "dec",
+            sra: "rmsRA",
+            sdec: "rmsDec",
+            site: "stn",
+            corr: "rmsCorr",
+        }
+    } else {
+        table.require(&["epoch_utc", "ra_deg", "dec_deg", "sigma_ra_arcsec", "sigma_dec_arcsec"], &["site", "corr"])?;
+        ColumnNames {
+            epoch: "epoch_utc",
+            ra: "ra_deg",
+            dec: "dec_deg",
+            sra: "sigma_ra_arcsec",
+            sdec: "sigma_dec_arcsec",
+            site: "site",
+            corr: "corr",
+        }
+    };
+    let mut out = Vec::with_capacity(table.rows.len());
+    let mut seen: HashMap<(i128, String), usize> = HashMap::new();
+    for row in &table.rows {
+        let epoch_text = row.text(names.epoch)?.to_string();
+        let epoch = parse_utc_iso(&epoch_text).map_err(|e| row.error(names.epoch, &e.to_string()))?;
+        let ra = row.number(names.ra)?;
+        if !(0.0..360.0).contains(&ra) {
+            return Err(row.error(names.ra, &format!("{ra} is outside [0, 360) degrees")));
+        }
+        let dec = row.number(names.dec)?;
+        if !(-90.0..=90.0).contains(&dec) {
+            return Err(row.error(names.dec, &format!("{dec} is outside [-90, 90] degrees")));
+        }
+        let sra = row.number(names.sra)?;
+        let sdec = row.number(names.sdec)?;
+        for (f, v) in [(names.sra, sra), (names.sdec, sdec)] {
+            if v <= 0.0 {
+                return Err(row.error(f, &format!("an uncertainty must be positive, got {v}")));
+            }
+        }
+        let corr = match row.optional_text(names.corr) {
+            Some(t) if !t.is_empty() => {
+                let c = row.number(names.corr)?;
+                if !(c > -1.0 && c < 1.0) {
+                    return Err(
+                        row.error(names.corr, &format!("a correlation must lie strictly between -1 and 1, got {c}"))
+                    );
+                }
+                let _ = t;
+                c
+            }
+            _ => 0.0,
+        };
+        let site = match row.optional_text(names.site) {
+            Some(s) if !s.is_empty() => s.to_string(),
+            _ => GEOCENTER.to_string(),
+        };
+        if !sites.contains(&site) {
+            return Err(row.error(names.site, &format!("unknown site `{site}`: define it in a sites file (--sites)")));
+        }
+        let key =
+            (epoch.to_time_scale(hifitime::TimeScale::TAI).to_duration_since_j1900().total_nanoseconds(), site.clone());
+        if let Some(first) = seen.insert(key, row.line) {
+            return Err(
+                row.error(names.epoch, &format!("duplicates the observation on line {first} (same time and site)"))
+            );
+        }
+        out.push(Observation {
+            t_tdb_days: tdb_days_from_j2000(epoch),
+            epoch,
+            ra_rad: ra * RAD_PER_DEG,
+            dec_rad: dec * RAD_PER_DEG,
+            sigma_ra_arcsec: sra,
+            sigma_dec_arcsec: sdec,
+            corr,
+            site,
+            source: format!("{}:{}", table.file, row.line),
+            epoch_text,
+        });
+    }
+    if out.len() < min_count {
+        return Err(InputError {
+            file: table.file.clone(),
+            line: 0,
+            field: None,
+            message: format!("{} observations; at least {min_count} are needed", out.len()),
+        });
+    }
+    out.sort_by(|a, b| a.t_tdb_days.total_cmp(&b.t_tdb_days));
+    Ok(out)
+}
+
+struct ColumnNames {
+    epoch: &'static str,
+    ra: &'static str,
+    dec: &'static str,
+    sra: &'static str,
+    sdec: &'static str,
+    site: &'static str,
+    corr: &'static str,
+}
+
+fn read_text(path: &Path) -> Result<String, InputError> {
+    let file = path.display().to_string();
+    let bytes = std::fs::read(path).map_err(|e| InputError {
+        file: file.clone(),
+        line: 0,
+        field: None,
+        message: format!("cannot read: {e}"),
+    })?;
+    let text = String::from_utf8(bytes).map_err(|e| InputError {
+        file: file.clone(),
+        line: 0,
+        field: None,
+        message: format!("not UTF-8 text ({e})"),
+    })?;
+    Ok(text.strip_prefix('\u{feff}').map(str::to_string).unwrap_or(text))
+}
+
+/// A delimited text table with a header; comment and blank lines skipped.
+struct Table {
+    file: String,
+    columns: Vec<String>,
+    header_line: usize,
+    rows: Vec<Row>,
+}
+
+struct Row {
+    file: String,
+    line: usize,
+    values: HashMap<String, String>,
+}
+
+impl Table {
+    fn parse(text: &str, file: &str, separator: char) -> Result<Table, InputError> {
+        let mut columns: Option<(Vec<String>, usize)> = None;
+        let mut rows = Vec::new();
+        for (i, raw) in text.split('\n').enumerate() {
+            let line_no = i + 1;
+            let line = raw.strip_suffix('\r').unwrap_or(raw).trim();
+            if line.is_empty() || line.starts_with('#') {
+                continue;
+            }
+            let fields: Vec<String> = line.split(separator).map(|f| f.trim().to_string()).collect();
+            match &columns {
+                None => {
+                    let mut seen = std::collections::HashSet::new();
+                    for f in &fields {
+                        if f.is_empty() {
+                            return Err(InputError {
+                                file: file.into(),
+                                line: line_no,
+                                field: None,
+                                message: "the header has an empty column name".into(),
+                            });
+                        }
+                        if !seen.insert(f.clone()) {
+                            return Err(InputError {
+                                file: file.into(),
+                                line: line_no,
+                                field: Some(f.clone()),
+                                message: "column named twice in the header".into(),
+                            });
+                        }
+                    }
+                    columns = Some((fields, line_no));
+                }
+                Some((names, _)) => {
+                    if fields.len() != names.len() {
+                        return Err(InputError {
+                            file: file.into(),
+                            line: line_no,
+                            field: None,
+                            message: format!("{} fields where the header has {}", fields.len(), names.len()),
+                        });
+                    }
+                    rows.push(Row {
+                        file: file.into(),
+                        line: line_no,
+                        values: names.iter().cloned().zip(fields).collect(),
+                    });
+                }
+            }
+        }
+        let Some((columns, header_line)) = columns else {
+            return Err(InputError { file: file.into(), line: 0, field: None, message: "the file is empty".into() });
+        };
+        Ok(Table { file: file.into(), columns, header_line, rows })
+    }
+
+    /// Checks that every `required` column is present and no column is unknown.
+    fn require(&self, required: &[&str], optional: &[&str]) -> Result<(), InputError> {
+        for r in required {
+            if !self.columns.iter().any(|c| c == r) {
+                return Err(InputError {
+                    file: self.file.clone(),
+                    line: self.header_line,
+                    field: Some(r.to_string()),
+                    message: "required column missing from the header".into(),
+                });
+            }
+        }
+        for c in &self.columns {
+            if !required.contains(&c.as_str()) && !optional.contains(&c.as_str()) {
+                return Err(InputError {
+                    file: self.file.clone(),
+                    line: self.header_line,
+                    field: Some(c.clone()),
+                    message: format!(
+                        "unknown column (known: {})",
+                        required.iter().chain(optional).copied().collect::<Vec<_>>().join(", ")
+                    ),
+                });
+            }
+        }
+        Ok(())
+    }
+}
+
+impl Row {
+    fn error(&self, field: &str, message: &str) -> InputError {
+        InputError {
+            file: self.file.clone(),
+            line: self.line,
+            field: Some(field.to_string()),
+            message: message.to_string(),
+        }
+    }
+
+    fn text(&self, field: &str) -> Result<&str, InputError> {
+        self.values.get(field).map(String::as_str).ok_or_else(|| self.error(field, "missing"))
+    }
+
+    fn optional_text(&self, field: &str) -> Option<&str> {
+        self.values.get(field).map(String::as_str)
+    }
+
+    fn number(&self, field: &str) -> Result<f64, InputError> {
+        let t = self.text(field)?;
+        let v: f64 = t.parse().map_err(|_| self.error(field, &format!("`{t}` is not a number")))?;
+        if !v.is_finite() {
+            return Err(self.error(field, &format!("`{t}` is not a finite number")));
+        }
+        Ok(v)
+    }
+}

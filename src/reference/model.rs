@@ -1,0 +1,164 @@
+//! The tracked body's predicted astrometry and its partial derivatives, for a
+//! state at the reference epoch: the model behind the reference-orbit fit.
+
+use faer::Mat;
+
+use crate::astrometry::{ObservingGeometry, astrometric_direction, radec_partials};
+use crate::dynamics::{ForceModel, InitialState, Perturber, PropagationError, PropagationSettings, Propagator};
+use crate::ephemeris::Ephemeris;
+use crate::fit::{FitError, LeastSquaresProblem};
+use crate::frames::RaDec;
+use crate::io::observations::Observation;
+use crate::units::{C_AU_PER_DAY, RAD_PER_ARCSEC, wrap_pi};
+use crate::vec3::Vec3;
+
+/// Predicted astrometry of one observation.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Prediction {
+    pub radec: RaDec,
+    /// Observer-to-body vector at light-time-corrected emission, au.
+    pub rho_au: Vec3,
+    /// d(RA*cos(Dec))/d(state at epoch) and d(Dec)/d(state), radians per
+    /// (au, au/day), when asked for.
+    pub partials: Option<[[f64; 6]; 2]>,
+}
+
+/// Observations, their geometry and a propagator for one reference epoch.
+pub struct OrbitModel<'a> {
+    pub observations: &'a [Observation],
+    pub geometry: Vec<ObservingGeometry>,
+    pub epoch_tdb_days: f64,
+    /// Perturbers carried along (none for the plain reference orbit).
+    pub perturbers: Vec<Perturber>,
+    propagator: Propagator<'a>,
+    /// Emission-time guesses (TDB days), improved at every prediction.
+    emission: Vec<f64>,
+    pub predictions: u64,
+}
+
+impl<'a> OrbitModel<'a> {
+    pub fn new(
+        observations: &'a [Observation],
+        geometry: Vec<ObservingGeometry>,
+        epoch_tdb_days: f64,
+        model: &'a ForceModel,
+        ephemeris: &'a dyn Ephemeris,
+    ) -> Result<Self, PropagationError> {
+        let settings = PropagationSettings { partials: true, reuse_steps: true, ..PropagationSettings::fast() };
+        let emission = observations.iter().map(|o| o.t_tdb_days).collect();
+        Ok(OrbitModel {
+            observations,
+            geometry,
+            epoch_tdb_days,
+            perturbers: Vec::new(),
+            propagator: Propagator::new(model, ephemeris, settings)?,
+            emission,
+            predictions: 0,
+        })
+    }
+
+    /// Predictions for a heliocentric ICRF state (x, y, z, vx, vy, vz) at the
+    /// reference epoch.
+    pub fn predict(&mut self, state: &[f64], partials: bool) -> Result<Vec<Prediction>, PropagationError> {
+        let init = InitialState {
+            t0_tdb_days: self.epoch_tdb_days,
+            tracked_position_au: Vec3::new(state[0], state[1], state[2]),
+            tracked_velocity_au_per_day: Vec3::new(state[3], state[4], state[5]),
+            perturbers: self.perturbers.clone(),
+        };
+        if self.predictions == 0 {
+            // First guesses of the light time from the distance at the epoch.
+            for (e, g) in self.emission.iter_mut().zip(&self.geometry) {
+                *e = g.t_tdb_days - (init.tracked_position_au - g.observer_au).norm() / C_AU_PER_DAY;
+            }
+        }
+        self.predictions += 1;
+        let traj = self.propagator.propagate(&init, &self.emission)?;
+        let n_params = traj.n_params;
+        let mut out = Vec::with_capacity(self.geometry.len());
+        for (k, g) in self.geometry.iter().enumerate() {
+            let s = traj.tracked[k];
+            let (rho, tau, radec) = astrometric_direction(g, self.emission[k], s.position_au, s.velocity_au_per_day);
+            self.emission[k] = g.t_tdb_days - tau;
+            let partials = partials.then(|| {
+                let (pa, pd) = radec_partials(rho);
+                let phi = traj.tracked_partials(k);
+                let mut rows = [[0.0; 6]; 2];
+                for j in 0..6 {
+                    // Position rows of the state-transition matrix.
+                    let col = [phi[j], phi[n_params + j], phi[2 * n_params + j]];
+                    rows[0][j] = pa[0] * col[0] + pa[1] * col[1] + pa[2] * col[2];
+                    rows[1][j] = pd[0] * col[0] + pd[1] * col[1] + pd[2] * col[2];
+                }
+                rows
+            });
+            out.push(Prediction { radec, rho_au: rho, partials });
+        }
+        Ok(out)
+    }
+}
+
+/// O-C of one observation: (RA_obs - RA_calc) cos(Dec) and Dec_obs - Dec_calc,
+/// arcsec.
+pub fn residual_arcsec(obs: &Observation, predicted: &RaDec) -> (f64, f64) {
+    let dra = wrap_pi(obs.ra_rad - predicted.ra_rad) * obs.dec_rad.cos() / RAD_PER_ARCSEC;
+    let ddec = (obs.dec_rad - predicted.dec_rad) / RAD_PER_ARCSEC;
+    (dra, ddec)
+}
+
+/// Whitens an (RA, Dec) residual pair by its 2x2 covariance (sigmas and
+/// correlation): w = L^-1 r with L the Cholesky factor.
+pub fn whiten(obs: &Observation, r: (f64, f64)) -> (f64, f64) {
+    let (sa, sd, c) = (obs.sigma_ra_arcsec, obs.sigma_dec_arcsec, obs.corr);
+    let w1 = r.0 / sa;
+    let w2 = (r.1 - c * sd * w1) / (sd * (1.0 - c * c).sqrt());
+    (w1, w2)
+}
+
+/// The weighted least-squares problem of the reference orbit: parameters are
+/// the state at the epoch; observations marked unused contribute zeros.
+pub struct OrbitProblem<'m, 'a> {
+    pub model: &'m mut OrbitModel<'a>,
+    pub used: Vec<bool>,
+}
+
+impl LeastSquaresProblem for OrbitProblem<'_, '_> {
+    fn n_params(&self) -> usize {
+        6
+    }
+
+    fn n_residuals(&self) -> usize {
+        2 * self.model.observations.len()
+    }
+
+    fn residuals(&mut self, params: &[f64], out: &mut [f64]) -> Result<(), FitError> {
+        let pred = self.model.predict(params, false).map_err(|e| FitError::Problem(e.to_string()))?;
+        for (k, (obs, p)) in self.model.observations.iter().zip(&pred).enumerate() {
+            let (w1, w2) = if self.used[k] { whiten(obs, residual_arcsec(obs, &p.radec)) } else { (0.0, 0.0) };
+            out[2 * k] = w1;
+            out[2 * k + 1] = w2;
+        }
+        Ok(())
+    }
+
+    fn jacobian(&mut self, params: &[f64], out: &mut Mat<f64>) -> Result<(), FitError> {
+        let pred = self.model.predict(params, true).map_err(|e| FitError::Problem(e.to_string()))?;
+        for (k, (obs, p)) in self.model.observations.iter().zip(&pred).enumerate() {
+            let rows = p.partials.unwrap_or([[0.0; 6]; 2]);
+            for j in 0..6 {
+                if self.used[k] {
+                    // residual = observed - computed: its derivative is minus
+                    // the model's, in arcsec, then whitened like the residual.
+                    let d = (-rows[0][j] / RAD_PER_ARCSEC, -rows[1][j] / RAD_PER_ARCSEC);
+                    let (w1, w2) = whiten(obs, d);
+                    out[(2 * k, j)] = w1;
+                    out[(2 * k + 1, j)] = w2;
+                } else {
+                    out[(2 * k, j)] = 0.0;
+                    out[(2 * k + 1, j)] = 0.0;
+                }
+            }
+        }
+        Ok(())
+    }
+}
