@@ -16,6 +16,7 @@
 //! - [`reference`]: the reference orbit fit and its O-C residuals.
 //! - [`astrometry`]: the observation model (light time, observing sites).
 //! - [`io`]: reading observations, writing output files safely.
+//! - [`report`]: charts from finished results.
 //! - [`cli`]: the command line; the only module that prints.
 
 pub mod astrometry;
@@ -26,6 +27,7 @@ pub mod fit;
 pub mod frames;
 pub mod io;
 pub mod reference;
+pub mod report;
 pub mod stats;
 pub mod time;
 pub mod units;

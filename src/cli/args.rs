@@ -17,6 +17,31 @@ pub struct Args {
 pub enum Command {
     /// Run the built-in invented scenario end to end and write what it makes.
     Demo(DemoArgs),
+    /// Fit the tracked body's reference orbit and show its O-C residuals.
+    Residuals(ResidualsArgs),
+}
+
+#[derive(Debug, clap::Args)]
+pub struct ResidualsArgs {
+    /// Observations: Latens CSV or IAU ADES PSV (see docs/formats.md).
+    #[arg(long, value_name = "FILE")]
+    pub obs: PathBuf,
+    /// Observing sites: CSV with name, lon_deg, lat_deg, height_m.
+    #[arg(long, value_name = "FILE")]
+    pub sites: Option<PathBuf>,
+    /// Planets in the model, comma-separated, or `none` for a two-body orbit.
+    /// Inner planets not listed are folded into the Sun.
+    #[arg(long, value_name = "LIST", default_value = "jupiter,saturn,uranus,neptune")]
+    pub known: String,
+    /// `builtin` (VSOP87A, no file needed) or a JPL SPK file (types 2 and 3).
+    #[arg(long, value_name = "builtin|FILE", default_value = "builtin")]
+    pub ephemeris: String,
+    /// Reference epoch of the orbit (ISO UTC or `JD <days> TDB`); default: mid-arc.
+    #[arg(long, value_name = "DATE")]
+    pub epoch: Option<String>,
+    /// Directory to write into (created if missing).
+    #[arg(long, value_name = "DIR", default_value = "output/residuals")]
+    pub out: PathBuf,
 }
 
 #[derive(Debug, clap::Args)]
@@ -33,11 +58,20 @@ mod tests {
     #[test]
     fn demo_takes_an_output_directory() {
         let a = Args::try_parse_from(["latens", "demo", "--out", "x/y"]).unwrap();
-        let Command::Demo(d) = a.command;
+        let Command::Demo(d) = a.command else { panic!("not demo") };
         assert_eq!(d.out, PathBuf::from("x/y"));
         let a = Args::try_parse_from(["latens", "demo"]).unwrap();
-        let Command::Demo(d) = a.command;
+        let Command::Demo(d) = a.command else { panic!("not demo") };
         assert_eq!(d.out, PathBuf::from("output/demo"));
+    }
+
+    #[test]
+    fn residuals_needs_observations_and_has_defaults() {
+        assert!(Args::try_parse_from(["latens", "residuals"]).is_err());
+        let a = Args::try_parse_from(["latens", "residuals", "--obs", "o.csv"]).unwrap();
+        let Command::Residuals(r) = a.command else { panic!("not residuals") };
+        assert_eq!(r.known, "jupiter,saturn,uranus,neptune");
+        assert_eq!(r.ephemeris, "builtin");
     }
 
     #[test]

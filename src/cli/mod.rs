@@ -5,6 +5,7 @@
 
 mod args;
 mod demo;
+mod residuals;
 
 use std::ffi::OsString;
 use std::process::ExitCode;
@@ -63,6 +64,7 @@ where
 fn run(args: Args) -> Result<(), CliError> {
     match args.command {
         Command::Demo(demo_args) => demo::run(&demo_args),
+        Command::Residuals(r) => residuals::run(&r),
     }
 }
 

@@ -3,6 +3,7 @@
 //! modified.
 
 pub mod observations;
+pub mod results;
 
 use std::fs;
 use std::io::Write;

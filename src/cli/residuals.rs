@@ -1,0 +1,400 @@
+//! `latens residuals`: the reference orbit and its O-C residuals.
+
+use std::fmt::Write as _;
+use std::path::{Path, PathBuf};
+
+use anyhow::Context;
+
+use super::CliError;
+use super::args::ResidualsArgs;
+use crate::astrometry::observer_ephemeris_bodies;
+use crate::dynamics::ForceModel;
+use crate::ephemeris::{Body, Ephemeris, SpkFile, Tabulated, Vsop87};
+use crate::io::observations::{InputError, Observation, SiteTable, read_observations};
+use crate::io::results::{FitFile, OrbitFile, SolverFile, TrendFile};
+use crate::io::write_atomically;
+use crate::reference::{ReferenceFit, ReferenceSettings, fit_reference_orbit};
+use crate::report::residual_chart::ResidualChart;
+use crate::stats::chi_square_survival;
+use crate::time::{epoch_from_tdb_days, parse_epoch, tdb_days_from_j2000, utc_iso_from_epoch};
+use crate::units::{J2000_JD, JULIAN_YEAR_DAYS, RAD_PER_DEG};
+
+/// The inner planets, folded into the Sun when not listed as known bodies.
+const INNER: [Body; 4] = [Body::Mercury, Body::Venus, Body::EarthMoonBarycenter, Body::Mars];
+
+/// Parses `--known`: `none`, or comma-separated body names.
+pub(super) fn parse_known(text: &str) -> Result<Vec<Body>, String> {
+    if text.trim().eq_ignore_ascii_case("none") {
+        return Ok(Vec::new());
+    }
+    let mut out = Vec::new();
+    for name in text.split(',') {
+        let body = Body::from_name(name).ok_or_else(|| {
+            format!(
+                "unknown body `{}` in --known (use none, or names from: {})",
+                name.trim(),
+                Body::ALL.iter().filter(|b| **b != Body::Sun).map(|b| b.name()).collect::<Vec<_>>().join(", ")
+            )
+        })?;
+        if body == Body::Sun {
+            return Err("the Sun is always in the model; list planets only".into());
+        }
+        if !out.contains(&body) {
+            out.push(body);
+        }
+    }
+    Ok(out)
+}
+
+/// The force model for a list of known bodies: with `none`, the Sun alone;
+/// otherwise the listed bodies, with the inner planets that are not listed
+/// folded into the Sun (right for bodies well outside the orbit of Mars; list
+/// them for anything that comes closer).
+pub(super) fn force_model(known: &[Body]) -> ForceModel {
+    if known.is_empty() {
+        return ForceModel::sun_only();
+    }
+    let mut model = ForceModel::with_known(known);
+    let lists_earth = known.iter().any(|b| matches!(b, Body::Earth | Body::Moon | Body::EarthMoonBarycenter));
+    model.folded = INNER
+        .iter()
+        .filter(|b| !known.contains(b) && !(lists_earth && **b == Body::EarthMoonBarycenter))
+        .map(|&b| crate::dynamics::KnownBody { body: b, gm_au3_per_day2: b.gm_au3_per_day2() })
+        .collect();
+    model
+}
+
+/// The ephemeris: the embedded VSOP87A tabulated over the observed span, or
+/// an SPK file. Every observation must lie inside its coverage.
+pub(super) fn load_ephemeris(
+    spec: &str,
+    model: &ForceModel,
+    observations: &[Observation],
+) -> Result<Box<dyn Ephemeris>, CliError> {
+    let first = observations.first().map(|o| o.t_tdb_days).unwrap_or(0.0);
+    let last = observations.last().map(|o| o.t_tdb_days).unwrap_or(0.0);
+    // Light leaves a body 170 au away a day before it arrives.
+    let span = (first - 2.0, last + 1.0);
+    let mut needed = observer_ephemeris_bodies();
+    for b in model.ephemeris_bodies() {
+        if !needed.contains(&b) {
+            needed.push(b);
+        }
+    }
+    let ephemeris: Box<dyn Ephemeris> = if spec == "builtin" {
+        let source = Vsop87::new();
+        for &b in &needed {
+            if source.covered_tdb_days(b).is_none() {
+                return Err(CliError::bad_input(anyhow::anyhow!(
+                    "the built-in ephemeris has no {b}; give a JPL SPK file with --ephemeris FILE.bsp"
+                )));
+            }
+        }
+        for o in observations {
+            if let Err(e) = source.check_covered(Body::Earth, o.t_tdb_days) {
+                return Err(CliError::bad_input(anyhow::anyhow!("{}: field `epoch_utc`: {e}", o.source)));
+            }
+        }
+        Box::new(model.tabulate(&source, &needed, span).map_err(CliError::failed)?)
+    } else {
+        let spk = SpkFile::open(Path::new(spec)).map_err(CliError::bad_input)?;
+        for o in observations {
+            for &b in &needed {
+                for t in [o.t_tdb_days - 2.0, o.t_tdb_days] {
+                    if let Err(e) = spk.check_covered(b, t) {
+                        return Err(CliError::bad_input(anyhow::anyhow!("{}: field `epoch_utc`: {e}", o.source)));
+                    }
+                }
+            }
+        }
+        let _ = Tabulated::from_samples;
+        Box::new(spk)
+    };
+    Ok(ephemeris)
+}
+
+pub(super) fn read_inputs(obs: &Path, sites: Option<&PathBuf>) -> Result<(Vec<Observation>, SiteTable), CliError> {
+    let sites = match sites {
+        Some(p) => SiteTable::read(p).map_err(input_error)?,
+        None => SiteTable::new(),
+    };
+    let observations = read_observations(obs, &sites, 3).map_err(input_error)?;
+    Ok((observations, sites))
+}
+
+fn input_error(e: InputError) -> CliError {
+    CliError::bad_input(e)
+}
+
+pub(super) fn run(args: &ResidualsArgs) -> Result<(), CliError> {
+    let (observations, sites) = read_inputs(&args.obs, args.sites.as_ref())?;
+    let known = parse_known(&args.known).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+    let model = force_model(&known);
+    let ephemeris = load_ephemeris(&args.ephemeris, &model, &observations)?;
+    let epoch = match &args.epoch {
+        Some(text) => Some(tdb_days_from_j2000(
+            parse_epoch(text).map_err(|e| CliError::bad_input(anyhow::anyhow!("--epoch: {e}")))?,
+        )),
+        None => None,
+    };
+    let settings = ReferenceSettings { epoch_tdb_days: epoch, ..ReferenceSettings::default() };
+    let fit = fit_reference_orbit(&observations, &sites, &model, ephemeris.as_ref(), &settings, None)
+        .map_err(CliError::failed)?;
+
+    let files = ResidualProducts::build(&fit, &observations, &model, ephemeris.description());
+    files.write(&args.out).map_err(CliError::failed)?;
+    print!("{}", files.summary);
+    println!("Files written in {}:", args.out.display());
+    println!(
+        "  fit.json         the orbit (heliocentric ecliptic J2000 elements, ICRF state, covariance) and fit statistics"
+    );
+    println!("  residuals.csv    O-C of every observation: RA*cos(Dec) and Dec in arcsec, sigmas, used or set aside");
+    println!("  residuals.png    the O-C chart (and residuals.svg, the same as vector graphics)");
+    Ok(())
+}
+
+/// Everything `latens residuals` writes, built in memory before any file is
+/// touched.
+pub(super) struct ResidualProducts {
+    pub fit_json: String,
+    pub residuals_csv: String,
+    pub summary: String,
+    chart_years: Vec<f64>,
+    chart_ra: Vec<f64>,
+    chart_dec: Vec<f64>,
+    chart_sra: Vec<f64>,
+    chart_sdec: Vec<f64>,
+    chart_used: Vec<bool>,
+    chart_title: String,
+    chart_subtitle: String,
+}
+
+/// A p-value for people: three significant digits, or a bound below the
+/// smallest representable value.
+fn format_p(p: f64) -> String {
+    if p < 1e-300 {
+        "< 1e-300".to_string()
+    } else if p < 1e-3 {
+        format!("{p:.1e}")
+    } else {
+        format!("{p:.3}")
+    }
+}
+
+/// Weighted linear trend: slope (per year) and its formal error.
+fn trend(years: &[f64], values: &[f64], sigmas: &[f64], used: &[bool]) -> (f64, f64) {
+    let (mut sw, mut swt, mut swtt, mut swv, mut swtv) = (0.0, 0.0, 0.0, 0.0, 0.0);
+    for k in 0..years.len() {
+        if !used[k] {
+            continue;
+        }
+        let w = 1.0 / (sigmas[k] * sigmas[k]);
+        sw += w;
+        swt += w * years[k];
+        swtt += w * years[k] * years[k];
+        swv += w * values[k];
+        swtv += w * years[k] * values[k];
+    }
+    let det = sw * swtt - swt * swt;
+    if det <= 0.0 {
+        return (0.0, f64::INFINITY);
+    }
+    ((sw * swtv - swt * swv) / det, (sw / det).sqrt())
+}
+
+impl ResidualProducts {
+    pub(super) fn build(
+        fit: &ReferenceFit,
+        observations: &[Observation],
+        model: &ForceModel,
+        ephemeris: String,
+    ) -> Self {
+        let years: Vec<f64> = observations.iter().map(|o| 2000.0 + o.t_tdb_days / JULIAN_YEAR_DAYS).collect();
+        let ra: Vec<f64> = fit.residuals.iter().map(|r| r.ra_arcsec).collect();
+        let dec: Vec<f64> = fit.residuals.iter().map(|r| r.dec_arcsec).collect();
+        let sra: Vec<f64> = observations.iter().map(|o| o.sigma_ra_arcsec).collect();
+        let sdec: Vec<f64> = observations.iter().map(|o| o.sigma_dec_arcsec).collect();
+        let used: Vec<bool> = fit.residuals.iter().map(|r| r.used).collect();
+        let (ra_slope, ra_sigma) = trend(&years, &ra, &sra, &used);
+        let (dec_slope, dec_sigma) = trend(&years, &dec, &sdec, &used);
+        let p_value = chi_square_survival(fit.chi2, fit.dof as f64);
+        let chi2_per_dof = fit.chi2 / fit.dof.max(1) as f64;
+
+        let el = &fit.elements;
+        let cov = &fit.covariance;
+        let deg = |x: f64| x / RAD_PER_DEG;
+        let file = FitFile {
+            n_obs: observations.len(),
+            n_used: fit.n_used,
+            n_rejected: fit.n_rejected,
+            chi2: fit.chi2,
+            dof: fit.dof,
+            chi2_per_dof,
+            p_value,
+            rms_ra_arcsec: fit.rms_ra_arcsec,
+            rms_dec_arcsec: fit.rms_dec_arcsec,
+            known_bodies: model.known.iter().map(|k| k.body.name().to_string()).collect(),
+            folded_into_sun: model.folded.iter().map(|k| k.body.name().to_string()).collect(),
+            ephemeris,
+            orbit: OrbitFile {
+                frame: "elements: heliocentric osculating, ecliptic and equinox J2000 (IAU 2006), GM of the Sun; state: heliocentric ICRF".into(),
+                epoch_tdb_jd: J2000_JD + fit.epoch_tdb_days,
+                epoch_utc: utc_iso_from_epoch(epoch_from_tdb_days(fit.epoch_tdb_days)),
+                a_au: el.semi_major_axis_au(),
+                e: el.eccentricity,
+                inc_deg: deg(el.inclination_rad),
+                node_deg: deg(el.node_rad),
+                peri_deg: deg(el.periapsis_arg_rad),
+                mean_anomaly_deg: deg(el.mean_anomaly_rad()),
+                sigma_a_au: fit.element_sigmas[0],
+                sigma_e: fit.element_sigmas[1],
+                sigma_inc_deg: deg(fit.element_sigmas[2]),
+                sigma_node_deg: deg(fit.element_sigmas[3]),
+                sigma_peri_deg: deg(fit.element_sigmas[4]),
+                sigma_mean_anomaly_deg: deg(fit.element_sigmas[5]),
+                state_icrf: fit.state,
+                covariance: (0..6).map(|i| [cov[6 * i], cov[6 * i + 1], cov[6 * i + 2], cov[6 * i + 3], cov[6 * i + 4], cov[6 * i + 5]]).collect(),
+            },
+            trend: TrendFile {
+                ra_mas_per_year: ra_slope * 1000.0,
+                ra_sigma_mas_per_year: ra_sigma * 1000.0,
+                dec_mas_per_year: dec_slope * 1000.0,
+                dec_sigma_mas_per_year: dec_sigma * 1000.0,
+            },
+            solver: SolverFile {
+                start: fit.start.clone(),
+                iterations: fit.iterations,
+                termination: format!("{:?}", fit.termination),
+                condition_number: fit.condition_number,
+            },
+            warnings: fit.warnings.clone(),
+        };
+        let fit_json = serde_json::to_string_pretty(&file).unwrap_or_default() + "\n";
+
+        let mut csv = String::from(
+            "epoch_utc,ra_resid_arcsec,dec_resid_arcsec,sigma_ra_arcsec,sigma_dec_arcsec,used,site,chi2\n",
+        );
+        for (o, r) in observations.iter().zip(&fit.residuals) {
+            let _ = writeln!(
+                csv,
+                "{},{:.6},{:.6},{},{},{},{},{:.4}",
+                o.epoch_text, r.ra_arcsec, r.dec_arcsec, o.sigma_ra_arcsec, o.sigma_dec_arcsec, r.used, o.site, r.chi2
+            );
+        }
+
+        let mut summary = String::new();
+        let _ = writeln!(
+            summary,
+            "Reference orbit at {} (JD {:.1} TDB), heliocentric ecliptic J2000:",
+            file.orbit.epoch_utc, file.orbit.epoch_tdb_jd
+        );
+        let _ = writeln!(
+            summary,
+            "  a = {:.6} +/- {:.2e} au, e = {:.6} +/- {:.1e}, i = {:.5} +/- {:.1e} deg",
+            file.orbit.a_au,
+            file.orbit.sigma_a_au,
+            file.orbit.e,
+            file.orbit.sigma_e,
+            file.orbit.inc_deg,
+            file.orbit.sigma_inc_deg
+        );
+        let _ = writeln!(
+            summary,
+            "  {} of {} observations used ({} set aside); chi-square {:.1} for {} degrees of freedom ({:.3} per degree)",
+            fit.n_used,
+            observations.len(),
+            fit.n_rejected,
+            fit.chi2,
+            fit.dof,
+            chi2_per_dof
+        );
+        let _ = writeln!(
+            summary,
+            "  RMS of the O-C: {:.3}\" in RA*cos(Dec), {:.3}\" in Dec",
+            fit.rms_ra_arcsec, fit.rms_dec_arcsec
+        );
+        let verdict = if p_value > 0.01 {
+            format!("consistent with noise at the stated uncertainties (p = {})", format_p(p_value))
+        } else if p_value > 1e-6 {
+            format!(
+                "marginally larger than the stated uncertainties allow (p = {}): look at the chart",
+                format_p(p_value)
+            )
+        } else {
+            format!(
+                "NOT consistent with noise (p = {}): either the uncertainties are understated, the model misses a force, or the astrometry has systematic errors",
+                format_p(p_value)
+            )
+        };
+        let _ = writeln!(summary, "  The residuals are {verdict}.");
+        let significant = |s: f64, e: f64| if (s / e).abs() > 3.0 { " (significant)" } else { "" };
+        let _ = writeln!(
+            summary,
+            "  Linear trend of the residuals: RA {:+.2} +/- {:.2} mas/yr{}, Dec {:+.2} +/- {:.2} mas/yr{}",
+            file.trend.ra_mas_per_year,
+            file.trend.ra_sigma_mas_per_year,
+            significant(ra_slope, ra_sigma),
+            file.trend.dec_mas_per_year,
+            file.trend.dec_sigma_mas_per_year,
+            significant(dec_slope, dec_sigma)
+        );
+        for w in &fit.warnings {
+            let _ = writeln!(summary, "  warning: {w}");
+        }
+        let chart_title = format!(
+            "O-C residuals: chi2/dof = {chi2_per_dof:.3} ({} dof, p = {}), RMS {:.3}\" / {:.3}\"",
+            fit.dof,
+            format_p(p_value),
+            fit.rms_ra_arcsec,
+            fit.rms_dec_arcsec
+        );
+        let chart_subtitle = format!(
+            "{} observations, {} set aside; orbit fitted under the Sun{}; error bars 1 sigma",
+            observations.len(),
+            fit.n_rejected,
+            if model.known.is_empty() {
+                " alone".to_string()
+            } else {
+                format!(" and {}", model.known.iter().map(|k| k.body.name()).collect::<Vec<_>>().join(", "))
+            }
+        );
+        ResidualProducts {
+            fit_json,
+            residuals_csv: csv,
+            summary,
+            chart_years: years,
+            chart_ra: ra,
+            chart_dec: dec,
+            chart_sra: sra,
+            chart_sdec: sdec,
+            chart_used: used,
+            chart_title,
+            chart_subtitle,
+        }
+    }
+
+    /// Writes the files; each appears whole or not at all.
+    pub(super) fn write(&self, out: &Path) -> anyhow::Result<()> {
+        let chart = ResidualChart {
+            years: &self.chart_years,
+            ra_arcsec: &self.chart_ra,
+            dec_arcsec: &self.chart_dec,
+            sigma_ra_arcsec: &self.chart_sra,
+            sigma_dec_arcsec: &self.chart_sdec,
+            used: &self.chart_used,
+            title: self.chart_title.clone(),
+            subtitle: self.chart_subtitle.clone(),
+        };
+        let svg = chart.draw_svg().map_err(|e| anyhow::anyhow!("drawing the residual chart: {e}"))?;
+        std::fs::create_dir_all(out).with_context(|| format!("creating {}", out.display()))?;
+        // plotters writes PNG files itself: draw to a temporary name, then rename.
+        let png = out.join("residuals.png");
+        let tmp = out.join(format!(".residuals.{}.tmp.png", std::process::id()));
+        chart.draw_png(&tmp).map_err(|e| anyhow::anyhow!("drawing {}: {e}", png.display()))?;
+        std::fs::rename(&tmp, &png).with_context(|| format!("writing {}", png.display()))?;
+        write_atomically(&out.join("residuals.svg"), svg.as_bytes())?;
+        write_atomically(&out.join("residuals.csv"), self.residuals_csv.as_bytes())?;
+        write_atomically(&out.join("fit.json"), self.fit_json.as_bytes())?;
+        Ok(())
+    }
+}

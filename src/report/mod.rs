@@ -1,0 +1,16 @@
+//! Reports: charts and summaries drawn from finished results. Never
+//! propagates an orbit.
+
+pub mod residual_chart;
+
+/// Registers the embedded DejaVu Sans font with plotters once, so charts need
+/// no system font library.
+pub fn register_fonts() {
+    use std::sync::Once;
+    static ONCE: Once = Once::new();
+    ONCE.call_once(|| {
+        let _ =
+            plotters::style::register_font("sans-serif", plotters::style::FontStyle::Normal, dejavu::sans::regular());
+        let _ = plotters::style::register_font("sans-serif", plotters::style::FontStyle::Bold, dejavu::sans::bold());
+    });
+}
