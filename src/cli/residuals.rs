@@ -58,7 +58,7 @@ pub(super) fn force_model(known: &[Body]) -> ForceModel {
     let lists_earth = known.iter().any(|b| matches!(b, Body::Earth | Body::Moon | Body::EarthMoonBarycenter));
     model.folded = INNER
         .iter()
-        .filter(|b| !known.contains(b) && !(lists_earth && **b == Body::EarthMoonBarycenter))
+        .filter(|b| !(known.contains(b) || (lists_earth && **b == Body::EarthMoonBarycenter)))
         .map(|&b| crate::dynamics::KnownBody { body: b, gm_au3_per_day2: b.gm_au3_per_day2() })
         .collect();
     model
