@@ -154,7 +154,7 @@ fn epoch_outside_the_ephemeris() {
 
 #[test]
 fn unknown_site() {
-    let text = format!("{}", with_field(0, 0, "2020-01-10T03:00:00Z"))
+    let text = with_field(0, 0, "2020-01-10T03:00:00Z")
         .replace("sigma_dec_arcsec\n", "sigma_dec_arcsec,site\n")
         .lines()
         .enumerate()
@@ -199,7 +199,7 @@ fn wrong_field_count() {
 
 #[test]
 fn bad_correlation() {
-    let text = format!("{}", with_field(0, 0, "2020-01-10T03:00:00Z"))
+    let text = with_field(0, 0, "2020-01-10T03:00:00Z")
         .replace("sigma_dec_arcsec\n", "sigma_dec_arcsec,corr\n")
         .lines()
         .enumerate()
