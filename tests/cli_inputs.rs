@@ -240,3 +240,33 @@ fn bom_crlf_and_unsorted_rows_are_accepted() {
     let original = std::fs::read(&obs).unwrap();
     assert_eq!(original, text.as_bytes(), "the input was modified");
 }
+
+#[test]
+fn ades_psv_is_read_like_the_csv() {
+    // The same four observations in the IAU ADES pipe-separated form: rmsRA
+    // is already the uncertainty of RA*cos(Dec) (ADES convention), in arcsec.
+    let case = Case::new("ades");
+    let psv = "# version=2017\n# observatory\n! mpcCode 500\n\
+               permID |obsTime                 |ra        |dec      |rmsRA|rmsDec|stn\n\
+               x      |2020-01-10T03:00:00Z    |52.40     |16.70    |0.1  |0.1   |geocenter\n\
+               x      |2020-02-10T03:00:00Z    |52.30     |16.72    |0.1  |0.1   |geocenter\n\
+               x      |2020-03-10T03:00:00Z    |52.25     |16.75    |0.1  |0.1   |geocenter\n\
+               x      |2020-04-10T03:00:00Z    |52.20     |16.78    |0.1  |0.1   |geocenter\n";
+    let sites = latens::io::observations::SiteTable::new();
+    let csv = case.file("obs.csv", format!("{HEADER}{}\n", good_rows()).as_bytes());
+    let from_csv = latens::io::observations::read_observations(&csv, &sites, 3).unwrap();
+    // Lines starting with `#` or `!` before the header are ADES metadata.
+    let ades = case.file("obs.psv", psv.as_bytes());
+    let from_psv = latens::io::observations::read_observations(&ades, &sites, 3).unwrap();
+    assert_eq!(from_csv.len(), from_psv.len());
+    for (a, b) in from_csv.iter().zip(&from_psv) {
+        assert_eq!(
+            (a.epoch, a.ra_rad, a.dec_rad, a.sigma_ra_arcsec),
+            (b.epoch, b.ra_rad, b.dec_rad, b.sigma_ra_arcsec)
+        );
+    }
+    // An ADES file with `permID` etc. but no rmsDec is refused by name.
+    let bad = case.file("bad.psv", b"permID|obsTime|ra|dec|rmsRA\nx|2020-01-10T03:00:00Z|52.4|16.7|0.1\n");
+    let err = latens::io::observations::read_observations(&bad, &sites, 1).unwrap_err().to_string();
+    assert!(err.contains("bad.psv:1") && err.contains("rmsDec"), "{err}");
+}

@@ -76,7 +76,7 @@ impl SiteTable {
         let text = read_text(path)?;
         let table = Table::parse(&text, &file, ',')?;
         let mut sites = SiteTable::new();
-        table.require(&["name", "lon_deg", "lat_deg", "height_m"], &[])?;
+        table.require(&["name", "lon_deg", "lat_deg", "height_m"], &[], false)?;
         for row in &table.rows {
             let name = row.text("name")?.to_string();
             if name.is_empty() {
@@ -131,7 +131,7 @@ pub struct Observation {
 pub fn read_observations(path: &Path, sites: &SiteTable, min_count: usize) -> Result<Vec<Observation>, InputError> {
     let file = path.display().to_string();
     let text = read_text(path)?;
-    let header = text.lines().map(str::trim).find(|l| !l.is_empty() && !l.starts_with('#'));
+    let header = text.lines().map(str::trim).find(|l| !l.is_empty() && !l.starts_with('#') && !l.starts_with('!'));
     let Some(header) = header else {
         return Err(InputError {
             file,
@@ -143,7 +143,9 @@ pub fn read_observations(path: &Path, sites: &SiteTable, min_count: usize) -> Re
     let ades = header.contains('|');
     let table = Table::parse(&text, &file, if ades { '|' } else { ',' })?;
     let names = if ades {
-        table.require(&["obsTime", "ra", "dec", "rmsRA", "rmsDec"], &["stn", "rmsCorr"])?;
+        // ADES defines many more fields (permID, mode, mag, ...): they are
+        // allowed and ignored.
+        table.require(&["obsTime", "ra", "dec", "rmsRA", "rmsDec"], &["stn", "rmsCorr"], true)?;
         ColumnNames {
             epoch: "obsTime",
             ra: "ra",
@@ -154,7 +156,11 @@ pub fn read_observations(path: &Path, sites: &SiteTable, min_count: usize) -> Re
             corr: "rmsCorr",
         }
     } else {
-        table.require(&["epoch_utc", "ra_deg", "dec_deg", "sigma_ra_arcsec", "sigma_dec_arcsec"], &["site", "corr"])?;
+        table.require(
+            &["epoch_utc", "ra_deg", "dec_deg", "sigma_ra_arcsec", "sigma_dec_arcsec"],
+            &["site", "corr"],
+            false,
+        )?;
         ColumnNames {
             epoch: "epoch_utc",
             ra: "ra_deg",
@@ -285,7 +291,8 @@ impl Table {
         for (i, raw) in text.split('\n').enumerate() {
             let line_no = i + 1;
             let line = raw.strip_suffix('\r').unwrap_or(raw).trim();
-            if line.is_empty() || line.starts_with('#') {
+            // `#` starts a comment; in ADES PSV, `!` starts a header keyword line.
+            if line.is_empty() || line.starts_with('#') || (separator == '|' && line.starts_with('!')) {
                 continue;
             }
             let fields: Vec<String> = line.split(separator).map(|f| f.trim().to_string()).collect();
@@ -335,8 +342,9 @@ impl Table {
         Ok(Table { file: file.into(), columns, header_line, rows })
     }
 
-    /// Checks that every `required` column is present and no column is unknown.
-    fn require(&self, required: &[&str], optional: &[&str]) -> Result<(), InputError> {
+    /// Checks that every `required` column is present and, unless
+    /// `allow_other`, that no column is unknown.
+    fn require(&self, required: &[&str], optional: &[&str], allow_other: bool) -> Result<(), InputError> {
         for r in required {
             if !self.columns.iter().any(|c| c == r) {
                 return Err(InputError {
@@ -348,7 +356,7 @@ impl Table {
             }
         }
         for c in &self.columns {
-            if !required.contains(&c.as_str()) && !optional.contains(&c.as_str()) {
+            if !allow_other && !required.contains(&c.as_str()) && !optional.contains(&c.as_str()) {
                 return Err(InputError {
                     file: self.file.clone(),
                     line: self.header_line,
