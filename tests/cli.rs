@@ -38,6 +38,7 @@ fn demo_writes_its_track_and_says_what_it_did() {
     assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
     let stdout = String::from_utf8_lossy(&out.stdout);
     assert!(stdout.contains("Files written") && stdout.contains("not built yet"), "{stdout}");
+    assert!(stdout.contains("consistent with noise"), "{stdout}");
     let track = std::fs::read_to_string(dir.join("track.csv")).unwrap();
     let lines: Vec<&str> = track.lines().collect();
     assert_eq!(
@@ -59,10 +60,23 @@ fn demo_writes_its_track_and_says_what_it_did() {
         // not degrees, and zero only at the reference epoch.
         assert!((0.0..600.0).contains(&nums[6]));
     }
-    // No temporary files left behind.
-    let names: Vec<String> =
+    // Every product is there and no temporary file is left behind.
+    let mut names: Vec<String> =
         std::fs::read_dir(&dir).unwrap().map(|e| e.unwrap().file_name().to_string_lossy().into_owned()).collect();
-    assert_eq!(names, vec!["track.csv".to_string()]);
+    names.sort();
+    assert_eq!(names, ["observations.csv", "residuals", "sites.csv", "track.csv"]);
+    let mut products: Vec<String> = std::fs::read_dir(dir.join("residuals"))
+        .unwrap()
+        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+        .collect();
+    products.sort();
+    assert_eq!(products, ["fit.json", "residuals.csv", "residuals.png", "residuals.svg"]);
+    // The demo's fit of its own simulated survey is consistent with the noise.
+    let fit: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(dir.join("residuals/fit.json")).unwrap()).unwrap();
+    let per_dof = fit["chi2_per_dof"].as_f64().unwrap();
+    assert!((per_dof - 1.0).abs() < 0.2, "chi2/dof {per_dof}");
+    assert!(fit["orbit"]["frame"].as_str().unwrap().contains("ecliptic J2000"));
     std::fs::remove_dir_all(&dir).unwrap();
 }
 

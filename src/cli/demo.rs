@@ -1,9 +1,12 @@
 //! `latens demo`: the built-in invented scenario.
 //!
 //! The scenario is invented: a distant minor body, here called Vesk, followed
-//! by an invented survey. So far the demo runs the stages that exist (times,
-//! frames, the embedded ephemeris, the N-body propagation) and says plainly
-//! what it did and what it did not.
+//! by an invented survey from an invented site. The demo runs the stages that
+//! exist: it propagates Vesk under the Sun and the giant planets, simulates
+//! the survey's astrometry with seeded noise, reads it back as any user's
+//! file would be read, fits the reference orbit (starting from Gauss's
+//! method, not from the truth) and writes the O-C products; and it says
+//! plainly what it has not done yet.
 
 use std::fmt::Write as _;
 
@@ -11,13 +14,18 @@ use anyhow::Context;
 
 use super::CliError;
 use super::args::DemoArgs;
+use super::residuals::ResidualProducts;
+use crate::astrometry::ObservingGeometry;
 use crate::dynamics::kepler::{Elements, elements_from_state, propagate, state_from_elements};
 use crate::dynamics::{ForceModel, InitialState, PropagationSettings, Propagator};
 use crate::ephemeris::{Body, Ephemeris, Vsop87};
 use crate::frames::{angular_separation, ecliptic_from_icrf, icrf_from_ecliptic, radec_from_vector};
+use crate::io::observations::{Observation, SiteTable, read_observations};
 use crate::io::write_atomically;
+use crate::reference::{OrbitModel, ReferenceSettings, fit_reference_orbit, observing_geometry};
 use crate::time::{epoch_from_tdb_days, parse_epoch, tdb_days_from_j2000, utc_iso_from_epoch};
 use crate::units::{GM_SUN_AU3_PER_DAY2, RAD_PER_ARCSEC, RAD_PER_DEG};
+use crate::vec3::Vec3;
 
 /// The invented tracked body's osculating heliocentric elements (ecliptic
 /// J2000) at the scenario's reference epoch.
@@ -119,6 +127,25 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
     let track_path = args.out.join("track.csv");
     write_atomically(&track_path, csv.as_bytes()).context("writing the demo track").map_err(CliError::failed)?;
 
+    // The invented survey: an invented site, a visit every 6 days while Vesk
+    // is more than 100 degrees from the Sun, 0.08" astrometry (seeded).
+    let survey = simulate_survey(&initial, &model, &ephemeris, t_start, t_end, &args.out)?;
+    let sites = SiteTable::read(&survey.sites_path).map_err(CliError::failed)?;
+    let observations = read_observations(&survey.observations_path, &sites, 3).map_err(CliError::failed)?;
+    let fit = fit_reference_orbit(
+        &observations,
+        &sites,
+        &model,
+        &ephemeris,
+        &ReferenceSettings { epoch_tdb_days: Some(t_ref), ..ReferenceSettings::default() },
+        None,
+    )
+    .map_err(CliError::failed)?;
+    let products = ResidualProducts::build(&fit, &observations, &model, ephemeris.description());
+    let residual_dir = args.out.join("residuals");
+    products.write(&residual_dir).map_err(CliError::failed)?;
+    let recovered = Vec3::new(fit.state[0], fit.state[1], fit.state[2]);
+
     // Round trip of the elements through the ICRF state, as a visible check.
     let back = elements_from_state(GM_SUN_AU3_PER_DAY2, ecliptic_from_icrf(r0), ecliptic_from_icrf(v0))
         .map_err(CliError::failed)?;
@@ -143,13 +170,130 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
         "  the giant planets move {} by up to {largest_shift_arcsec:.1} arcsec from a two-body orbit about the Sun",
         body.name
     );
-    println!("What this demo did not do yet: light time, observations with noise, the orbit fit, the perturber");
-    println!("search and the search products. Those stages are not built yet; positions here are geometric.");
+    println!(
+        "  simulated {} observations from the invented site {} with {SURVEY_SIGMA_ARCSEC}\" noise (seed {SURVEY_SEED})",
+        observations.len(),
+        SURVEY_SITE.0
+    );
+    println!("  fitted the reference orbit from the observations alone ({}):", fit.start);
+    for line in products.summary.lines() {
+        println!("  {line}");
+    }
+    println!(
+        "  the fitted position at the reference epoch is {:.0} km from the true one",
+        (recovered - r0).norm() * crate::units::AU_KM
+    );
+    println!("What this demo did not do yet: the perturber search, the posterior, the search products and the");
+    println!("sensitivity map. Those stages are not built yet.");
     println!("Files written:");
     println!(
         "  {}  geocentric RA/Dec (ICRF), distances, solar elongation and the planets' shift of {} at each visit",
         track_path.display(),
         body.name
     );
+    println!("  {}  the simulated survey astrometry (Latens CSV)", survey.observations_path.display());
+    println!("  {}  the invented observing site", survey.sites_path.display());
+    println!(
+        "  {}/fit.json, residuals.csv, residuals.png, residuals.svg  the fitted orbit and its O-C",
+        residual_dir.display()
+    );
     Ok(())
+}
+
+/// The invented observing site: name, east longitude (deg), latitude (deg), height (m).
+const SURVEY_SITE: (&str, f64, f64, f64) = ("tessel-peak", -70.21, -30.47, 2380.0);
+const SURVEY_SIGMA_ARCSEC: f64 = 0.08;
+const SURVEY_SEED: u64 = 2026;
+const SURVEY_CADENCE_DAYS: f64 = 6.0;
+
+struct Survey {
+    observations_path: std::path::PathBuf,
+    sites_path: std::path::PathBuf,
+}
+
+/// Simulates the invented survey's astrometry of the tracked body with the
+/// same model the fit uses, adds seeded Gaussian noise, and writes the
+/// observations and the site as input files.
+fn simulate_survey(
+    initial: &InitialState,
+    model: &ForceModel,
+    ephemeris: &dyn Ephemeris,
+    t_start: f64,
+    t_end: f64,
+    out: &std::path::Path,
+) -> Result<Survey, CliError> {
+    use rand::SeedableRng;
+    use rand_distr::{Distribution, Normal};
+
+    let (name, lon, lat, height) = SURVEY_SITE;
+    let mut sites = SiteTable::new();
+    sites.insert(crate::io::observations::Site { name: name.into(), lon_deg: lon, lat_deg: lat, height_m: height });
+
+    // Candidate nights, kept when the body is well away from the Sun.
+    let mut observations = Vec::new();
+    let mut t = t_start;
+    let mut k = 0u32;
+    while t <= t_end {
+        // Vary the time of night a little from visit to visit.
+        let when = t + 0.05 * f64::from(k % 5);
+        let epoch = epoch_from_tdb_days(when);
+        observations.push(Observation {
+            t_tdb_days: tdb_days_from_j2000(epoch),
+            epoch,
+            ra_rad: 0.0,
+            dec_rad: 0.0,
+            sigma_ra_arcsec: SURVEY_SIGMA_ARCSEC,
+            sigma_dec_arcsec: SURVEY_SIGMA_ARCSEC,
+            corr: 0.0,
+            site: name.into(),
+            source: "simulation".into(),
+            epoch_text: utc_iso_from_epoch(epoch),
+        });
+        t += SURVEY_CADENCE_DAYS;
+        k += 1;
+    }
+    let geometry: Vec<ObservingGeometry> =
+        observing_geometry(&observations, &sites, ephemeris).map_err(CliError::failed)?;
+    let mut truth = OrbitModel::new(&observations, geometry.clone(), initial.t0_tdb_days, model, ephemeris)
+        .map_err(CliError::failed)?;
+    let state = [
+        initial.tracked_position_au.x,
+        initial.tracked_position_au.y,
+        initial.tracked_position_au.z,
+        initial.tracked_velocity_au_per_day.x,
+        initial.tracked_velocity_au_per_day.y,
+        initial.tracked_velocity_au_per_day.z,
+    ];
+    // Twice, so the light-time epochs have converged.
+    truth.predict(&state, false).map_err(CliError::failed)?;
+    let predicted = truth.predict(&state, false).map_err(CliError::failed)?;
+    let mut rng = rand::rngs::StdRng::seed_from_u64(SURVEY_SEED);
+    let noise = Normal::new(0.0, SURVEY_SIGMA_ARCSEC).map_err(|e| CliError::failed(anyhow::anyhow!("{e}")))?;
+    let mut csv = String::from(
+        "# Invented survey of the invented body Vesk (latens demo); 0.08 arcsec Gaussian noise, seed 2026\n",
+    );
+    csv.push_str("epoch_utc,ra_deg,dec_deg,sigma_ra_arcsec,sigma_dec_arcsec,site\n");
+    let mut written = 0;
+    for ((o, p), g) in observations.iter().zip(&predicted).zip(&geometry) {
+        let sun = -g.observer_au;
+        let elongation = angular_separation(p.rho_au, sun) / RAD_PER_DEG;
+        if elongation < 100.0 {
+            continue;
+        }
+        let dra = noise.sample(&mut rng) * RAD_PER_ARCSEC / p.radec.dec_rad.cos();
+        let ddec = noise.sample(&mut rng) * RAD_PER_ARCSEC;
+        let ra = crate::units::wrap_two_pi(p.radec.ra_rad + dra) / RAD_PER_DEG;
+        let dec = (p.radec.dec_rad + ddec) / RAD_PER_DEG;
+        let _ = writeln!(csv, "{},{ra:.9},{dec:.9},{SURVEY_SIGMA_ARCSEC},{SURVEY_SIGMA_ARCSEC},{name}", o.epoch_text);
+        written += 1;
+    }
+    if written < 3 {
+        return Err(CliError::failed(anyhow::anyhow!("the simulated survey saw the body only {written} times")));
+    }
+    let observations_path = out.join("observations.csv");
+    let sites_path = out.join("sites.csv");
+    write_atomically(&observations_path, csv.as_bytes()).map_err(CliError::failed)?;
+    let sites_csv = format!("name,lon_deg,lat_deg,height_m\n{name},{lon},{lat},{height}\n");
+    write_atomically(&sites_path, sites_csv.as_bytes()).map_err(CliError::failed)?;
+    Ok(Survey { observations_path, sites_path })
 }

@@ -155,7 +155,7 @@ pub(super) fn run(args: &ResidualsArgs) -> Result<(), CliError> {
 
 /// Everything `latens residuals` writes, built in memory before any file is
 /// touched.
-pub(super) struct ResidualProducts {
+pub(crate) struct ResidualProducts {
     pub fit_json: String,
     pub residuals_csv: String,
     pub summary: String,
@@ -203,7 +203,7 @@ fn trend(years: &[f64], values: &[f64], sigmas: &[f64], used: &[bool]) -> (f64, 
 }
 
 impl ResidualProducts {
-    pub(super) fn build(
+    pub(crate) fn build(
         fit: &ReferenceFit,
         observations: &[Observation],
         model: &ForceModel,
@@ -237,7 +237,7 @@ impl ResidualProducts {
             folded_into_sun: model.folded.iter().map(|k| k.body.name().to_string()).collect(),
             ephemeris,
             orbit: OrbitFile {
-                frame: "elements: heliocentric osculating, ecliptic and equinox J2000 (IAU 2006), GM of the Sun; state: heliocentric ICRF".into(),
+                frame: "elements: heliocentric ecliptic J2000 (IAU 2006 mean ecliptic and equinox), osculating, GM of the Sun; state: heliocentric ICRF".into(),
                 epoch_tdb_jd: J2000_JD + fit.epoch_tdb_days,
                 epoch_utc: utc_iso_from_epoch(epoch_from_tdb_days(fit.epoch_tdb_days)),
                 a_au: el.semi_major_axis_au(),
@@ -374,7 +374,7 @@ impl ResidualProducts {
     }
 
     /// Writes the files; each appears whole or not at all.
-    pub(super) fn write(&self, out: &Path) -> anyhow::Result<()> {
+    pub(crate) fn write(&self, out: &Path) -> anyhow::Result<()> {
         let chart = ResidualChart {
             years: &self.chart_years,
             ra_arcsec: &self.chart_ra,
