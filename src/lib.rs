@@ -14,8 +14,10 @@
 //!   integrator, propagation with variational equations.
 //! - [`fit`]: Levenberg-Marquardt least squares (knows nothing of orbits).
 //! - [`reference`]: the reference orbit fit and its O-C residuals.
+//! - [`perturber`]: the perturber search (linearised kernel, grid, detection).
 //! - [`astrometry`]: the observation model (light time, observing sites).
 //! - [`io`]: reading observations, writing output files safely.
+//! - [`simulate`]: simulated survey astrometry with seeded noise.
 //! - [`report`]: charts from finished results.
 //! - [`cli`]: the command line; the only module that prints.
 
@@ -26,8 +28,10 @@ pub mod ephemeris;
 pub mod fit;
 pub mod frames;
 pub mod io;
+pub mod perturber;
 pub mod reference;
 pub mod report;
+pub mod simulate;
 pub mod stats;
 pub mod time;
 pub mod units;

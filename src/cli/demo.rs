@@ -15,14 +15,14 @@ use anyhow::Context;
 use super::CliError;
 use super::args::DemoArgs;
 use super::residuals::ResidualProducts;
-use crate::astrometry::ObservingGeometry;
 use crate::dynamics::kepler::{Elements, elements_from_state, propagate, state_from_elements};
 use crate::dynamics::{ForceModel, InitialState, PropagationSettings, Propagator};
 use crate::ephemeris::{Body, Ephemeris, Vsop87};
 use crate::frames::{angular_separation, ecliptic_from_icrf, icrf_from_ecliptic, radec_from_vector};
-use crate::io::observations::{Observation, SiteTable, read_observations};
+use crate::io::observations::{SiteTable, read_observations};
 use crate::io::write_atomically;
-use crate::reference::{OrbitModel, ReferenceSettings, fit_reference_orbit, observing_geometry};
+use crate::reference::{ReferenceSettings, fit_reference_orbit};
+use crate::simulate::{SurveyPlan, simulate_survey};
 use crate::time::{epoch_from_tdb_days, parse_epoch, tdb_days_from_j2000, utc_iso_from_epoch};
 use crate::units::{GM_SUN_AU3_PER_DAY2, RAD_PER_ARCSEC, RAD_PER_DEG};
 use crate::vec3::Vec3;
@@ -129,7 +129,7 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
 
     // The invented survey: an invented site, a visit every 6 days while Vesk
     // is more than 100 degrees from the Sun, 0.08" astrometry (seeded).
-    let survey = simulate_survey(&initial, &model, &ephemeris, t_start, t_end, &args.out)?;
+    let survey = simulate_survey_files(&initial, &model, &ephemeris, t_start, t_end, &args.out)?;
     let sites = SiteTable::read(&survey.sites_path).map_err(CliError::failed)?;
     let observations = read_observations(&survey.observations_path, &sites, 3).map_err(CliError::failed)?;
     let fit = fit_reference_orbit(
@@ -211,10 +211,10 @@ struct Survey {
     sites_path: std::path::PathBuf,
 }
 
-/// Simulates the invented survey's astrometry of the tracked body with the
-/// same model the fit uses, adds seeded Gaussian noise, and writes the
-/// observations and the site as input files.
-fn simulate_survey(
+/// Simulates the invented survey (a visit every 6 days, varied a little in
+/// time of night, kept while the body is over 100 degrees from the Sun) and
+/// writes the observations and the site as input files.
+fn simulate_survey_files(
     initial: &InitialState,
     model: &ForceModel,
     ephemeris: &dyn Ephemeris,
@@ -222,73 +222,40 @@ fn simulate_survey(
     t_end: f64,
     out: &std::path::Path,
 ) -> Result<Survey, CliError> {
-    use rand::SeedableRng;
-    use rand_distr::{Distribution, Normal};
-
     let (name, lon, lat, height) = SURVEY_SITE;
     let mut sites = SiteTable::new();
     sites.insert(crate::io::observations::Site { name: name.into(), lon_deg: lon, lat_deg: lat, height_m: height });
-
-    // Candidate nights, kept when the body is well away from the Sun.
-    let mut observations = Vec::new();
+    let mut times = Vec::new();
     let mut t = t_start;
     let mut k = 0u32;
     while t <= t_end {
-        // Vary the time of night a little from visit to visit.
-        let when = t + 0.05 * f64::from(k % 5);
-        let epoch = epoch_from_tdb_days(when);
-        observations.push(Observation {
-            t_tdb_days: tdb_days_from_j2000(epoch),
-            epoch,
-            ra_rad: 0.0,
-            dec_rad: 0.0,
-            sigma_ra_arcsec: SURVEY_SIGMA_ARCSEC,
-            sigma_dec_arcsec: SURVEY_SIGMA_ARCSEC,
-            corr: 0.0,
-            site: name.into(),
-            source: "simulation".into(),
-            epoch_text: utc_iso_from_epoch(epoch),
-        });
+        times.push(t + 0.05 * f64::from(k % 5));
         t += SURVEY_CADENCE_DAYS;
         k += 1;
     }
-    let geometry: Vec<ObservingGeometry> =
-        observing_geometry(&observations, &sites, ephemeris).map_err(CliError::failed)?;
-    let mut truth = OrbitModel::new(&observations, geometry.clone(), initial.t0_tdb_days, model, ephemeris)
-        .map_err(CliError::failed)?;
-    let state = [
-        initial.tracked_position_au.x,
-        initial.tracked_position_au.y,
-        initial.tracked_position_au.z,
-        initial.tracked_velocity_au_per_day.x,
-        initial.tracked_velocity_au_per_day.y,
-        initial.tracked_velocity_au_per_day.z,
-    ];
-    // Twice, so the light-time epochs have converged.
-    truth.predict(&state, false).map_err(CliError::failed)?;
-    let predicted = truth.predict(&state, false).map_err(CliError::failed)?;
-    let mut rng = rand::rngs::StdRng::seed_from_u64(SURVEY_SEED);
-    let noise = Normal::new(0.0, SURVEY_SIGMA_ARCSEC).map_err(|e| CliError::failed(anyhow::anyhow!("{e}")))?;
+    let plan = SurveyPlan {
+        times_tdb_days: times,
+        site: name.into(),
+        sigma_arcsec: SURVEY_SIGMA_ARCSEC,
+        min_elongation_deg: 100.0,
+        seed: SURVEY_SEED,
+    };
+    let observations = simulate_survey(&plan, initial, model, ephemeris, &sites).map_err(CliError::failed)?;
     let mut csv = String::from(
         "# Invented survey of the invented body Vesk (latens demo); 0.08 arcsec Gaussian noise, seed 2026\n",
     );
     csv.push_str("epoch_utc,ra_deg,dec_deg,sigma_ra_arcsec,sigma_dec_arcsec,site\n");
-    let mut written = 0;
-    for ((o, p), g) in observations.iter().zip(&predicted).zip(&geometry) {
-        let sun = -g.observer_au;
-        let elongation = angular_separation(p.rho_au, sun) / RAD_PER_DEG;
-        if elongation < 100.0 {
-            continue;
-        }
-        let dra = noise.sample(&mut rng) * RAD_PER_ARCSEC / p.radec.dec_rad.cos();
-        let ddec = noise.sample(&mut rng) * RAD_PER_ARCSEC;
-        let ra = crate::units::wrap_two_pi(p.radec.ra_rad + dra) / RAD_PER_DEG;
-        let dec = (p.radec.dec_rad + ddec) / RAD_PER_DEG;
-        let _ = writeln!(csv, "{},{ra:.9},{dec:.9},{SURVEY_SIGMA_ARCSEC},{SURVEY_SIGMA_ARCSEC},{name}", o.epoch_text);
-        written += 1;
-    }
-    if written < 3 {
-        return Err(CliError::failed(anyhow::anyhow!("the simulated survey saw the body only {written} times")));
+    for o in &observations {
+        let _ = writeln!(
+            csv,
+            "{},{:.9},{:.9},{},{},{}",
+            o.epoch_text,
+            o.ra_rad / RAD_PER_DEG,
+            o.dec_rad / RAD_PER_DEG,
+            o.sigma_ra_arcsec,
+            o.sigma_dec_arcsec,
+            o.site
+        );
     }
     let observations_path = out.join("observations.csv");
     let sites_path = out.join("sites.csv");

@@ -57,6 +57,11 @@ impl<'a> OrbitModel<'a> {
         })
     }
 
+    /// The current light-time emission epochs (TDB days), one per observation.
+    pub fn emission_epochs(&self) -> &[f64] {
+        &self.emission
+    }
+
     /// Predictions for a heliocentric ICRF state (x, y, z, vx, vy, vz) at the
     /// reference epoch.
     pub fn predict(&mut self, state: &[f64], partials: bool) -> Result<Vec<Prediction>, PropagationError> {

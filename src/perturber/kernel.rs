@@ -1,0 +1,435 @@
+//! The linearised, orbit-marginalised kernel: the O-C signal of a perturber
+//! hypothesis to first order in its mass, at a cost of one pass over a fixed
+//! time grid.
+//!
+//! To first order in the perturber's GM m, the tracked body's extra
+//! displacement is
+//!
+//!   dx(t) = Phi(t, t0) [ dx0 + integral_t0^t Psi(s) a(s) ds ],
+//!   Psi(s) = Phi(s, t0)^-1 B,  B = [0; I],
+//!
+//! with Phi the state-transition matrix of the reference orbit and a(s) the
+//! perturber's direct plus indirect acceleration per unit GM,
+//! f(r_p - r) - f(r_p), f(d) = d / |d|^3. The flow is Hamiltonian, so Phi is
+//! symplectic and Phi^-1 B = [-B'^T; A^T] with A = dr/dr0 and B' = dr/dv0: no
+//! inversion is needed.
+//!
+//! The integral is a composite 4-point Gauss-Legendre rule on equal panels
+//! (at least 24, and one per year of arc); the running integral at an
+//! observation inside a panel uses the integrated Lagrange basis of that
+//! panel's nodes, so observations need no nodes of their own. The orbit
+//! correction dx0 enters linearly and is projected out: the whitened signal
+//! is made orthogonal to the whitened orbit Jacobian (6 columns), and the
+//! mass is then profiled in closed form, m = (s.y)/(s.s) with m >= 0, giving
+//! the chi-square drop (s.y)^2/(s.s).
+//!
+//! The perturber moves on a two-body orbit about the Sun from its state at
+//! t0 (the giants' pull on it is ignored here, a 0.3% effect on the signal;
+//! the nonlinear refinement includes it).
+
+// The loops below index several arrays in step, as the equations do; the
+// iterator forms clippy suggests would hide that.
+#![allow(clippy::needless_range_loop)]
+
+use crate::astrometry::radec_partials;
+use crate::dynamics::{ForceModel, InitialState, PropagationError, PropagationSettings, Propagator};
+use crate::ephemeris::Ephemeris;
+use crate::io::observations::Observation;
+use crate::reference::{OrbitModel, ReferenceFit, whiten};
+use crate::units::RAD_PER_ARCSEC;
+use crate::vec3::Vec3;
+
+/// Gauss-Legendre 4-point abscissae and weights on [-1, 1] (Abramowitz &
+/// Stegun table 25.4; from memory, checked in the tests by exact integration
+/// of polynomials up to degree 7).
+const GL4_X: [f64; 4] =
+    [-0.861_136_311_594_052_6, -0.339_981_043_584_856_3, 0.339_981_043_584_856_3, 0.861_136_311_594_052_6];
+const GL4_W: [f64; 4] =
+    [0.347_854_845_137_453_9, 0.652_145_154_862_546_1, 0.652_145_154_862_546_1, 0.347_854_845_137_453_9];
+
+/// A perturber on a two-body orbit, ready for fast positions: elements of an
+/// ellipse about the Sun (hyperbolic and parabolic hypotheses are not used by
+/// the search).
+#[derive(Clone, Copy, Debug)]
+pub struct KeplerOrbit {
+    a: f64,
+    e: f64,
+    /// Unit vector to periapsis and the in-plane normal to it (ICRF).
+    p: Vec3,
+    q: Vec3,
+    mean_motion: f64,
+    mean_anomaly_t0: f64,
+    t0: f64,
+}
+
+impl KeplerOrbit {
+    /// From a heliocentric ICRF state at `t0`; `None` for an unbound or
+    /// degenerate state.
+    pub fn from_state(gm: f64, r: Vec3, v: Vec3, t0: f64) -> Option<KeplerOrbit> {
+        let h = r.cross(v);
+        let rn = r.norm();
+        let energy = 0.5 * v.norm_squared() - gm / rn;
+        if energy >= 0.0 || h.norm() == 0.0 {
+            return None;
+        }
+        let a = -gm / (2.0 * energy);
+        let e_vec = (r * (v.norm_squared() - gm / rn) - v * r.dot(v)) / gm;
+        let e = e_vec.norm();
+        if e >= 1.0 {
+            return None;
+        }
+        let w = h.unit();
+        // For a circular orbit the periapsis direction is arbitrary: take r.
+        let p = if e > 1e-12 { e_vec / e } else { r / rn };
+        let q = w.cross(p);
+        // Eccentric anomaly at t0 from r = a (cos E - e) p + a sqrt(1-e^2) sin E q.
+        let b = a * (1.0 - e * e).sqrt();
+        let big_e = (r.dot(q) / b).atan2(r.dot(p) / a + e);
+        let m0 = big_e - e * big_e.sin();
+        Some(KeplerOrbit { a, e, p, q, mean_motion: (gm / (a * a * a)).sqrt(), mean_anomaly_t0: m0, t0 })
+    }
+
+    /// Position at `t`, with `guess` the eccentric anomaly of a nearby time
+    /// (updated to this one's).
+    #[inline]
+    pub fn position(&self, t: f64, guess: &mut f64) -> Vec3 {
+        let m = self.mean_anomaly_t0 + self.mean_motion * (t - self.t0);
+        let e = self.e;
+        let mut big_e = if guess.is_finite() {
+            *guess + (m - (*guess - e * guess.sin())) / (1.0 - e * guess.cos())
+        } else {
+            m + e * m.sin()
+        };
+        for _ in 0..30 {
+            let (s, c) = big_e.sin_cos();
+            let f = big_e - e * s - m;
+            let d = f / (1.0 - e * c);
+            big_e -= d;
+            if d.abs() < 1e-14 {
+                break;
+            }
+        }
+        *guess = big_e;
+        let (s, c) = big_e.sin_cos();
+        self.p * (self.a * (c - e)) + self.q * (self.a * (1.0 - e * e).sqrt() * s)
+    }
+}
+
+/// Everything about the reference orbit the kernel needs, computed once.
+pub struct LinearKernel {
+    pub epoch_tdb_days: f64,
+    /// Quadrature nodes: times, tracked-body positions, Psi (6 x 3 rows).
+    node_t: Vec<f64>,
+    node_r: Vec<Vec3>,
+    node_psi: Vec<[[f64; 3]; 6]>,
+    /// Panel length (days) and the start of the first panel.
+    panel_days: f64,
+    first_t: f64,
+    n_panels: usize,
+    /// Per observation: its panel and the weights of that panel's 4 nodes in
+    /// the integral from the panel start to the observation.
+    obs_panel: Vec<usize>,
+    obs_w: Vec<[f64; 4]>,
+    /// Per observation: whitened d(obs)/d(state at epoch), 2 x 6.
+    obs_m: Vec<[[f64; 6]; 2]>,
+    /// Orthonormal basis of the orbit-correction space (6 columns of length 2N).
+    basis: Vec<Vec<f64>>,
+    /// Whitened null residuals (0 for set-aside observations).
+    pub residuals: Vec<f64>,
+    pub used: Vec<bool>,
+    gm_sun: f64,
+}
+
+impl LinearKernel {
+    /// Builds the kernel around a fitted reference orbit.
+    pub fn build(
+        fit: &ReferenceFit,
+        observations: &[Observation],
+        geometry: Vec<crate::astrometry::ObservingGeometry>,
+        model: &ForceModel,
+        ephemeris: &dyn Ephemeris,
+    ) -> Result<LinearKernel, PropagationError> {
+        let t0 = fit.epoch_tdb_days;
+        // Light-time epochs and predicted directions of the reference orbit.
+        let mut orbit = OrbitModel::new(observations, geometry, t0, model, ephemeris)?;
+        orbit.predict(&fit.state, false)?;
+        let pred = orbit.predict(&fit.state, false)?;
+        let emission = orbit.emission_epochs().to_vec();
+
+        let lo = emission.iter().copied().fold(t0, f64::min) - 1.0;
+        let hi = emission.iter().copied().fold(t0, f64::max) + 1.0;
+        let years = (hi - lo) / 365.25;
+        let n_panels = (years.ceil() as usize).max(24);
+        let panel_days = (hi - lo) / n_panels as f64;
+        let mut node_t = Vec::with_capacity(4 * n_panels);
+        for p in 0..n_panels {
+            let a = lo + p as f64 * panel_days;
+            for x in GL4_X {
+                node_t.push(a + 0.5 * (1.0 + x) * panel_days);
+            }
+        }
+        // One propagation with partials to the nodes and the emission epochs.
+        let mut epochs = node_t.clone();
+        epochs.extend_from_slice(&emission);
+        let settings = PropagationSettings { partials: true, ..PropagationSettings::fast() };
+        let mut prop = Propagator::new(model, ephemeris, settings)?;
+        let init = InitialState {
+            t0_tdb_days: t0,
+            tracked_position_au: Vec3::new(fit.state[0], fit.state[1], fit.state[2]),
+            tracked_velocity_au_per_day: Vec3::new(fit.state[3], fit.state[4], fit.state[5]),
+            perturbers: vec![],
+        };
+        let traj = prop.propagate(&init, &epochs)?;
+        let np = traj.n_params;
+        let block = |e: usize, row: usize, col: usize| traj.tracked_partial(e, row, col);
+        let _ = np;
+        let mut node_r = Vec::with_capacity(node_t.len());
+        let mut node_psi = Vec::with_capacity(node_t.len());
+        for e in 0..node_t.len() {
+            node_r.push(traj.tracked[e].position_au);
+            // Psi = [-B'^T; A^T], A = dr/dr0, B' = dr/dv0.
+            let mut psi = [[0.0; 3]; 6];
+            for i in 0..3 {
+                for j in 0..3 {
+                    psi[i][j] = -block(e, j, 3 + i);
+                    psi[3 + i][j] = block(e, j, i);
+                }
+            }
+            node_psi.push(psi);
+        }
+        let nn = node_t.len();
+        let n = observations.len();
+        let mut obs_panel = Vec::with_capacity(n);
+        let mut obs_w = Vec::with_capacity(n);
+        let mut obs_m = Vec::with_capacity(n);
+        for k in 0..n {
+            let t = emission[k];
+            let p = (((t - lo) / panel_days).floor() as usize).min(n_panels - 1);
+            let u = (t - (lo + p as f64 * panel_days)) / panel_days;
+            obs_panel.push(p);
+            obs_w.push(partial_weights(u).map(|w| w * panel_days));
+            let (pa, pd) = radec_partials(pred[k].rho_au);
+            let mut rows = [[0.0; 6]; 2];
+            for j in 0..6 {
+                let col = [block(nn + k, 0, j), block(nn + k, 1, j), block(nn + k, 2, j)];
+                let ra = (pa[0] * col[0] + pa[1] * col[1] + pa[2] * col[2]) / RAD_PER_ARCSEC;
+                let de = (pd[0] * col[0] + pd[1] * col[1] + pd[2] * col[2]) / RAD_PER_ARCSEC;
+                let (w1, w2) = whiten(&observations[k], (ra, de));
+                rows[0][j] = w1;
+                rows[1][j] = w2;
+            }
+            obs_m.push(rows);
+        }
+        let used: Vec<bool> = fit.residuals.iter().map(|r| r.used).collect();
+        let mut residuals = vec![0.0; 2 * n];
+        for k in 0..n {
+            if used[k] {
+                let w = whiten(&observations[k], (fit.residuals[k].ra_arcsec, fit.residuals[k].dec_arcsec));
+                residuals[2 * k] = w.0;
+                residuals[2 * k + 1] = w.1;
+            }
+        }
+        // Orthonormal basis of the orbit Jacobian's columns (used rows only),
+        // by modified Gram-Schmidt applied twice.
+        let mut basis: Vec<Vec<f64>> = Vec::with_capacity(6);
+        for j in 0..6 {
+            let mut col = vec![0.0; 2 * n];
+            for k in 0..n {
+                if used[k] {
+                    col[2 * k] = obs_m[k][0][j];
+                    col[2 * k + 1] = obs_m[k][1][j];
+                }
+            }
+            for _ in 0..2 {
+                for b in &basis {
+                    let d = dot(&col, b);
+                    col.iter_mut().zip(b).for_each(|(c, bv)| *c -= d * bv);
+                }
+            }
+            let norm = dot(&col, &col).sqrt();
+            if norm > 0.0 {
+                col.iter_mut().for_each(|c| *c /= norm);
+                basis.push(col);
+            }
+        }
+        Ok(LinearKernel {
+            epoch_tdb_days: t0,
+            node_t,
+            node_r,
+            node_psi,
+            panel_days,
+            first_t: lo,
+            n_panels,
+            obs_panel,
+            obs_w,
+            obs_m,
+            basis,
+            residuals,
+            used,
+            gm_sun: model.central_gm_au3_per_day2(),
+        })
+    }
+
+    pub fn n_residuals(&self) -> usize {
+        self.residuals.len()
+    }
+
+    /// Number of quadrature nodes.
+    pub fn n_nodes(&self) -> usize {
+        self.node_t.len()
+    }
+
+    /// GM of the central mass used for perturber orbits.
+    pub fn central_gm(&self) -> f64 {
+        self.gm_sun
+    }
+
+    /// The whitened O-C signal per unit perturber GM (au^3/day^2) of a
+    /// perturber on `orbit`, with the tracked body's orbit correction not yet
+    /// removed, into `out` (length 2N). Returns the closest approach to the
+    /// tracked body at the nodes, au.
+    pub fn signal(&self, orbit: &KeplerOrbit, out: &mut [f64]) -> f64 {
+        let mut guess = f64::NAN;
+        let mut closest = f64::INFINITY;
+        let mut g = vec![[0.0f64; 6]; self.node_t.len()];
+        for (i, &t) in self.node_t.iter().enumerate() {
+            let rp = orbit.position(t, &mut guess);
+            let d = rp - self.node_r[i];
+            let dn2 = d.norm_squared();
+            closest = closest.min(dn2);
+            let rp2 = rp.norm_squared();
+            let acc = d / (dn2 * dn2.sqrt()) - rp / (rp2 * rp2.sqrt());
+            let psi = &self.node_psi[i];
+            for (gi, row) in g[i].iter_mut().zip(psi) {
+                *gi = row[0] * acc.x + row[1] * acc.y + row[2] * acc.z;
+            }
+        }
+        // Cumulative integral at each panel start.
+        let mut starts = vec![[0.0f64; 6]; self.n_panels + 1];
+        for p in 0..self.n_panels {
+            let mut s = starts[p];
+            for (j, w) in GL4_W.iter().enumerate() {
+                let gi = &g[4 * p + j];
+                let w = 0.5 * w * self.panel_days;
+                for c in 0..6 {
+                    s[c] += w * gi[c];
+                }
+            }
+            starts[p + 1] = s;
+        }
+        for (k, (&p, w)) in self.obs_panel.iter().zip(&self.obs_w).enumerate() {
+            let mut integral = starts[p];
+            for j in 0..4 {
+                let gi = &g[4 * p + j];
+                for c in 0..6 {
+                    integral[c] += w[j] * gi[c];
+                }
+            }
+            if self.used[k] {
+                let m = &self.obs_m[k];
+                out[2 * k] = (0..6).map(|c| m[0][c] * integral[c]).sum();
+                out[2 * k + 1] = (0..6).map(|c| m[1][c] * integral[c]).sum();
+            } else {
+                out[2 * k] = 0.0;
+                out[2 * k + 1] = 0.0;
+            }
+        }
+        let _ = self.first_t;
+        closest.sqrt()
+    }
+
+    /// Removes the orbit-correction component from a whitened signal.
+    pub fn project(&self, signal: &mut [f64]) {
+        for b in &self.basis {
+            let d = dot(signal, b);
+            signal.iter_mut().zip(b).for_each(|(s, bv)| *s -= d * bv);
+        }
+    }
+
+    /// Profiles the mass for a projected signal: the chi-square drop and the
+    /// best GM, with the GM confined to [0, gm_max].
+    pub fn profile(&self, projected: &[f64], gm_max: f64) -> (f64, f64) {
+        let sy = dot(projected, &self.residuals);
+        let ss = dot(projected, projected);
+        if sy <= 0.0 || ss <= 0.0 {
+            return (0.0, 0.0);
+        }
+        let gm = (sy / ss).min(gm_max);
+        // chi2 drop for gm: 2 gm sy - gm^2 ss.
+        (2.0 * gm * sy - gm * gm * ss, gm)
+    }
+}
+
+fn dot(a: &[f64], b: &[f64]) -> f64 {
+    a.iter().zip(b).map(|(x, y)| x * y).sum()
+}
+
+/// Integrals from 0 to u (u in [0, 1]) of the Lagrange basis polynomials on
+/// the panel's 4 Gauss-Legendre nodes (in panel units).
+fn partial_weights(u: f64) -> [f64; 4] {
+    let nodes: [f64; 4] = GL4_X.map(|x| 0.5 * (1.0 + x));
+    let mut out = [0.0; 4];
+    for j in 0..4 {
+        // Coefficients of L_j(u) = prod_{m != j} (u - u_m) / (u_j - u_m).
+        let mut poly = [1.0, 0.0, 0.0, 0.0];
+        let mut denom = 1.0;
+        let mut degree = 0;
+        for m in 0..4 {
+            if m == j {
+                continue;
+            }
+            let mut next = [0.0; 4];
+            for d in 0..=degree {
+                next[d + 1] += poly[d];
+                next[d] -= nodes[m] * poly[d];
+            }
+            poly = next;
+            degree += 1;
+            denom *= nodes[j] - nodes[m];
+        }
+        out[j] = (0..4).map(|d| poly[d] * u.powi(d as i32 + 1) / (d as f64 + 1.0)).sum::<f64>() / denom;
+    }
+    out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn gauss_legendre_integrates_degree_seven_exactly() {
+        for deg in 0..8 {
+            let exact = if deg % 2 == 1 { 0.0 } else { 2.0 / (deg as f64 + 1.0) };
+            let got: f64 = GL4_X.iter().zip(GL4_W).map(|(x, w)| w * x.powi(deg)).sum();
+            assert!((got - exact).abs() < 1e-15, "degree {deg}");
+        }
+    }
+
+    #[test]
+    fn partial_weights_integrate_cubics_to_any_point() {
+        // f(u) = 1 + 2u - u^2 + 3u^3 sampled at the nodes.
+        let f = |u: f64| 1.0 + 2.0 * u - u * u + 3.0 * u * u * u;
+        let nodes: [f64; 4] = GL4_X.map(|x| 0.5 * (1.0 + x));
+        for u in [0.0, 0.1, 0.5, 0.77, 1.0] {
+            let w = partial_weights(u);
+            let got: f64 = (0..4).map(|j| w[j] * f(nodes[j])).sum();
+            let exact = u + u * u - u * u * u / 3.0 + 0.75 * u.powi(4);
+            assert!((got - exact).abs() < 1e-14, "{u}");
+        }
+    }
+
+    #[test]
+    fn kepler_orbit_matches_the_universal_variable_propagator() {
+        let gm = crate::units::GM_SUN_AU3_PER_DAY2;
+        let r = Vec3::new(40.0, -60.0, 25.0);
+        let v = Vec3::new(0.0011, 0.0008, -0.0004);
+        let orbit = KeplerOrbit::from_state(gm, r, v, 100.0).unwrap();
+        let mut guess = f64::NAN;
+        for dt in [-9000.0, -10.0, 0.0, 3000.0, 20000.0] {
+            let (want, _) = crate::dynamics::kepler::propagate(gm, r, v, dt).unwrap();
+            let got = orbit.position(100.0 + dt, &mut guess);
+            assert!((got - want).norm() < 1e-9, "{dt}: {:e}", (got - want).norm());
+        }
+        assert!(KeplerOrbit::from_state(gm, r, v * 10.0, 0.0).is_none());
+    }
+}
