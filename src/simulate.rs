@@ -21,8 +21,11 @@ pub struct SurveyPlan {
     pub times_tdb_days: Vec<f64>,
     /// Observing site (a name in the site table, or `geocenter`).
     pub site: String,
-    /// 1-sigma noise of RA*cos(Dec) and Dec, arcsec.
+    /// Stated 1-sigma error of RA*cos(Dec) and Dec, arcsec.
     pub sigma_arcsec: f64,
+    /// Whether to add noise of that size (false: exact positions with the
+    /// stated errors, for tests of the model itself).
+    pub add_noise: bool,
     /// Only times when the body is at least this far from the Sun are kept, degrees.
     pub min_elongation_deg: f64,
     pub seed: u64,
@@ -84,8 +87,9 @@ pub fn simulate_survey(
         if elongation < plan.min_elongation_deg {
             continue;
         }
-        let dra = noise.sample(&mut rng) * RAD_PER_ARCSEC / p.radec.dec_rad.cos();
-        let ddec = noise.sample(&mut rng) * RAD_PER_ARCSEC;
+        let scale = if plan.add_noise { RAD_PER_ARCSEC } else { 0.0 };
+        let dra = noise.sample(&mut rng) * scale / p.radec.dec_rad.cos();
+        let ddec = noise.sample(&mut rng) * scale;
         o.ra_rad = wrap_two_pi(p.radec.ra_rad + dra);
         o.dec_rad = p.radec.dec_rad + ddec;
         out.push(o);

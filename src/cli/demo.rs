@@ -237,6 +237,7 @@ fn simulate_survey_files(
         times_tdb_days: times,
         site: name.into(),
         sigma_arcsec: SURVEY_SIGMA_ARCSEC,
+        add_noise: true,
         min_elongation_deg: 100.0,
         seed: SURVEY_SEED,
     };

@@ -2,7 +2,10 @@
 //!
 //! - [`kernel`]: the linearised, orbit-marginalised O-C signal of a
 //!   perturber hypothesis.
+//! - [`search`]: the grid over hypotheses, basins, null simulations.
 
 pub mod kernel;
+pub mod search;
 
 pub use kernel::{KeplerOrbit, LinearKernel};
+pub use search::{Hypothesis, Scored, SearchResult, SearchSettings, grid_search};
