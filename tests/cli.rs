@@ -93,3 +93,46 @@ fn unwritable_output_is_an_error_naming_the_path() {
     assert!(stderr.contains("latens: error") && stderr.contains("sub"), "{stderr}");
     std::fs::remove_dir_all(&dir).unwrap();
 }
+
+#[test]
+fn infer_on_the_demo_survey_finds_no_perturber_and_repeats_with_the_same_seed() {
+    // The demo's invented survey has no perturber: the search must say so,
+    // and two runs with one seed must write identical summaries.
+    let dir = temp_dir("infer");
+    let demo = dir.join("demo");
+    let out = latens().args(["demo", "--out"]).arg(&demo).output().unwrap();
+    assert!(out.status.success());
+    let mut summaries = Vec::new();
+    for run in 0..2 {
+        let out_dir = dir.join(format!("infer{run}"));
+        let out = latens()
+            .args(["infer", "--obs"])
+            .arg(demo.join("observations.csv"))
+            .arg("--sites")
+            .arg(demo.join("sites.csv"))
+            .args(["--directions", "96", "--distances", "8", "--nulls", "100", "--seed", "7", "--out"])
+            .arg(&out_dir)
+            .output()
+            .unwrap();
+        assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+        let text = std::fs::read_to_string(out_dir.join("summary.json")).unwrap();
+        let v: serde_json::Value = serde_json::from_str(&text).unwrap();
+        assert_eq!(v["detection"]["detected"], serde_json::Value::Bool(false), "{text}");
+        assert!(v["detection"]["false_alarm_probability"].as_f64().unwrap() > 0.003);
+        assert_eq!(v["seed"], 7);
+        assert!(out_dir.join("residuals_null_vs_best.png").exists());
+        summaries.push(text);
+    }
+    assert_eq!(summaries[0], summaries[1], "the same seed gave different results");
+    let bad = latens()
+        .args(["infer", "--obs"])
+        .arg(demo.join("observations.csv"))
+        .arg("--sites")
+        .arg(demo.join("sites.csv"))
+        .args(["--mass-earth", "5:1"])
+        .output()
+        .unwrap();
+    assert_eq!(bad.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&bad.stderr).contains("--mass-earth"));
+    std::fs::remove_dir_all(&dir).unwrap();
+}

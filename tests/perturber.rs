@@ -15,7 +15,9 @@ use latens::vec3::Vec3;
 const T0: f64 = 8766.0; // 2024-01-01 TDB
 
 fn state(a: f64, e: f64, i: f64, node: f64, peri: f64, m: f64) -> (Vec3, Vec3) {
-    let el = Elements::from_semi_major_axis(a, e, i * RAD_PER_DEG, node * RAD_PER_DEG, peri * RAD_PER_DEG, m * RAD_PER_DEG).unwrap();
+    let el =
+        Elements::from_semi_major_axis(a, e, i * RAD_PER_DEG, node * RAD_PER_DEG, peri * RAD_PER_DEG, m * RAD_PER_DEG)
+            .unwrap();
     let (r, v) = state_from_elements(GM_SUN_AU3_PER_DAY2, &el).unwrap();
     (icrf_from_ecliptic(r), icrf_from_ecliptic(v))
 }
@@ -39,16 +41,32 @@ fn scenario() -> Scenario {
 
 fn perturber(mass_earth: f64, a: f64, inc: f64, node: f64) -> Perturber {
     let (r, v) = state(a, 0.05, inc, node, 40.0, 300.0);
-    Perturber { gm_au3_per_day2: mass_earth * EARTH_MASS_SOLAR * GM_SUN_AU3_PER_DAY2, position_au: r, velocity_au_per_day: v }
+    Perturber {
+        gm_au3_per_day2: mass_earth * EARTH_MASS_SOLAR * GM_SUN_AU3_PER_DAY2,
+        position_au: r,
+        velocity_au_per_day: v,
+    }
 }
 
 fn survey(seed: u64, noise: bool) -> SurveyPlan {
     let times = (0..1040).map(|k| T0 - 10.0 * 365.25 + 7.0 * k as f64).collect();
-    SurveyPlan { times_tdb_days: times, site: "geocenter".into(), sigma_arcsec: 0.05, add_noise: noise, min_elongation_deg: 90.0, seed }
+    SurveyPlan {
+        times_tdb_days: times,
+        site: "geocenter".into(),
+        sigma_arcsec: 0.05,
+        add_noise: noise,
+        min_elongation_deg: 90.0,
+        seed,
+    }
 }
 
 fn initial(s: &Scenario, perturbers: Vec<Perturber>) -> InitialState {
-    InitialState { t0_tdb_days: T0, tracked_position_au: s.tracked.0, tracked_velocity_au_per_day: s.tracked.1, perturbers }
+    InitialState {
+        t0_tdb_days: T0,
+        tracked_position_au: s.tracked.0,
+        tracked_velocity_au_per_day: s.tracked.1,
+        perturbers,
+    }
 }
 
 #[test]
@@ -78,7 +96,9 @@ fn kernel_signal_matches_the_full_nonlinear_model() {
         nonlinear[2 * k] = w.0;
         nonlinear[2 * k + 1] = w.1;
     }
-    let orbit = latens::perturber::KeplerOrbit::from_state(kernel.central_gm(), p.position_au, p.velocity_au_per_day, T0).unwrap();
+    let orbit =
+        latens::perturber::KeplerOrbit::from_state(kernel.central_gm(), p.position_au, p.velocity_au_per_day, T0)
+            .unwrap();
     let mut linear = vec![0.0; nonlinear.len()];
     kernel.signal(&orbit, &mut linear);
     linear.iter_mut().for_each(|x| *x *= p.gm_au3_per_day2);
@@ -87,13 +107,23 @@ fn kernel_signal_matches_the_full_nonlinear_model() {
     let norm = |v: &[f64]| v.iter().map(|x| x * x).sum::<f64>().sqrt();
     let diff: Vec<f64> = linear.iter().zip(&nonlinear).map(|(a, b)| a - b).collect();
     let rel = norm(&diff) / norm(&nonlinear);
-    eprintln!("kernel vs nonlinear: projected signal {:.3} (in sigma units, total), relative difference {rel:.2e}", norm(&nonlinear));
+    eprintln!(
+        "kernel vs nonlinear: projected signal {:.3} (in sigma units, total), relative difference {rel:.2e}",
+        norm(&nonlinear)
+    );
     assert!(norm(&nonlinear) > 10.0, "the test signal is too weak to compare");
     assert!(rel < 0.01, "{rel}");
 }
 
 fn small_search(seed: u64) -> SearchSettings {
-    SearchSettings { n_directions: 192, n_distances: 12, n_orientations: 4, n_null: 300, seed, ..SearchSettings::default() }
+    SearchSettings {
+        n_directions: 192,
+        n_distances: 12,
+        n_orientations: 4,
+        n_null: 300,
+        seed,
+        ..SearchSettings::default()
+    }
 }
 
 #[test]
@@ -101,7 +131,9 @@ fn injected_perturbers_are_detected_and_located() {
     let s = scenario();
     for (k, (mass, a, inc, node)) in [(60.0, 70.0, 25.0, 200.0), (20.0, 40.0, 60.0, 30.0)].into_iter().enumerate() {
         let p = perturber(mass, a, inc, node);
-        let obs = simulate_survey(&survey(10 + k as u64, true), &initial(&s, vec![p]), &s.model, &s.ephemeris, &s.sites).unwrap();
+        let obs =
+            simulate_survey(&survey(10 + k as u64, true), &initial(&s, vec![p]), &s.model, &s.ephemeris, &s.sites)
+                .unwrap();
         let settings = ReferenceSettings { epoch_tdb_days: Some(T0), ..ReferenceSettings::default() };
         let fit = fit_reference_orbit(&obs, &s.sites, &s.model, &s.ephemeris, &settings, None).unwrap();
         let geometry = observing_geometry(&obs, &s.sites, &s.ephemeris).unwrap();
@@ -115,7 +147,11 @@ fn injected_perturbers_are_detected_and_located() {
             &mut vec![0.0; kernel.n_residuals()],
         )
         .unwrap();
-        eprintln!("  the true hypothesis scores delta chi2 {:.1} with mass {:.1}", truth.delta_chi2, truth.mass_earth());
+        eprintln!(
+            "  the true hypothesis scores delta chi2 {:.1} with mass {:.1}",
+            truth.delta_chi2,
+            truth.mass_earth()
+        );
         let best = result.best().unwrap();
         let fap = result.false_alarm_probability();
         let max_null = result.null_maxima.iter().copied().fold(0.0, f64::max);
@@ -144,7 +180,8 @@ fn null_data_sets_are_rarely_detected() {
     let mut detected = 0;
     let mut faps = Vec::new();
     for seed in 0..6 {
-        let obs = simulate_survey(&survey(100 + seed, true), &initial(&s, vec![]), &s.model, &s.ephemeris, &s.sites).unwrap();
+        let obs =
+            simulate_survey(&survey(100 + seed, true), &initial(&s, vec![]), &s.model, &s.ephemeris, &s.sites).unwrap();
         let settings = ReferenceSettings { epoch_tdb_days: Some(T0), ..ReferenceSettings::default() };
         let fit = fit_reference_orbit(&obs, &s.sites, &s.model, &s.ephemeris, &settings, None).unwrap();
         let geometry = observing_geometry(&obs, &s.sites, &s.ephemeris).unwrap();

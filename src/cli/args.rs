@@ -19,6 +19,49 @@ pub enum Command {
     Demo(DemoArgs),
     /// Fit the tracked body's reference orbit and show its O-C residuals.
     Residuals(ResidualsArgs),
+    /// Search for an unseen perturber in the residuals and judge whether it is real.
+    Infer(InferArgs),
+}
+
+#[derive(Debug, clap::Args)]
+pub struct InferArgs {
+    /// Observations: Latens CSV or IAU ADES PSV (see docs/formats.md).
+    #[arg(long, value_name = "FILE")]
+    pub obs: PathBuf,
+    /// Observing sites: CSV with name, lon_deg, lat_deg, height_m.
+    #[arg(long, value_name = "FILE")]
+    pub sites: Option<PathBuf>,
+    /// Planets in the model, comma-separated, or `none`.
+    #[arg(long, value_name = "LIST", default_value = "jupiter,saturn,uranus,neptune")]
+    pub known: String,
+    /// `builtin` (VSOP87A) or a JPL SPK file.
+    #[arg(long, value_name = "builtin|FILE", default_value = "builtin")]
+    pub ephemeris: String,
+    /// When to give the perturber's sky position (ISO UTC or `JD <days> TDB`);
+    /// default: the last observation.
+    #[arg(long, value_name = "DATE")]
+    pub search_epoch: Option<String>,
+    /// Perturber mass range searched, Earth masses.
+    #[arg(long, value_name = "MIN:MAX", default_value = "0.01:5000")]
+    pub mass_earth: String,
+    /// Perturber heliocentric distance range searched, au.
+    #[arg(long, value_name = "MIN:MAX", default_value = "5:500")]
+    pub distance_au: String,
+    /// Null simulations for the false-alarm probability.
+    #[arg(long, value_name = "N", default_value_t = 1000)]
+    pub nulls: usize,
+    /// Directions of the grid (equal-area over the whole sky).
+    #[arg(long, value_name = "N", default_value_t = 768)]
+    pub directions: usize,
+    /// Log-spaced distances of the grid.
+    #[arg(long, value_name = "N", default_value_t = 20)]
+    pub distances: usize,
+    /// Seed of the null simulations: the same seed gives the same files.
+    #[arg(long, value_name = "N", default_value_t = 1)]
+    pub seed: u64,
+    /// Directory to write into (created if missing).
+    #[arg(long, value_name = "DIR", default_value = "output/infer")]
+    pub out: PathBuf,
 }
 
 #[derive(Debug, clap::Args)]

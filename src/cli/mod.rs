@@ -5,6 +5,7 @@
 
 mod args;
 mod demo;
+mod infer;
 mod residuals;
 
 use std::ffi::OsString;
@@ -65,6 +66,7 @@ fn run(args: Args) -> Result<(), CliError> {
     match args.command {
         Command::Demo(demo_args) => demo::run(&demo_args),
         Command::Residuals(r) => residuals::run(&r),
+        Command::Infer(i) => infer::run(&i),
     }
 }
 

@@ -65,3 +65,87 @@ pub struct SolverFile {
     pub termination: String,
     pub condition_number: f64,
 }
+
+/// `summary.json` of `latens infer`.
+#[derive(Debug, Serialize)]
+pub struct InferSummary {
+    pub search_epoch_utc: String,
+    pub seed: u64,
+    pub settings: InferSettingsFile,
+    pub null_model: NullModelFile,
+    /// The best perturber solution (absent when no hypothesis lowers the chi-square).
+    pub best_fit: Option<PerturberFile>,
+    /// Distinct basins within the threshold of the best, the best first.
+    pub basins: Vec<PerturberFile>,
+    pub detection: DetectionFile,
+    pub search: SearchStatsFile,
+    pub warnings: Vec<String>,
+}
+
+#[derive(Debug, Serialize)]
+pub struct InferSettingsFile {
+    pub mass_earth: [f64; 2],
+    pub distance_au: [f64; 2],
+    pub n_directions: usize,
+    pub n_distances: usize,
+    pub n_orientations: usize,
+    pub speed_factors: Vec<f64>,
+    pub min_separation_au: f64,
+    pub basin_delta_chi2: f64,
+    pub known_bodies: Vec<String>,
+    pub folded_into_sun: Vec<String>,
+    pub ephemeris: String,
+}
+
+#[derive(Debug, Serialize)]
+pub struct NullModelFile {
+    pub chi2: f64,
+    pub dof: usize,
+    pub orbit: OrbitFile,
+}
+
+#[derive(Debug, Serialize)]
+pub struct PerturberFile {
+    pub chi2: f64,
+    pub delta_chi2: f64,
+    pub mass_earth: f64,
+    pub frame: String,
+    pub epoch_tdb_jd: f64,
+    pub a_au: f64,
+    pub e: f64,
+    pub inc_deg: f64,
+    pub node_deg: f64,
+    pub peri_deg: f64,
+    pub mean_anomaly_deg: f64,
+    /// Heliocentric ICRF state at the reference epoch.
+    pub state_icrf: [f64; 6],
+    /// Geocentric astrometric position at the search epoch.
+    pub ra_deg: f64,
+    pub dec_deg: f64,
+    pub distance_au: f64,
+    pub heliocentric_distance_au: f64,
+    pub solar_elongation_deg: f64,
+    pub closest_approach_to_tracked_body_au: f64,
+    /// RMS difference between the linear and the full nonlinear signal, and
+    /// that as a share of the signal's RMS.
+    pub linearisation_error_arcsec: f64,
+    pub linearisation_error_fraction: f64,
+}
+
+#[derive(Debug, Serialize)]
+pub struct DetectionFile {
+    pub delta_chi2: f64,
+    pub false_alarm_probability: f64,
+    pub n_null_simulations: usize,
+    pub largest_null_delta_chi2: f64,
+    pub detected: bool,
+    pub verdict: String,
+}
+
+#[derive(Debug, Serialize)]
+pub struct SearchStatsFile {
+    pub n_hypotheses: usize,
+    pub n_skipped_close_approach: usize,
+    pub signal_subspace_dimension: usize,
+    pub signal_subspace_energy: f64,
+}

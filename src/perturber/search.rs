@@ -173,7 +173,8 @@ pub fn hypotheses(settings: &SearchSettings, gm_sun: f64) -> Vec<Hypothesis> {
 /// Scores one hypothesis; `scratch` has the kernel's residual length.
 /// Returns the score and the normalised projected signal in `scratch`.
 pub fn score(kernel: &LinearKernel, h: &Hypothesis, gm_max: f64, min_sep: f64, scratch: &mut [f64]) -> Option<Scored> {
-    let orbit = KeplerOrbit::from_state(kernel.central_gm(), h.position_au, h.velocity_au_per_day, kernel.epoch_tdb_days)?;
+    let orbit =
+        KeplerOrbit::from_state(kernel.central_gm(), h.position_au, h.velocity_au_per_day, kernel.epoch_tdb_days)?;
     let closest = kernel.signal(&orbit, scratch);
     if closest < min_sep {
         return None;
@@ -185,7 +186,11 @@ pub fn score(kernel: &LinearKernel, h: &Hypothesis, gm_max: f64, min_sep: f64, s
 
 /// Runs the grid search, the basin selection and the null simulations.
 /// `progress` is called with the number of hypotheses done.
-pub fn grid_search(kernel: &LinearKernel, settings: &SearchSettings, progress: &(dyn Fn(usize) + Sync)) -> SearchResult {
+pub fn grid_search(
+    kernel: &LinearKernel,
+    settings: &SearchSettings,
+    progress: &(dyn Fn(usize) + Sync),
+) -> SearchResult {
     let gm_earth = EARTH_MASS_SOLAR * crate::units::GM_SUN_AU3_PER_DAY2;
     let gm_max = settings.mass_earth.1 * gm_earth;
     let hyps = hypotheses(settings, kernel.central_gm());
@@ -260,7 +265,8 @@ pub fn grid_search(kernel: &LinearKernel, settings: &SearchSettings, progress: &
     let null_maxima: Vec<f64> = (0..settings.n_null)
         .into_par_iter()
         .map(|r| {
-            let mut rng = rand::rngs::StdRng::seed_from_u64(settings.seed.wrapping_mul(1_000_003).wrapping_add(r as u64));
+            let mut rng =
+                rand::rngs::StdRng::seed_from_u64(settings.seed.wrapping_mul(1_000_003).wrapping_add(r as u64));
             let z: Vec<f32> = (0..k)
                 .map(|_| {
                     let v: f64 = StandardNormal.sample(&mut rng);

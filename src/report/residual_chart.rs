@@ -44,6 +44,31 @@ impl ResidualChart<'_> {
         Ok(out)
     }
 
+    /// Two charts side by side (for example the null and the best-fit
+    /// models), as PNG at `png_path` (3200 x 1000 pixels).
+    pub fn draw_pair_png(left: &Self, right: &Self, png_path: &std::path::Path) -> Result<(), String> {
+        super::register_fonts();
+        let root = BitMapBackend::new(png_path, (3200, 1000)).into_drawing_area();
+        let (a, b) = root.split_horizontally(1600);
+        left.draw(&a).map_err(|e| e.to_string())?;
+        right.draw(&b).map_err(|e| e.to_string())?;
+        root.present().map_err(|e| e.to_string())
+    }
+
+    /// Two charts side by side as SVG text.
+    pub fn draw_pair_svg(left: &Self, right: &Self) -> Result<String, String> {
+        super::register_fonts();
+        let mut out = String::new();
+        {
+            let root = SVGBackend::with_string(&mut out, (3200, 1000)).into_drawing_area();
+            let (a, b) = root.split_horizontally(1600);
+            left.draw(&a).map_err(|e| e.to_string())?;
+            right.draw(&b).map_err(|e| e.to_string())?;
+            root.present().map_err(|e| e.to_string())?;
+        }
+        Ok(out)
+    }
+
     fn draw<DB: DrawingBackend>(
         &self,
         root: &DrawingArea<DB, Shift>,
