@@ -90,27 +90,42 @@ impl KeplerOrbit {
     }
 
     /// Position at `t`, with `guess` the eccentric anomaly of a nearby time
-    /// (updated to this one's).
+    /// (NaN when there is none), updated to this one's.
+    ///
+    /// From a guess within about 1e-3 rad (neighbouring quadrature nodes of a
+    /// distant perturber), two Newton steps reach 1e-12 rad; a poorer guess
+    /// gets up to 30 steps. The sine and cosine of the final anomaly come from
+    /// the last step's by the angle-addition rule, so a node costs two
+    /// sin-cos pairs.
     #[inline]
     pub fn position(&self, t: f64, guess: &mut f64) -> Vec3 {
         let m = self.mean_anomaly_t0 + self.mean_motion * (t - self.t0);
         let e = self.e;
         let mut big_e = if guess.is_finite() {
-            *guess + (m - (*guess - e * guess.sin())) / (1.0 - e * guess.cos())
+            // Linear prediction from the neighbour's anomaly.
+            let (s, c) = guess.sin_cos();
+            *guess + (m - (*guess - e * s)) / (1.0 - e * c)
         } else {
             m + e * m.sin()
         };
+        let (mut s, mut c) = big_e.sin_cos();
         for _ in 0..30 {
-            let (s, c) = big_e.sin_cos();
-            let f = big_e - e * s - m;
-            let d = f / (1.0 - e * c);
+            let d = (big_e - e * s - m) / (1.0 - e * c);
             big_e -= d;
-            if d.abs() < 1e-14 {
+            if d.abs() < 1e-6 {
+                // sin and cos at the corrected angle (the error is of order d^2).
+                (s, c) = (s - c * d, c + s * d);
+                if d.abs() < 1e-12 {
+                    break;
+                }
+                let d2 = (big_e - e * s - m) / (1.0 - e * c);
+                big_e -= d2;
+                (s, c) = (s - c * d2, c + s * d2);
                 break;
             }
+            (s, c) = big_e.sin_cos();
         }
         *guess = big_e;
-        let (s, c) = big_e.sin_cos();
         self.p * (self.a * (c - e)) + self.q * (self.a * (1.0 - e * e).sqrt() * s)
     }
 }
@@ -289,9 +304,20 @@ impl LinearKernel {
     /// removed, into `out` (length 2N). Returns the closest approach to the
     /// tracked body at the nodes, au.
     pub fn signal(&self, orbit: &KeplerOrbit, out: &mut [f64]) -> f64 {
+        thread_local! {
+            static WORK: std::cell::RefCell<(Vec<[f64; 6]>, Vec<[f64; 6]>)> = const { std::cell::RefCell::new((Vec::new(), Vec::new())) };
+        }
+        WORK.with(|w| {
+            let (g, starts) = &mut *w.borrow_mut();
+            g.resize(self.node_t.len(), [0.0; 6]);
+            starts.resize(self.n_panels + 1, [0.0; 6]);
+            self.signal_into(orbit, out, g, starts)
+        })
+    }
+
+    fn signal_into(&self, orbit: &KeplerOrbit, out: &mut [f64], g: &mut [[f64; 6]], starts: &mut [[f64; 6]]) -> f64 {
         let mut guess = f64::NAN;
         let mut closest = f64::INFINITY;
-        let mut g = vec![[0.0f64; 6]; self.node_t.len()];
         for (i, &t) in self.node_t.iter().enumerate() {
             let rp = orbit.position(t, &mut guess);
             let d = rp - self.node_r[i];
@@ -305,7 +331,7 @@ impl LinearKernel {
             }
         }
         // Cumulative integral at each panel start.
-        let mut starts = vec![[0.0f64; 6]; self.n_panels + 1];
+        starts[0] = [0.0; 6];
         for p in 0..self.n_panels {
             let mut s = starts[p];
             for (j, w) in GL4_W.iter().enumerate() {
@@ -340,9 +366,14 @@ impl LinearKernel {
 
     /// Removes the orbit-correction component from a whitened signal.
     pub fn project(&self, signal: &mut [f64]) {
-        for b in &self.basis {
-            let d = dot(signal, b);
-            signal.iter_mut().zip(b).for_each(|(s, bv)| *s -= d * bv);
+        // The basis is orthonormal, so all six coefficients can be taken
+        // from the unprojected signal in one pass.
+        let mut coef = [0.0; 6];
+        for (c, b) in coef.iter_mut().zip(&self.basis) {
+            *c = dot(signal, b);
+        }
+        for (c, b) in coef.iter().zip(&self.basis) {
+            signal.iter_mut().zip(b).for_each(|(s, bv)| *s -= c * bv);
         }
     }
 
@@ -360,8 +391,18 @@ impl LinearKernel {
     }
 }
 
+/// Dot product with four accumulators (lets the compiler vectorise it).
 fn dot(a: &[f64], b: &[f64]) -> f64 {
-    a.iter().zip(b).map(|(x, y)| x * y).sum()
+    let mut acc = [0.0; 4];
+    let (ca, cb) = (a.chunks_exact(4), b.chunks_exact(4));
+    let (ra, rb) = (ca.remainder(), cb.remainder());
+    for (x, y) in ca.zip(cb) {
+        for k in 0..4 {
+            acc[k] += x[k] * y[k];
+        }
+    }
+    let tail: f64 = ra.iter().zip(rb).map(|(x, y)| x * y).sum();
+    acc[0] + acc[1] + acc[2] + acc[3] + tail
 }
 
 /// Integrals from 0 to u (u in [0, 1]) of the Lagrange basis polynomials on
