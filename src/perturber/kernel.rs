@@ -130,6 +130,10 @@ impl KeplerOrbit {
     }
 }
 
+/// Per-thread scratch of [`LinearKernel::signal`]: the integrand at the
+/// nodes and the running integral at the panel starts.
+type Workspace = (Vec<[f64; 6]>, Vec<[f64; 6]>);
+
 /// Everything about the reference orbit the kernel needs, computed once.
 pub struct LinearKernel {
     pub epoch_tdb_days: f64,
@@ -305,7 +309,7 @@ impl LinearKernel {
     /// tracked body at the nodes, au.
     pub fn signal(&self, orbit: &KeplerOrbit, out: &mut [f64]) -> f64 {
         thread_local! {
-            static WORK: std::cell::RefCell<(Vec<[f64; 6]>, Vec<[f64; 6]>)> = const { std::cell::RefCell::new((Vec::new(), Vec::new())) };
+            static WORK: std::cell::RefCell<Workspace> = const { std::cell::RefCell::new((Vec::new(), Vec::new())) };
         }
         WORK.with(|w| {
             let (g, starts) = &mut *w.borrow_mut();
