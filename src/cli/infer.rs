@@ -138,6 +138,25 @@ pub(super) fn run(args: &InferArgs) -> Result<(), CliError> {
         }
     }
     let best_delta = result.best().map_or(0.0, |b| b.delta_chi2);
+    // Refine the best solution on the full nonlinear model.
+    let refined = match result.best() {
+        Some(b) if b.gm_au3_per_day2 > 0.0 => {
+            eprintln!("Refining the best solution on the full nonlinear model...");
+            let start = Perturber {
+                gm_au3_per_day2: b.gm_au3_per_day2,
+                position_au: b.hypothesis.position_au,
+                velocity_au_per_day: b.hypothesis.velocity_au_per_day,
+            };
+            match crate::perturber::refine::refine(&null, &observations, &geometry, &model, ephemeris.as_ref(), start) {
+                Ok(r) => Some(refined_file(&r, &null)),
+                Err(e) => {
+                    warnings.push(format!("the nonlinear refinement failed ({e}); the grid solution stands"));
+                    None
+                }
+            }
+        }
+        _ => None,
+    };
     let detected = fap < DETECTION_FAP && best_delta > 0.0;
     let verdict = if detected {
         format!(
@@ -173,6 +192,7 @@ pub(super) fn run(args: &InferArgs) -> Result<(), CliError> {
         },
         null_model: NullModelFile { chi2: null.chi2, dof: null.dof, orbit: orbit_file(&null) },
         best_fit: described.first().map(clone_perturber),
+        refined_best_fit: refined,
         basins: described.iter().map(clone_perturber).collect(),
         detection: DetectionFile {
             delta_chi2: best_delta,
@@ -239,6 +259,45 @@ pub(super) fn run(args: &InferArgs) -> Result<(), CliError> {
         "  residuals_null_vs_best.png (.svg)  O-C of the null model and of the best perturber solution, side by side"
     );
     Ok(())
+}
+
+fn refined_file(r: &crate::perturber::refine::Refinement, null: &ReferenceFit) -> crate::io::results::RefinedFile {
+    let gm_earth = crate::units::EARTH_MASS_SOLAR * crate::units::GM_SUN_AU3_PER_DAY2;
+    let p = &r.perturber;
+    let el = elements_from_state(
+        crate::units::GM_SUN_AU3_PER_DAY2,
+        ecliptic_from_icrf(p.position_au),
+        ecliptic_from_icrf(p.velocity_au_per_day),
+    )
+    .ok();
+    let deg = |x: f64| x / RAD_PER_DEG;
+    crate::io::results::RefinedFile {
+        chi2: r.chi2,
+        delta_chi2: null.chi2 - r.chi2,
+        mass_earth: p.gm_au3_per_day2 / gm_earth,
+        mass_sigma_earth: r.gm_sigma / gm_earth,
+        frame: "elements: heliocentric ecliptic J2000 (IAU 2006), osculating, GM of the Sun; state: heliocentric ICRF"
+            .into(),
+        epoch_tdb_jd: J2000_JD + null.epoch_tdb_days,
+        a_au: el.map_or(f64::NAN, |e| e.semi_major_axis_au()),
+        e: el.map_or(f64::NAN, |e| e.eccentricity),
+        inc_deg: el.map_or(f64::NAN, |e| deg(e.inclination_rad)),
+        node_deg: el.map_or(f64::NAN, |e| deg(e.node_rad)),
+        peri_deg: el.map_or(f64::NAN, |e| deg(e.periapsis_arg_rad)),
+        mean_anomaly_deg: el.map_or(f64::NAN, |e| deg(e.mean_anomaly_rad())),
+        state_icrf: [
+            p.position_au.x,
+            p.position_au.y,
+            p.position_au.z,
+            p.velocity_au_per_day.x,
+            p.velocity_au_per_day.y,
+            p.velocity_au_per_day.z,
+        ],
+        all_13_parameters: r.all_thirteen,
+        iterations: r.iterations,
+        condition_number: r.condition_number,
+        note: r.note.clone(),
+    }
 }
 
 fn clone_perturber(p: &PerturberFile) -> PerturberFile {

@@ -75,6 +75,8 @@ pub struct InferSummary {
     pub null_model: NullModelFile,
     /// The best perturber solution (absent when no hypothesis lowers the chi-square).
     pub best_fit: Option<PerturberFile>,
+    /// The best solution refined on the full nonlinear model.
+    pub refined_best_fit: Option<RefinedFile>,
     /// Distinct basins within the threshold of the best, the best first.
     pub basins: Vec<PerturberFile>,
     pub detection: DetectionFile,
@@ -148,4 +150,29 @@ pub struct SearchStatsFile {
     pub n_skipped_close_approach: usize,
     pub signal_subspace_dimension: usize,
     pub signal_subspace_energy: f64,
+}
+
+/// The best solution after the nonlinear refinement.
+#[derive(Debug, Serialize)]
+pub struct RefinedFile {
+    /// Chi-square of the full nonlinear model with the perturber.
+    pub chi2: f64,
+    /// Null chi-square minus `chi2`.
+    pub delta_chi2: f64,
+    pub mass_earth: f64,
+    pub mass_sigma_earth: f64,
+    pub frame: String,
+    pub epoch_tdb_jd: f64,
+    pub a_au: f64,
+    pub e: f64,
+    pub inc_deg: f64,
+    pub node_deg: f64,
+    pub peri_deg: f64,
+    pub mean_anomaly_deg: f64,
+    pub state_icrf: [f64; 6],
+    /// Whether all 13 parameters were fitted, or the perturber's orbit was held.
+    pub all_13_parameters: bool,
+    pub iterations: usize,
+    pub condition_number: f64,
+    pub note: String,
 }

@@ -3,8 +3,10 @@
 //! - [`kernel`]: the linearised, orbit-marginalised O-C signal of a
 //!   perturber hypothesis.
 //! - [`search`]: the grid over hypotheses, basins, null simulations.
+//! - [`refine`]: the 13-parameter refinement on the full nonlinear model.
 
 pub mod kernel;
+pub mod refine;
 pub mod search;
 
 pub use kernel::{KeplerOrbit, LinearKernel};

@@ -12,15 +12,21 @@ use crate::io::observations::Observation;
 use crate::units::{C_AU_PER_DAY, RAD_PER_ARCSEC, wrap_pi};
 use crate::vec3::Vec3;
 
+/// Most parameters a prediction has partials for: a tracked body and one
+/// perturber.
+pub const MAX_PARAMS: usize = 13;
+
 /// Predicted astrometry of one observation.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct Prediction {
     pub radec: RaDec,
     /// Observer-to-body vector at light-time-corrected emission, au.
     pub rho_au: Vec3,
-    /// d(RA*cos(Dec))/d(state at epoch) and d(Dec)/d(state), radians per
-    /// (au, au/day), when asked for.
-    pub partials: Option<[[f64; 6]; 2]>,
+    /// d(RA*cos(Dec))/d(parameter) and d(Dec)/d(parameter), radians per unit
+    /// of the parameter, when asked for. Parameters: the tracked body's state
+    /// at the epoch (6), then, with a perturber, its state (6) and its GM (1);
+    /// unused columns are zero.
+    pub partials: Option<[[f64; MAX_PARAMS]; 2]>,
 }
 
 /// Observations, their geometry and a propagator for one reference epoch.
@@ -88,8 +94,8 @@ impl<'a> OrbitModel<'a> {
             let partials = partials.then(|| {
                 let (pa, pd) = radec_partials(rho);
                 let phi = traj.tracked_partials(k);
-                let mut rows = [[0.0; 6]; 2];
-                for j in 0..6 {
+                let mut rows = [[0.0; MAX_PARAMS]; 2];
+                for j in 0..n_params.min(MAX_PARAMS) {
                     // Position rows of the state-transition matrix.
                     let col = [phi[j], phi[n_params + j], phi[2 * n_params + j]];
                     rows[0][j] = pa[0] * col[0] + pa[1] * col[1] + pa[2] * col[2];
@@ -149,7 +155,7 @@ impl LeastSquaresProblem for OrbitProblem<'_, '_> {
     fn jacobian(&mut self, params: &[f64], out: &mut Mat<f64>) -> Result<(), FitError> {
         let pred = self.model.predict(params, true).map_err(|e| FitError::Problem(e.to_string()))?;
         for (k, (obs, p)) in self.model.observations.iter().zip(&pred).enumerate() {
-            let rows = p.partials.unwrap_or([[0.0; 6]; 2]);
+            let rows = p.partials.unwrap_or([[0.0; MAX_PARAMS]; 2]);
             for j in 0..6 {
                 if self.used[k] {
                     // residual = observed - computed: its derivative is minus
