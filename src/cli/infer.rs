@@ -137,7 +137,9 @@ pub(super) fn run(args: &InferArgs) -> Result<(), CliError> {
             ));
         }
     }
-    let best_delta = result.best().map_or(0.0, |b| b.delta_chi2);
+    // The detection statistic is the grid's best drop (the null maxima are
+    // grid maxima); the basins carry their continuously refined drops.
+    let best_delta = result.grid_best_delta_chi2;
     // Refine the best solution on the full nonlinear model.
     let refined = match result.best() {
         Some(b) if b.gm_au3_per_day2 > 0.0 => {

@@ -169,10 +169,16 @@ pub fn refine(
         Ok(rep) => {
             let candidate = summarise(&rep, None, true, "all 13 parameters fitted on the full nonlinear model".into());
             let relative_mass_error = candidate.gm_sigma / candidate.perturber.gm_au3_per_day2;
-            // The full fit stands when it is well conditioned, pins the mass
-            // down to better than 100%, and fits at least as well as the
-            // held-orbit fit (within 1 in chi-square).
-            if rep.condition_number < UNCONSTRAINED && relative_mass_error < 1.0 && rep.cost <= held.cost + 1.0 {
+            let p = &candidate.perturber;
+            let bound =
+                0.5 * p.velocity_au_per_day.norm_squared() < model.central_gm_au3_per_day2() / p.position_au.norm();
+            // The full fit stands when it is well conditioned, keeps the
+            // perturber bound to the Sun, pins the mass down to better than
+            // 100%, and fits at least as well as the held-orbit fit (within 1
+            // in chi-square).
+            if !bound {
+                Ok(held_summary("the 13-parameter fit drifted to an unbound perturber orbit".into()))
+            } else if rep.condition_number < UNCONSTRAINED && relative_mass_error < 1.0 && rep.cost <= held.cost + 1.0 {
                 Ok(candidate)
             } else {
                 Ok(held_summary(format!(

@@ -17,6 +17,8 @@
 //! hypotheses with c.z > 0 (mass >= 0). This includes the look-elsewhere
 //! effect exactly, up to the signal energy outside the subspace (reported).
 
+use argmin::core::{CostFunction, Error as ArgminError, Executor, State};
+use argmin::solver::neldermead::NelderMead;
 use faer::Mat;
 use rand::SeedableRng;
 use rand_distr::{Distribution, StandardNormal};
@@ -102,6 +104,9 @@ impl Scored {
 #[derive(Clone, Debug)]
 pub struct SearchResult {
     pub n_hypotheses: usize,
+    /// The largest chi-square drop on the grid itself: the detection statistic,
+    /// comparable with the null maxima (which are grid maxima too).
+    pub grid_best_delta_chi2: f64,
     pub n_skipped_close: usize,
     /// The best hypothesis and the distinct basins within the threshold (the
     /// best first).
@@ -119,10 +124,11 @@ impl SearchResult {
         self.basins.first()
     }
 
-    /// False-alarm probability of the best chi-square drop: the share of null
-    /// realisations whose search maximum is at least as large, (k + 1)/(n + 1).
+    /// False-alarm probability of the grid's best chi-square drop: the share
+    /// of null realisations whose grid maximum is at least as large,
+    /// (k + 1)/(n + 1).
     pub fn false_alarm_probability(&self) -> f64 {
-        let best = self.best().map_or(0.0, |b| b.delta_chi2);
+        let best = self.grid_best_delta_chi2;
         let k = self.null_maxima.iter().filter(|&&m| m >= best).count();
         (k as f64 + 1.0) / (self.null_maxima.len() as f64 + 1.0)
     }
@@ -237,29 +243,23 @@ pub fn grid_search(
     let coords: Vec<&Vec<f32>> = results.iter().filter(|r| r.0.is_some()).map(|r| &r.1).collect();
     let energy = results.iter().filter(|r| r.0.is_some()).map(|r| r.2).sum::<f64>() / scored.len().max(1) as f64;
 
-    // Basins: the best, then the best of every sky region and distance band
-    // not yet covered, within the threshold.
+    // Seeds: the best cells of distinct regions (10 deg, or a factor 1.5 in
+    // distance), each refined continuously through the kernel; the grid is
+    // coarse, and the best basin can hide between its points.
     let mut order: Vec<usize> = (0..scored.len()).collect();
     order.sort_by(|&a, &b| scored[b].delta_chi2.total_cmp(&scored[a].delta_chi2));
-    let mut basins: Vec<Scored> = Vec::new();
-    let top = order.first().map_or(0.0, |&i| scored[i].delta_chi2);
-    let cos_sep = (settings.basin_separation_deg.to_radians()).cos();
-    for &i in &order {
-        let s = scored[i];
-        if s.delta_chi2 < top - settings.basin_delta_chi2 || basins.len() >= settings.max_basins {
-            break;
-        }
-        let dir = s.hypothesis.position_au.unit();
-        let dist = s.hypothesis.position_au.norm();
-        let distinct = basins.iter().all(|b| {
-            let bd = b.hypothesis.position_au.unit();
-            let ratio = (b.hypothesis.position_au.norm() / dist).ln().abs();
-            bd.dot(dir) < cos_sep || ratio > 2f64.ln()
-        });
-        if distinct {
-            basins.push(s);
-        }
-    }
+    let grid_best = order.first().map_or(0.0, |&i| scored[i].delta_chi2);
+    let seeds = distinct(order.iter().map(|&i| scored[i]), 10.0, 1.5, f64::INFINITY, 24);
+    let mut refined: Vec<Scored> =
+        seeds.par_iter().map(|s| refine_in_kernel(kernel, s, gm_max, settings.min_separation_au)).collect();
+    refined.sort_by(|a, b| b.delta_chi2.total_cmp(&a.delta_chi2));
+    let basins = distinct(
+        refined.into_iter(),
+        settings.basin_separation_deg,
+        2.0,
+        settings.basin_delta_chi2,
+        settings.max_basins,
+    );
 
     // Null realisations, in parallel over nulls.
     let null_maxima: Vec<f64> = (0..settings.n_null)
@@ -286,11 +286,99 @@ pub fn grid_search(
 
     SearchResult {
         n_hypotheses: hyps.len(),
+        grid_best_delta_chi2: grid_best,
         n_skipped_close: n_skipped,
         basins,
         null_maxima,
         subspace_dimension: k,
         subspace_energy: energy,
+    }
+}
+
+/// From candidates sorted best first, those distinct from every earlier kept
+/// one (directions more than `sep_deg` apart, or distances more than a
+/// factor `ratio` apart), within `window` of the best, at most `max`.
+fn distinct(
+    candidates: impl Iterator<Item = Scored>,
+    sep_deg: f64,
+    ratio: f64,
+    window: f64,
+    max: usize,
+) -> Vec<Scored> {
+    let cos_sep = sep_deg.to_radians().cos();
+    let mut kept: Vec<Scored> = Vec::new();
+    for s in candidates {
+        if kept.len() >= max || kept.first().is_some_and(|b| s.delta_chi2 < b.delta_chi2 - window) {
+            break;
+        }
+        let dir = s.hypothesis.position_au.unit();
+        let dist = s.hypothesis.position_au.norm();
+        let new = kept.iter().all(|b| {
+            let far = b.hypothesis.position_au.unit().dot(dir) < cos_sep;
+            far || (b.hypothesis.position_au.norm() / dist).ln().abs() > ratio.ln()
+        });
+        if new {
+            kept.push(s);
+        }
+    }
+    kept
+}
+
+/// The kernel's chi-square drop as a cost for Nelder-Mead, in scaled
+/// coordinates: position in units of the start's distance, velocity in
+/// units of its speed.
+struct KernelCost<'k> {
+    kernel: &'k LinearKernel,
+    r0: f64,
+    v0: f64,
+    gm_max: f64,
+    min_sep: f64,
+}
+
+impl CostFunction for KernelCost<'_> {
+    type Param = Vec<f64>;
+    type Output = f64;
+
+    fn cost(&self, p: &Self::Param) -> Result<f64, ArgminError> {
+        let h = Hypothesis {
+            position_au: Vec3::new(p[0], p[1], p[2]) * self.r0,
+            velocity_au_per_day: Vec3::new(p[3], p[4], p[5]) * self.v0,
+        };
+        let mut scratch = vec![0.0; self.kernel.n_residuals()];
+        Ok(score(self.kernel, &h, self.gm_max, self.min_sep, &mut scratch).map_or(0.0, |s| -s.delta_chi2))
+    }
+}
+
+/// Improves a grid cell by Nelder-Mead (argmin) on its 6-dimensional state
+/// through the kernel; keeps the cell when nothing better is found.
+fn refine_in_kernel(kernel: &LinearKernel, start: &Scored, gm_max: f64, min_sep: f64) -> Scored {
+    let (r, v) = (start.hypothesis.position_au, start.hypothesis.velocity_au_per_day);
+    let (r0, v0) = (r.norm(), v.norm());
+    let p0 = vec![r.x / r0, r.y / r0, r.z / r0, v.x / v0, v.y / v0, v.z / v0];
+    let mut simplex = vec![p0.clone()];
+    for i in 0..6 {
+        let mut p = p0.clone();
+        p[i] += if i < 3 { 0.04 } else { 0.08 };
+        simplex.push(p);
+    }
+    let cost = KernelCost { kernel, r0, v0, gm_max, min_sep };
+    let Ok(solver) = NelderMead::new(simplex).with_sd_tolerance(1e-4) else {
+        return *start;
+    };
+    let Ok(res) = Executor::new(cost, solver).configure(|s| s.max_iters(600)).run() else {
+        return *start;
+    };
+    let Some(best) = res.state().get_best_param() else {
+        return *start;
+    };
+    let h = Hypothesis {
+        position_au: Vec3::new(best[0], best[1], best[2]) * r0,
+        velocity_au_per_day: Vec3::new(best[3], best[4], best[5]) * v0,
+    };
+    let mut scratch = vec![0.0; kernel.n_residuals()];
+    match score(kernel, &h, gm_max, min_sep, &mut scratch) {
+        Some(s) if s.delta_chi2 > start.delta_chi2 => s,
+        _ => *start,
     }
 }
 

@@ -17,6 +17,10 @@ Writes into tests/data/astrometry/:
                   to check Latens's site model (which neglects nutation, polar
                   motion and UT1-UTC).
   chi2_sf.csv     scipy.stats.chi2.sf(x, dof) for a grid of x and dof.
+  uranus.csv      astrometric positions of the Uranus barycentre from the
+                  geocentre every 15 days 2001-2023, 0.05 arcsec noise (seeded).
+  neptune_2024.csv  Neptune's astrometric place on 2024-06-01 (the check value
+                  for recovering Neptune from Uranus's residuals).
 """
 import os
 
@@ -64,6 +68,32 @@ with open(os.path.join(HERE, "saturn.csv"), "w") as f:
         f.write(f"{iso},{float((ra._degrees + dra) % 360.0)!r},{float(dec.degrees + ddec)!r},{SIGMA},{SIGMA},"
                 f"{SITE['name'] if topo else 'geocenter'}\n")
         k += 1
+
+# Uranus from the geocentre, for recovering Neptune from its residuals.
+uranus = planets["uranus barycenter"]
+rng_u = np.random.default_rng(7)
+with open(os.path.join(HERE, "uranus.csv"), "w") as f:
+    f.write("# Uranus barycentre from DE421 via skyfield, noise 0.05 arcsec (seeded); see gen.py\n")
+    f.write("epoch_utc,ra_deg,dec_deg,sigma_ra_arcsec,sigma_dec_arcsec\n")
+    k = 0
+    while True:
+        t0 = ts.tt_jd(start.tt + 15.0 * k)
+        if t0.utc_datetime().year >= 2024:
+            break
+        u = t0.utc
+        iso = f"{int(u[0]):04d}-{int(u[1]):02d}-{int(u[2]):02d}T{int(u[3]):02d}:{int(u[4]):02d}:{u[5]:09.6f}Z"
+        t = ts.utc(int(u[0]), int(u[1]), int(u[2]), int(u[3]), int(u[4]), float(f"{u[5]:.6f}"))
+        ra, dec, _ = earth.at(t).observe(uranus).radec()
+        dra = rng_u.standard_normal() * SIGMA / 3600.0 / np.cos(dec.radians)
+        ddec = rng_u.standard_normal() * SIGMA / 3600.0
+        f.write(f"{iso},{float((ra._degrees + dra) % 360.0)!r},{float(dec.degrees + ddec)!r},{SIGMA},{SIGMA}\n")
+        k += 1
+# Neptune's astrometric place at a later epoch, the check value for the search.
+t_later = ts.utc(2024, 6, 1)
+ra, dec, dist = earth.at(t_later).observe(planets["neptune barycenter"]).radec()
+with open(os.path.join(HERE, "neptune_2024.csv"), "w") as f:
+    f.write("epoch_utc,ra_deg,dec_deg,distance_au\n")
+    f.write(f"2024-06-01T00:00:00Z,{float(ra._degrees)!r},{float(dec.degrees)!r},{float(dist.au)!r}\n")
 
 with open(os.path.join(HERE, "site_gcrs.csv"), "w") as f:
     f.write("epoch_utc,x_km,y_km,z_km\n")
