@@ -135,6 +135,7 @@ impl KeplerOrbit {
 type Workspace = (Vec<[f64; 6]>, Vec<[f64; 6]>);
 
 /// Everything about the reference orbit the kernel needs, computed once.
+#[derive(Clone)]
 pub struct LinearKernel {
     pub epoch_tdb_days: f64,
     /// Quadrature nodes: times, tracked-body positions, Psi (6 x 3 rows).
@@ -287,6 +288,24 @@ impl LinearKernel {
             used,
             gm_sun: model.central_gm_au3_per_day2(),
         })
+    }
+
+    /// The same kernel with other whitened residuals (for simulated data
+    /// sets); `residuals` is projected orthogonal to the orbit correction and
+    /// zeroed at set-aside observations, as a refitted null model's would be.
+    pub fn with_residuals(&self, residuals: &[f64]) -> LinearKernel {
+        let mut k = self.clone();
+        k.residuals = residuals.to_vec();
+        for (i, u) in k.used.iter().enumerate() {
+            if !u {
+                k.residuals[2 * i] = 0.0;
+                k.residuals[2 * i + 1] = 0.0;
+            }
+        }
+        let mut r = std::mem::take(&mut k.residuals);
+        k.project(&mut r);
+        k.residuals = r;
+        k
     }
 
     pub fn n_residuals(&self) -> usize {

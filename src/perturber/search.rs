@@ -387,7 +387,7 @@ fn refine_in_kernel(kernel: &LinearKernel, start: &Scored, gm_max: f64, min_sep:
 /// as many as hold 99.99% of the sample's energy (at most 120).
 fn signal_subspace(kernel: &LinearKernel, hyps: &[Hypothesis], settings: &SearchSettings, gm_max: f64) -> Mat<f64> {
     let n_res = kernel.n_residuals();
-    let stride = (hyps.len() / 3000).max(1);
+    let stride = (hyps.len() / 1000).max(1);
     let sample: Vec<Vec<f64>> = hyps
         .par_iter()
         .step_by(stride)
