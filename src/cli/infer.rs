@@ -129,7 +129,8 @@ pub(super) fn run(args: &InferArgs) -> Result<(), CliError> {
                 d.solar_elongation_deg
             ));
         }
-        if d.linearisation_error_fraction > 0.05 {
+        // Only worth saying for a solution that stands out from the noise.
+        if d.linearisation_error_fraction > 0.05 && result.false_alarm_probability() < 0.05 {
             warnings.push(format!(
                 "basin {}: the linear kernel differs from the full model by {:.0}% of the signal; treat its figures with caution",
                 k + 1,
