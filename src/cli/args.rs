@@ -23,20 +23,28 @@ pub enum Command {
     Infer(InferArgs),
 }
 
-#[derive(Debug, clap::Args)]
-pub struct InferArgs {
+/// What every fitting command reads: observations, sites, force model, ephemeris.
+#[derive(Debug, Clone, clap::Args)]
+pub struct InputArgs {
     /// Observations: Latens CSV or IAU ADES PSV (see docs/formats.md).
     #[arg(long, value_name = "FILE")]
     pub obs: PathBuf,
     /// Observing sites: CSV with name, lon_deg, lat_deg, height_m.
     #[arg(long, value_name = "FILE")]
     pub sites: Option<PathBuf>,
-    /// Planets in the model, comma-separated, or `none`.
+    /// Planets in the model, comma-separated, or `none` for a two-body orbit.
+    /// Inner planets not listed are folded into the Sun.
     #[arg(long, value_name = "LIST", default_value = "jupiter,saturn,uranus,neptune")]
     pub known: String,
-    /// `builtin` (VSOP87A) or a JPL SPK file.
+    /// `builtin` (VSOP87A, no file needed) or a JPL SPK file (types 2 and 3).
     #[arg(long, value_name = "builtin|FILE", default_value = "builtin")]
     pub ephemeris: String,
+}
+
+#[derive(Debug, clap::Args)]
+pub struct InferArgs {
+    #[command(flatten)]
+    pub input: InputArgs,
     /// When to give the perturber's sky position (ISO UTC or `JD <days> TDB`);
     /// default: the last observation.
     #[arg(long, value_name = "DATE")]
@@ -66,19 +74,8 @@ pub struct InferArgs {
 
 #[derive(Debug, clap::Args)]
 pub struct ResidualsArgs {
-    /// Observations: Latens CSV or IAU ADES PSV (see docs/formats.md).
-    #[arg(long, value_name = "FILE")]
-    pub obs: PathBuf,
-    /// Observing sites: CSV with name, lon_deg, lat_deg, height_m.
-    #[arg(long, value_name = "FILE")]
-    pub sites: Option<PathBuf>,
-    /// Planets in the model, comma-separated, or `none` for a two-body orbit.
-    /// Inner planets not listed are folded into the Sun.
-    #[arg(long, value_name = "LIST", default_value = "jupiter,saturn,uranus,neptune")]
-    pub known: String,
-    /// `builtin` (VSOP87A, no file needed) or a JPL SPK file (types 2 and 3).
-    #[arg(long, value_name = "builtin|FILE", default_value = "builtin")]
-    pub ephemeris: String,
+    #[command(flatten)]
+    pub input: InputArgs,
     /// Reference epoch of the orbit (ISO UTC or `JD <days> TDB`); default: mid-arc.
     #[arg(long, value_name = "DATE")]
     pub epoch: Option<String>,
@@ -113,8 +110,8 @@ mod tests {
         assert!(Args::try_parse_from(["latens", "residuals"]).is_err());
         let a = Args::try_parse_from(["latens", "residuals", "--obs", "o.csv"]).unwrap();
         let Command::Residuals(r) = a.command else { panic!("not residuals") };
-        assert_eq!(r.known, "jupiter,saturn,uranus,neptune");
-        assert_eq!(r.ephemeris, "builtin");
+        assert_eq!(r.input.known, "jupiter,saturn,uranus,neptune");
+        assert_eq!(r.input.ephemeris, "builtin");
     }
 
     #[test]

@@ -188,10 +188,12 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
     println!("Searching the residuals for an unseen perturber (latens infer):");
     let search_dir = args.out.join("search");
     super::infer::run(&super::args::InferArgs {
-        obs: survey.observations_path.clone(),
-        sites: Some(survey.sites_path.clone()),
-        known: "jupiter,saturn,uranus,neptune".into(),
-        ephemeris: "builtin".into(),
+        input: super::args::InputArgs {
+            obs: survey.observations_path.clone(),
+            sites: Some(survey.sites_path.clone()),
+            known: "jupiter,saturn,uranus,neptune".into(),
+            ephemeris: "builtin".into(),
+        },
         search_epoch: None,
         mass_earth: "0.01:5000".into(),
         distance_au: "5:500".into(),

@@ -45,15 +45,15 @@ fn parse_range(text: &str, what: &str) -> Result<(f64, f64), CliError> {
 }
 
 pub(super) fn run(args: &InferArgs) -> Result<(), CliError> {
-    let (observations, sites) = read_inputs(&args.obs, args.sites.as_ref())?;
-    let known = parse_known(&args.known).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+    let (observations, sites) = read_inputs(&args.input.obs, args.input.sites.as_ref())?;
+    let known = parse_known(&args.input.known).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
     let mass = parse_range(&args.mass_earth, "--mass-earth")?;
     let distance = parse_range(&args.distance_au, "--distance-au")?;
     if args.nulls < 20 {
         return Err(CliError::bad_input(anyhow::anyhow!("--nulls must be at least 20, got {}", args.nulls)));
     }
     let model = force_model(&known);
-    let ephemeris = load_ephemeris(&args.ephemeris, &model, &observations)?;
+    let ephemeris = load_ephemeris(&args.input.ephemeris, &model, &observations)?;
     let search_epoch = match &args.search_epoch {
         Some(text) => tdb_days_from_j2000(
             parse_epoch(text).map_err(|e| CliError::bad_input(anyhow::anyhow!("--search-epoch: {e}")))?,
@@ -61,10 +61,10 @@ pub(super) fn run(args: &InferArgs) -> Result<(), CliError> {
         None => observations.last().map(|o| o.t_tdb_days).unwrap_or(0.0),
     };
     // The ephemeris for the search epoch, which may lie outside the observed span.
-    let wide: Box<dyn Ephemeris> = if args.ephemeris == "builtin" {
+    let wide: Box<dyn Ephemeris> = if args.input.ephemeris == "builtin" {
         Box::new(Vsop87::new())
     } else {
-        Box::new(SpkFile::open(Path::new(&args.ephemeris)).map_err(CliError::bad_input)?)
+        Box::new(SpkFile::open(Path::new(&args.input.ephemeris)).map_err(CliError::bad_input)?)
     };
     for b in [Body::Earth, Body::Jupiter] {
         wide.check_covered(b, search_epoch).map_err(|e| CliError::bad_input(anyhow::anyhow!("--search-epoch: {e}")))?;
@@ -405,17 +405,9 @@ fn linearisation_error(
         nonlinear[2 * k] = w.0;
         nonlinear[2 * k + 1] = w.1;
     }
-    let orbit = KeplerOrbit::from_state(
-        kernel.central_gm(),
-        s.hypothesis.position_au,
-        s.hypothesis.velocity_au_per_day,
-        null.epoch_tdb_days,
-    )
-    .ok_or_else(|| CliError::failed(anyhow::anyhow!("unbound orbit")))?;
-    let mut linear = vec![0.0; 2 * n];
-    kernel.signal(&orbit, &mut linear);
-    linear.iter_mut().for_each(|x| *x *= s.gm_au3_per_day2);
-    kernel.project(&mut linear);
+    let linear = kernel
+        .projected_signal(s.hypothesis.position_au, s.hypothesis.velocity_au_per_day, s.gm_au3_per_day2)
+        .ok_or_else(|| CliError::failed(anyhow::anyhow!("unbound orbit")))?;
     kernel.project(&mut nonlinear);
     let (mut diff2, mut sig2, mut count) = (0.0, 0.0, 0usize);
     for k in 0..n {
@@ -453,18 +445,11 @@ fn best_fit_residuals(
     let Some(best) = best else {
         return out;
     };
-    let Some(orbit) = KeplerOrbit::from_state(
-        kernel.central_gm(),
-        best.hypothesis.position_au,
-        best.hypothesis.velocity_au_per_day,
-        kernel.epoch_tdb_days,
-    ) else {
+    let Some(s) =
+        kernel.projected_signal(best.hypothesis.position_au, best.hypothesis.velocity_au_per_day, best.gm_au3_per_day2)
+    else {
         return out;
     };
-    let mut s = vec![0.0; 2 * n];
-    kernel.signal(&orbit, &mut s);
-    s.iter_mut().for_each(|x| *x *= best.gm_au3_per_day2);
-    kernel.project(&mut s);
     for k in 0..n {
         // Unwhiten: w1 = r1/sa; w2 = (r2 - c sd w1)/(sd sqrt(1-c^2)).
         let o = &observations[k];

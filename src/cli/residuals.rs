@@ -127,10 +127,10 @@ fn input_error(e: InputError) -> CliError {
 }
 
 pub(super) fn run(args: &ResidualsArgs) -> Result<(), CliError> {
-    let (observations, sites) = read_inputs(&args.obs, args.sites.as_ref())?;
-    let known = parse_known(&args.known).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+    let (observations, sites) = read_inputs(&args.input.obs, args.input.sites.as_ref())?;
+    let known = parse_known(&args.input.known).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
     let model = force_model(&known);
-    let ephemeris = load_ephemeris(&args.ephemeris, &model, &observations)?;
+    let ephemeris = load_ephemeris(&args.input.ephemeris, &model, &observations)?;
     let epoch = match &args.epoch {
         Some(text) => Some(tdb_days_from_j2000(
             parse_epoch(text).map_err(|e| CliError::bad_input(anyhow::anyhow!("--epoch: {e}")))?,

@@ -387,6 +387,18 @@ impl LinearKernel {
         closest.sqrt()
     }
 
+    /// The whitened signal of a perturber with GM `gm` on the two-body orbit
+    /// through `position`/`velocity` at the epoch, with the orbit correction
+    /// removed; `None` for an unbound orbit.
+    pub fn projected_signal(&self, position_au: Vec3, velocity_au_per_day: Vec3, gm: f64) -> Option<Vec<f64>> {
+        let orbit = KeplerOrbit::from_state(self.gm_sun, position_au, velocity_au_per_day, self.epoch_tdb_days)?;
+        let mut s = vec![0.0; self.n_residuals()];
+        self.signal(&orbit, &mut s);
+        s.iter_mut().for_each(|x| *x *= gm);
+        self.project(&mut s);
+        Some(s)
+    }
+
     /// Removes the orbit-correction component from a whitened signal.
     pub fn project(&self, signal: &mut [f64]) {
         // The basis is orthonormal, so all six coefficients can be taken

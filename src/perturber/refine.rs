@@ -15,7 +15,7 @@ use crate::dynamics::{ForceModel, Perturber};
 use crate::ephemeris::Ephemeris;
 use crate::fit::{FitError, LeastSquaresProblem, Lm, LmReport};
 use crate::io::observations::Observation;
-use crate::reference::{OrbitModel, ReferenceFit, residual_arcsec, whiten};
+use crate::reference::{OrbitModel, ReferenceFit, whiten, whitened_residuals};
 use crate::units::RAD_PER_ARCSEC;
 use crate::vec3::Vec3;
 
@@ -81,11 +81,7 @@ impl LeastSquaresProblem for PerturberProblem<'_, '_> {
         let q = self.full_params(params);
         self.set_perturber(&q);
         let pred = self.model.predict(&q[..6], false).map_err(|e| FitError::Problem(e.to_string()))?;
-        for (k, (obs, p)) in self.model.observations.iter().zip(&pred).enumerate() {
-            let (w1, w2) = if self.used[k] { whiten(obs, residual_arcsec(obs, &p.radec)) } else { (0.0, 0.0) };
-            out[2 * k] = w1;
-            out[2 * k + 1] = w2;
-        }
+        whitened_residuals(self.model.observations, &pred, &self.used, out);
         Ok(())
     }
 

@@ -126,6 +126,16 @@ pub fn whiten(obs: &Observation, r: (f64, f64)) -> (f64, f64) {
     (w1, w2)
 }
 
+/// Fills `out` (length 2N) with the whitened O-C of every used observation
+/// and zeros for the set-aside ones.
+pub fn whitened_residuals(observations: &[Observation], predictions: &[Prediction], used: &[bool], out: &mut [f64]) {
+    for (k, (obs, p)) in observations.iter().zip(predictions).enumerate() {
+        let (w1, w2) = if used[k] { whiten(obs, residual_arcsec(obs, &p.radec)) } else { (0.0, 0.0) };
+        out[2 * k] = w1;
+        out[2 * k + 1] = w2;
+    }
+}
+
 /// The weighted least-squares problem of the reference orbit: parameters are
 /// the state at the epoch; observations marked unused contribute zeros.
 pub struct OrbitProblem<'m, 'a> {
@@ -144,11 +154,7 @@ impl LeastSquaresProblem for OrbitProblem<'_, '_> {
 
     fn residuals(&mut self, params: &[f64], out: &mut [f64]) -> Result<(), FitError> {
         let pred = self.model.predict(params, false).map_err(|e| FitError::Problem(e.to_string()))?;
-        for (k, (obs, p)) in self.model.observations.iter().zip(&pred).enumerate() {
-            let (w1, w2) = if self.used[k] { whiten(obs, residual_arcsec(obs, &p.radec)) } else { (0.0, 0.0) };
-            out[2 * k] = w1;
-            out[2 * k + 1] = w2;
-        }
+        whitened_residuals(self.model.observations, &pred, &self.used, out);
         Ok(())
     }
 
