@@ -1,7 +1,8 @@
 //! `latens demo`: the built-in invented scenario.
 //!
-//! The scenario is invented: a distant minor body, here called Vesk, followed
-//! by an invented survey from an invented site. The demo runs the stages that
+//! The scenario is invented: a distant minor body, here called Vesk, pulled
+//! by an invented hidden planet, Orla (5 Earth masses, 33 au, inclined 28
+//! degrees), and followed by an invented survey from an invented site. The demo runs the stages that
 //! exist: it propagates Vesk under the Sun and the giant planets, simulates
 //! the survey's astrometry with seeded noise, reads it back as any user's
 //! file would be read, fits the reference orbit (starting from Gauss's
@@ -16,7 +17,7 @@ use super::CliError;
 use super::args::DemoArgs;
 use super::residuals::ResidualProducts;
 use crate::dynamics::kepler::{Elements, elements_from_state, propagate, state_from_elements};
-use crate::dynamics::{ForceModel, InitialState, PropagationSettings, Propagator};
+use crate::dynamics::{ForceModel, InitialState, Perturber, PropagationSettings, Propagator};
 use crate::ephemeris::{Body, Ephemeris, Vsop87};
 use crate::frames::{angular_separation, ecliptic_from_icrf, icrf_from_ecliptic, radec_from_vector};
 use crate::io::observations::{SiteTable, read_observations};
@@ -49,6 +50,31 @@ const VESK: InventedBody = InventedBody {
     node_deg: 112.4,
     peri_deg: 281.0,
     mean_anomaly_deg: 35.0,
+};
+
+/// The invented hidden planet that pulls on Vesk: its mass and osculating
+/// heliocentric elements (ecliptic J2000) at the same reference epoch. Five
+/// Earth masses on an orbit inclined 28 degrees, about 20 au from Vesk.
+struct HiddenPlanet {
+    name: &'static str,
+    mass_earth: f64,
+    a_au: f64,
+    e: f64,
+    i_deg: f64,
+    node_deg: f64,
+    peri_deg: f64,
+    mean_anomaly_deg: f64,
+}
+
+const ORLA: HiddenPlanet = HiddenPlanet {
+    name: "Orla",
+    mass_earth: 5.0,
+    a_au: 33.0,
+    e: 0.08,
+    i_deg: 28.0,
+    node_deg: 40.0,
+    peri_deg: 0.0,
+    mean_anomaly_deg: 20.0,
 };
 
 /// First and last night of the invented survey, and the spacing of its visits.
@@ -85,11 +111,27 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
     let model = ForceModel::outer_planets_with_inner_folded();
     let ephemeris =
         model.tabulate(&Vsop87::new(), &[Body::Earth], (t_start - 1.0, t_end + 1.0)).map_err(CliError::failed)?;
+    let hidden = &ORLA;
+    let hidden_elements = Elements::from_semi_major_axis(
+        hidden.a_au,
+        hidden.e,
+        hidden.i_deg * RAD_PER_DEG,
+        hidden.node_deg * RAD_PER_DEG,
+        hidden.peri_deg * RAD_PER_DEG,
+        hidden.mean_anomaly_deg * RAD_PER_DEG,
+    )
+    .map_err(CliError::failed)?;
+    let (hr, hv) = state_from_elements(GM_SUN_AU3_PER_DAY2, &hidden_elements).map_err(CliError::failed)?;
+    let hidden_state = Perturber {
+        gm_au3_per_day2: hidden.mass_earth * crate::units::EARTH_MASS_SOLAR * GM_SUN_AU3_PER_DAY2,
+        position_au: icrf_from_ecliptic(hr),
+        velocity_au_per_day: icrf_from_ecliptic(hv),
+    };
     let initial = InitialState {
         t0_tdb_days: t_ref,
         tracked_position_au: r0,
         tracked_velocity_au_per_day: v0,
-        perturbers: Vec::new(),
+        perturbers: vec![hidden_state],
     };
     let trajectory = Propagator::new(&model, &ephemeris, PropagationSettings::fast())
         .and_then(|mut p| p.propagate(&initial, &epochs))
@@ -175,6 +217,10 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
         observations.len(),
         SURVEY_SITE.0
     );
+    println!(
+        "  (the survey's positions include the pull of an invented hidden planet, {}, which the fit does not know about)",
+        hidden.name
+    );
     println!("  fitted the reference orbit from the observations alone ({}):", fit.start);
     for line in products.summary.lines() {
         println!("  {line}");
@@ -183,11 +229,10 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
         "  the fitted position at the reference epoch is {:.0} km from the true one",
         (recovered - r0).norm() * crate::units::AU_KM
     );
-    // The perturber search on the same survey (this scenario has no hidden
-    // planet yet, so the honest answer is "not detected").
+    // The perturber search on the same survey.
     println!("Searching the residuals for an unseen perturber (latens infer):");
     let search_dir = args.out.join("search");
-    super::infer::run(&super::args::InferArgs {
+    let summary = super::infer::run(&super::args::InferArgs {
         input: super::args::InputArgs {
             obs: survey.observations_path.clone(),
             sites: Some(survey.sites_path.clone()),
@@ -203,6 +248,27 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
         seed: SURVEY_SEED,
         out: search_dir.clone(),
     })?;
+    // Where the hidden planet really is at the search epoch, against the
+    // search's basins (the demo knows the truth; a user would not).
+    let search_epoch = observations.last().map(|o| o.t_tdb_days).unwrap_or(t_end);
+    let truth_traj = Propagator::new(&model, &ephemeris, PropagationSettings::fast())
+        .and_then(|mut p| p.propagate(&initial, &[search_epoch]))
+        .map_err(CliError::failed)?;
+    let earth = ephemeris.heliocentric_position_au(Body::Earth, search_epoch).map_err(CliError::failed)?;
+    let truth_dir = truth_traj.perturbers[0][0].position_au - earth;
+    let truth_place = radec_from_vector(truth_dir);
+    println!(
+        "  the invented hidden planet {} ({} Earth masses) is really at RA {:.2} deg, Dec {:+.2} deg at the search epoch",
+        hidden.name,
+        hidden.mass_earth,
+        truth_place.ra_rad / RAD_PER_DEG,
+        truth_place.dec_rad / RAD_PER_DEG
+    );
+    for (k, b) in summary.basins.iter().enumerate() {
+        let place = crate::frames::RaDec { ra_rad: b.ra_deg * RAD_PER_DEG, dec_rad: b.dec_deg * RAD_PER_DEG };
+        let sep = crate::frames::angular_separation_radec(place, truth_place) / RAD_PER_DEG;
+        println!("  basin {}: {sep:.1} deg from where {} really is", k + 1, hidden.name);
+    }
     println!("What this demo did not do yet: the posterior sampling, the search products (sky map, credible");
     println!("regions) and the sensitivity map. Those stages are not built yet.");
     println!("Files written:");

@@ -44,7 +44,7 @@ fn parse_range(text: &str, what: &str) -> Result<(f64, f64), CliError> {
     Ok((a, b))
 }
 
-pub(super) fn run(args: &InferArgs) -> Result<(), CliError> {
+pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
     let (observations, sites) = read_inputs(&args.input.obs, args.input.sites.as_ref())?;
     let known = parse_known(&args.input.known).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
     let mass = parse_range(&args.mass_earth, "--mass-earth")?;
@@ -261,7 +261,7 @@ pub(super) fn run(args: &InferArgs) -> Result<(), CliError> {
     println!(
         "  residuals_null_vs_best.png (.svg)  O-C of the null model and of the best perturber solution, side by side"
     );
-    Ok(())
+    Ok(summary)
 }
 
 fn refined_file(r: &crate::perturber::refine::Refinement, null: &ReferenceFit) -> crate::io::results::RefinedFile {

@@ -66,7 +66,7 @@ fn run(args: Args) -> Result<(), CliError> {
     match args.command {
         Command::Demo(demo_args) => demo::run(&demo_args),
         Command::Residuals(r) => residuals::run(&r),
-        Command::Infer(i) => infer::run(&i),
+        Command::Infer(i) => infer::run(&i).map(|_| ()),
     }
 }
 
