@@ -21,6 +21,67 @@ pub enum Command {
     Residuals(ResidualsArgs),
     /// Search for an unseen perturber in the residuals and judge whether it is real.
     Infer(InferArgs),
+    /// Map which perturber masses at which distances the observations could reveal.
+    Sensitivity(SensitivityArgs),
+}
+
+#[derive(Debug, clap::Args)]
+#[command(args_conflicts_with_subcommands = true)]
+pub struct SensitivityArgs {
+    #[command(subcommand)]
+    pub command: Option<SensitivityCommand>,
+    #[command(flatten)]
+    pub input: Option<InputArgs>,
+    /// Mass range of the map, Earth masses (log-spaced).
+    #[arg(long, value_name = "MIN:MAX", default_value = "0.1:10000")]
+    pub mass_earth: String,
+    /// Heliocentric distance range of the map, au (log-spaced).
+    #[arg(long, value_name = "MIN:MAX", default_value = "10:1000")]
+    pub distance_au: String,
+    /// Cells: masses by distances.
+    #[arg(long, value_name = "NMASS:NDIST", default_value = "40:40")]
+    pub grid: String,
+    /// Perturber configurations drawn per distance.
+    #[arg(long, value_name = "N", default_value_t = 64)]
+    pub trials: usize,
+    /// False-alarm probability that defines a detection (as in `latens infer`).
+    #[arg(long, value_name = "P", default_value_t = 0.0027)]
+    pub fap: f64,
+    /// Only directions within this many degrees of the ecliptic (default: isotropic).
+    #[arg(long, value_name = "DEG")]
+    pub near_ecliptic: Option<f64>,
+    /// Null simulations for the detection threshold.
+    #[arg(long, value_name = "N", default_value_t = 1000)]
+    pub nulls: usize,
+    /// Directions of the search grid whose false alarms set the threshold
+    /// (as `latens infer --directions`).
+    #[arg(long, value_name = "N", default_value_t = 768)]
+    pub directions: usize,
+    /// Distances of that search grid (as `latens infer --distances`).
+    #[arg(long, value_name = "N", default_value_t = 20)]
+    pub distances: usize,
+    /// Compute only slice K of N of the cells (same numbers as an unsharded run).
+    #[arg(long, value_name = "K/N")]
+    pub shard: Option<String>,
+    /// Seed of all random draws.
+    #[arg(long, value_name = "N", default_value_t = 1)]
+    pub seed: u64,
+    /// Directory to write into.
+    #[arg(long, value_name = "DIR", default_value = "output/sensitivity")]
+    pub out: PathBuf,
+}
+
+#[derive(Debug, Subcommand)]
+pub enum SensitivityCommand {
+    /// Join shard files (sensitivity.part-K-of-N.csv) into the full map.
+    Merge {
+        /// Directories holding the shard files.
+        #[arg(required = true)]
+        dirs: Vec<PathBuf>,
+        /// Directory to write the merged map into.
+        #[arg(long, value_name = "DIR")]
+        out: Option<PathBuf>,
+    },
 }
 
 /// What every fitting command reads: observations, sites, force model, ephemeris.

@@ -7,6 +7,7 @@ mod args;
 mod demo;
 mod infer;
 mod residuals;
+mod sensitivity;
 
 use std::ffi::OsString;
 use std::process::ExitCode;
@@ -67,6 +68,7 @@ fn run(args: Args) -> Result<(), CliError> {
         Command::Demo(demo_args) => demo::run(&demo_args),
         Command::Residuals(r) => residuals::run(&r),
         Command::Infer(i) => infer::run(&i).map(|_| ()),
+        Command::Sensitivity(s) => sensitivity::run(&s),
     }
 }
 

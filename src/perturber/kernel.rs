@@ -399,6 +399,22 @@ impl LinearKernel {
         Some(s)
     }
 
+    /// Closest approach (au) at the quadrature nodes between the tracked body
+    /// and a perturber on the two-body orbit through `position`/`velocity`
+    /// (infinite for an unbound orbit).
+    pub fn closest_approach(&self, position_au: Vec3, velocity_au_per_day: Vec3) -> f64 {
+        let Some(orbit) = KeplerOrbit::from_state(self.gm_sun, position_au, velocity_au_per_day, self.epoch_tdb_days)
+        else {
+            return f64::INFINITY;
+        };
+        let mut guess = f64::NAN;
+        self.node_t
+            .iter()
+            .zip(&self.node_r)
+            .map(|(&t, r)| (orbit.position(t, &mut guess) - *r).norm())
+            .fold(f64::INFINITY, f64::min)
+    }
+
     /// Removes the orbit-correction component from a whitened signal.
     pub fn project(&self, signal: &mut [f64]) {
         // The basis is orthonormal, so all six coefficients can be taken

@@ -4,10 +4,12 @@
 //!   perturber hypothesis.
 //! - [`search`]: the grid over hypotheses, basins, null simulations.
 //! - [`refine`]: the 13-parameter refinement on the full nonlinear model.
+//! - [`sensitivity`]: detection probability over mass and distance.
 
 pub mod kernel;
 pub mod refine;
 pub mod search;
+pub mod sensitivity;
 
 pub use kernel::{KeplerOrbit, LinearKernel};
 pub use search::{Hypothesis, Scored, SearchResult, SearchSettings, grid_search};

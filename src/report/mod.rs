@@ -2,6 +2,7 @@
 //! propagates an orbit.
 
 pub mod residual_chart;
+pub mod sensitivity_chart;
 
 /// Registers the embedded DejaVu Sans font with plotters once, so charts need
 /// no system font library.

@@ -1,0 +1,266 @@
+//! `latens sensitivity`: the detection-probability map over perturber mass
+//! and distance, in shards for job arrays, and `latens sensitivity merge`.
+
+use std::fmt::Write as _;
+use std::path::{Path, PathBuf};
+
+use anyhow::Context;
+
+use super::CliError;
+use super::args::{SensitivityArgs, SensitivityCommand};
+use super::residuals::{force_model, load_ephemeris, parse_known, read_inputs};
+use crate::io::write_atomically;
+use crate::perturber::search::SearchSettings;
+use crate::perturber::sensitivity::{Cell, SensitivitySettings, compute_cells, contour};
+use crate::perturber::{LinearKernel, grid_search};
+use crate::reference::{ReferenceSettings, fit_reference_orbit, observing_geometry};
+use crate::report::sensitivity_chart::SensitivityChart;
+
+const HEADER: &str =
+    "mass_earth,distance_au,detection_probability,n_trials,median_delta_chi2,mass_index,distance_index";
+
+fn parse_pair<T: std::str::FromStr>(text: &str, sep: char, what: &str) -> Result<(T, T), CliError> {
+    let bad = || CliError::bad_input(anyhow::anyhow!("{what}: cannot read `{text}`"));
+    let (a, b) = text.split_once(sep).ok_or_else(bad)?;
+    Ok((a.trim().parse().map_err(|_| bad())?, b.trim().parse().map_err(|_| bad())?))
+}
+
+pub(super) fn run(args: &SensitivityArgs) -> Result<(), CliError> {
+    if let Some(SensitivityCommand::Merge { dirs, out }) = &args.command {
+        return merge(dirs, out.as_ref().unwrap_or(&args.out));
+    }
+    let Some(input) = &args.input else {
+        return Err(CliError::bad_input(anyhow::anyhow!("give --obs FILE (or use `latens sensitivity merge DIR...`)")));
+    };
+    let mass: (f64, f64) = parse_pair(&args.mass_earth, ':', "--mass-earth")?;
+    let distance: (f64, f64) = parse_pair(&args.distance_au, ':', "--distance-au")?;
+    let grid: (usize, usize) = parse_pair(&args.grid, ':', "--grid")?;
+    if !(mass.0 > 0.0 && mass.1 > mass.0 && distance.0 > 0.0 && distance.1 > distance.0) {
+        return Err(CliError::bad_input(anyhow::anyhow!("--mass-earth and --distance-au need 0 < MIN < MAX")));
+    }
+    if grid.0 < 2 || grid.1 < 2 || args.trials < 1 || !(args.fap > 0.0 && args.fap < 1.0) {
+        return Err(CliError::bad_input(anyhow::anyhow!(
+            "--grid needs at least 2:2, --trials at least 1, --fap in (0, 1)"
+        )));
+    }
+    let shard = match &args.shard {
+        Some(text) => {
+            let (k, n): (usize, usize) = parse_pair(text, '/', "--shard")?;
+            if n == 0 || k == 0 || k > n {
+                return Err(CliError::bad_input(anyhow::anyhow!("--shard K/N needs 1 <= K <= N, got {text}")));
+            }
+            Some((k, n))
+        }
+        None => None,
+    };
+    let (observations, sites) = read_inputs(&input.obs, input.sites.as_ref())?;
+    let known = parse_known(&input.known).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+    let model = force_model(&known);
+    let ephemeris = load_ephemeris(&input.ephemeris, &model, &observations)?;
+
+    eprintln!("Fitting the reference orbit and building the kernel...");
+    let null =
+        fit_reference_orbit(&observations, &sites, &model, ephemeris.as_ref(), &ReferenceSettings::default(), None)
+            .map_err(CliError::failed)?;
+    let geometry = observing_geometry(&observations, &sites, ephemeris.as_ref()).map_err(CliError::failed)?;
+    let kernel =
+        LinearKernel::build(&null, &observations, geometry, &model, ephemeris.as_ref()).map_err(CliError::failed)?;
+
+    // The detection threshold of `latens infer` for these data: the
+    // (1 - fap) quantile of its search maxima on noise alone.
+    eprintln!("Calibrating the detection threshold with null simulations of the search...");
+    if args.directions < 12 || args.distances < 2 || args.nulls < 20 {
+        return Err(CliError::bad_input(anyhow::anyhow!(
+            "--directions >= 12, --distances >= 2 and --nulls >= 20 are needed"
+        )));
+    }
+    let search = SearchSettings {
+        n_null: args.nulls,
+        seed: args.seed,
+        n_directions: args.directions,
+        n_distances: args.distances,
+        ..SearchSettings::default()
+    };
+    let zeros = vec![0.0; kernel.n_residuals()];
+    let nulls = grid_search(&kernel.with_residuals(&zeros), &search, &|_| {});
+    let mut maxima = nulls.null_maxima.clone();
+    maxima.sort_by(f64::total_cmp);
+    let q = ((1.0 - args.fap) * maxima.len() as f64).ceil() as usize;
+    let threshold = maxima[q.min(maxima.len()) - 1];
+
+    let settings = SensitivitySettings {
+        mass_earth: mass,
+        distance_au: distance,
+        n_masses: grid.0,
+        n_distances: grid.1,
+        n_trials: args.trials,
+        max_ecliptic_latitude_deg: args.near_ecliptic,
+        seed: args.seed,
+        min_separation_au: search.min_separation_au,
+    };
+    let all: Vec<(usize, usize)> = (0..grid.1).flat_map(|d| (0..grid.0).map(move |m| (m, d))).collect();
+    let mine: Vec<(usize, usize)> = match shard {
+        Some((k, n)) => all.iter().enumerate().filter(|(i, _)| i % n == k - 1).map(|(_, c)| *c).collect(),
+        None => all,
+    };
+    let n_dist = {
+        let mut d: Vec<usize> = mine.iter().map(|c| c.1).collect();
+        d.sort();
+        d.dedup();
+        d.len()
+    };
+    let bar = indicatif::ProgressBar::new(n_dist as u64);
+    bar.set_style(
+        indicatif::ProgressStyle::with_template("mapping {bar:40} {pos}/{len} distances ({eta} left)")
+            .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar()),
+    );
+    let cells = compute_cells(&kernel, &settings, threshold, &mine, &|n| bar.set_position(n as u64));
+    bar.finish_and_clear();
+
+    let mut csv = format!(
+        "# latens sensitivity: detection threshold delta chi2 {threshold:.4} (false-alarm probability {}), seed {}, grid {}:{}, trials {}\n{HEADER}\n",
+        args.fap, args.seed, grid.0, grid.1, args.trials
+    );
+    for c in &cells {
+        let _ = writeln!(
+            csv,
+            "{},{},{:.6},{},{:.4},{},{}",
+            c.mass_earth,
+            c.distance_au,
+            c.detection_probability,
+            c.n_trials,
+            c.median_delta_chi2,
+            c.mass_index,
+            c.distance_index
+        );
+    }
+    match shard {
+        Some((k, n)) => {
+            let path = args.out.join(format!("sensitivity.part-{k}-of-{n}.csv"));
+            write_atomically(&path, csv.as_bytes()).map_err(CliError::failed)?;
+            println!("Shard {k} of {n}: {} cells written to {}", cells.len(), path.display());
+            println!("Join the shards with: latens sensitivity merge DIR... --out DIR");
+        }
+        None => {
+            write_products(&args.out, &csv, &cells, threshold).map_err(CliError::failed)?;
+        }
+    }
+    Ok(())
+}
+
+fn write_products(out: &Path, csv: &str, cells: &[Cell], threshold: f64) -> anyhow::Result<()> {
+    let c50 = contour(cells, 0.5);
+    let c90 = contour(cells, 0.9);
+    let c95 = contour(cells, 0.95);
+    let keep = |c: &[(f64, Option<f64>)]| c.iter().filter_map(|(d, m)| m.map(|m| (*d, m))).collect::<Vec<_>>();
+    let map: Vec<(f64, f64, f64)> =
+        cells.iter().map(|c| (c.distance_au, c.mass_earth, c.detection_probability)).collect();
+    let chart = SensitivityChart {
+        cells: &map,
+        contour_50: keep(&c50),
+        contour_90: keep(&c90),
+        exclusion_95: keep(&c95),
+        title: format!("Detection probability (threshold delta chi2 {threshold:.1})"),
+    };
+    let svg = chart.draw_svg().map_err(|e| anyhow::anyhow!("drawing the map: {e}"))?;
+    std::fs::create_dir_all(out).with_context(|| format!("creating {}", out.display()))?;
+    let png = out.join("sensitivity.png");
+    let tmp = out.join(format!(".sensitivity.{}.tmp.png", std::process::id()));
+    chart.draw_png(&tmp).map_err(|e| anyhow::anyhow!("drawing {}: {e}", png.display()))?;
+    std::fs::rename(&tmp, &png).with_context(|| format!("writing {}", png.display()))?;
+    write_atomically(&out.join("sensitivity.svg"), svg.as_bytes())?;
+    write_atomically(&out.join("sensitivity.csv"), csv.as_bytes())?;
+    println!("Mass detected with 50% / 90% probability, and excluded at 95% if nothing is detected:");
+    for ((d, m50), ((_, m90), (_, m95))) in c50.iter().zip(c90.iter().zip(&c95)).step_by((c50.len() / 8).max(1)) {
+        let f = |m: &Option<f64>| m.map_or("beyond the grid".to_string(), |m| format!("{m:.3} Earth masses"));
+        println!("  at {d:7.1} au: {} / {} / {}", f(m50), f(m90), f(m95));
+    }
+    println!("Files written in {}: sensitivity.csv, sensitivity.png, sensitivity.svg", out.display());
+    Ok(())
+}
+
+/// Joins shard files into the full map; refuses missing or repeated cells.
+fn merge(dirs: &[PathBuf], out: &Path) -> Result<(), CliError> {
+    let mut header_comment: Option<String> = None;
+    let mut cells: Vec<Cell> = Vec::new();
+    for dir in dirs {
+        let entries = std::fs::read_dir(dir)
+            .with_context(|| format!("reading {}", dir.display()))
+            .map_err(CliError::bad_input)?;
+        let mut parts: Vec<PathBuf> = entries
+            .filter_map(|e| e.ok().map(|e| e.path()))
+            .filter(|p| p.file_name().is_some_and(|n| n.to_string_lossy().starts_with("sensitivity.part-")))
+            .collect();
+        parts.sort();
+        for part in parts {
+            let text = std::fs::read_to_string(&part)
+                .with_context(|| format!("reading {}", part.display()))
+                .map_err(CliError::bad_input)?;
+            for (i, line) in text.lines().enumerate() {
+                let bad = |what: &str| CliError::bad_input(anyhow::anyhow!("{}:{}: {what}", part.display(), i + 1));
+                if let Some(comment) = line.strip_prefix('#') {
+                    match &header_comment {
+                        None => header_comment = Some(comment.to_string()),
+                        Some(h) if h != comment => return Err(bad("made with other settings than the first shard")),
+                        _ => {}
+                    }
+                    continue;
+                }
+                if line == HEADER || line.trim().is_empty() {
+                    continue;
+                }
+                let f: Vec<&str> = line.split(',').collect();
+                if f.len() != 7 {
+                    return Err(bad("expected 7 fields"));
+                }
+                let num = |k: usize| f[k].parse::<f64>().map_err(|_| bad(&format!("field {} is not a number", k + 1)));
+                let idx =
+                    |k: usize| f[k].parse::<usize>().map_err(|_| bad(&format!("field {} is not an index", k + 1)));
+                cells.push(Cell {
+                    mass_earth: num(0)?,
+                    distance_au: num(1)?,
+                    detection_probability: num(2)?,
+                    n_trials: idx(3)?,
+                    median_delta_chi2: num(4)?,
+                    mass_index: idx(5)?,
+                    distance_index: idx(6)?,
+                });
+            }
+        }
+    }
+    let Some(comment) = header_comment else {
+        return Err(CliError::bad_input(anyhow::anyhow!("no sensitivity.part-*.csv files in the given directories")));
+    };
+    cells.sort_by_key(|c| (c.distance_index, c.mass_index));
+    let n_mass = cells.iter().map(|c| c.mass_index).max().map_or(0, |m| m + 1);
+    let n_dist = cells.iter().map(|c| c.distance_index).max().map_or(0, |d| d + 1);
+    if cells.len() != n_mass * n_dist
+        || cells.windows(2).any(|w| (w[0].distance_index, w[0].mass_index) == (w[1].distance_index, w[1].mass_index))
+    {
+        return Err(CliError::bad_input(anyhow::anyhow!(
+            "the shards hold {} cells for a {n_mass} x {n_dist} grid: some are missing or repeated",
+            cells.len()
+        )));
+    }
+    let threshold = comment
+        .split("delta chi2 ")
+        .nth(1)
+        .and_then(|s| s.split_whitespace().next())
+        .and_then(|s| s.parse::<f64>().ok())
+        .unwrap_or(f64::NAN);
+    let mut csv = format!("#{comment}\n{HEADER}\n");
+    for c in &cells {
+        let _ = writeln!(
+            csv,
+            "{},{},{:.6},{},{:.4},{},{}",
+            c.mass_earth,
+            c.distance_au,
+            c.detection_probability,
+            c.n_trials,
+            c.median_delta_chi2,
+            c.mass_index,
+            c.distance_index
+        );
+    }
+    write_products(out, &csv, &cells, threshold).map_err(CliError::failed)
+}

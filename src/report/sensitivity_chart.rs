@@ -1,0 +1,121 @@
+//! The sensitivity map: detection probability over log mass and log
+//! distance, with the 50% and 90% detection contours and the 95% exclusion
+//! curve. Greyscale cells (white = never detected, black = always), so it
+//! reads in print; the curves in one accent colour with different dashes.
+
+use plotters::prelude::*;
+
+/// One cell to draw: distance (au), mass (Earth masses), probability.
+pub type MapCell = (f64, f64, f64);
+
+/// A curve: (distance, mass) points.
+pub type Curve = Vec<(f64, f64)>;
+
+pub struct SensitivityChart<'a> {
+    pub cells: &'a [MapCell],
+    pub contour_50: Curve,
+    pub contour_90: Curve,
+    pub exclusion_95: Curve,
+    pub title: String,
+}
+
+const INK: RGBColor = RGBColor(40, 40, 40);
+const ACCENT: RGBColor = RGBColor(200, 80, 20);
+
+impl SensitivityChart<'_> {
+    pub fn draw_png(&self, path: &std::path::Path) -> Result<(), String> {
+        super::register_fonts();
+        let root = BitMapBackend::new(path, (1400, 1000)).into_drawing_area();
+        self.draw(&root).map_err(|e| e.to_string())?;
+        root.present().map_err(|e| e.to_string())
+    }
+
+    pub fn draw_svg(&self) -> Result<String, String> {
+        super::register_fonts();
+        let mut out = String::new();
+        {
+            let root = SVGBackend::with_string(&mut out, (1400, 1000)).into_drawing_area();
+            self.draw(&root).map_err(|e| e.to_string())?;
+            root.present().map_err(|e| e.to_string())?;
+        }
+        Ok(out)
+    }
+
+    fn draw<DB: DrawingBackend>(
+        &self,
+        root: &DrawingArea<DB, plotters::coord::Shift>,
+    ) -> Result<(), DrawingAreaErrorKind<DB::ErrorType>> {
+        root.fill(&WHITE)?;
+        let lx: Vec<f64> = self.cells.iter().map(|c| c.0.log10()).collect();
+        let ly: Vec<f64> = self.cells.iter().map(|c| c.1.log10()).collect();
+        let (x0, x1) = minmax(&lx);
+        let (y0, y1) = minmax(&ly);
+        // Half a cell beyond the centres on each side.
+        let nx = distinct_count(&lx).max(2) as f64;
+        let ny = distinct_count(&ly).max(2) as f64;
+        let (hx, hy) = (0.5 * (x1 - x0) / (nx - 1.0), 0.5 * (y1 - y0) / (ny - 1.0));
+        let mut chart = ChartBuilder::on(root)
+            .caption(self.title.clone(), ("sans-serif", 26).into_font().color(&INK))
+            .margin(25)
+            .x_label_area_size(60)
+            .y_label_area_size(90)
+            .build_cartesian_2d((x0 - hx)..(x1 + hx), (y0 - hy)..(y1 + hy))?;
+        chart
+            .configure_mesh()
+            .disable_mesh()
+            .x_desc("heliocentric distance of the perturber (au)")
+            .y_desc("perturber mass (Earth masses)")
+            .x_label_formatter(&|v| {
+                format!("{:.3}", 10f64.powf(*v)).trim_end_matches('0').trim_end_matches('.').to_string()
+            })
+            .y_label_formatter(&|v| {
+                format!("{:.3}", 10f64.powf(*v)).trim_end_matches('0').trim_end_matches('.').to_string()
+            })
+            .label_style(("sans-serif", 18).into_font().color(&INK))
+            .axis_desc_style(("sans-serif", 20).into_font().color(&INK))
+            .draw()?;
+        chart.draw_series(self.cells.iter().zip(lx.iter().zip(&ly)).map(|(c, (&x, &y))| {
+            let g = (255.0 * (1.0 - c.2.clamp(0.0, 1.0))) as u8;
+            Rectangle::new([(x - hx, y - hy), (x + hx, y + hy)], RGBColor(g, g, g).filled())
+        }))?;
+        let to_log = |c: &Curve| c.iter().map(|(d, m)| (d.log10(), m.log10())).collect::<Vec<_>>();
+        chart
+            .draw_series(LineSeries::new(to_log(&self.contour_50), ACCENT.stroke_width(2)))?
+            .label("50% detection")
+            .legend(|(x, y)| PathElement::new([(x - 12, y), (x + 12, y)], ACCENT.stroke_width(2)));
+        chart
+            .draw_series(DashedLineSeries::new(to_log(&self.contour_90), 10, 6, ACCENT.stroke_width(3)))?
+            .label("90% detection")
+            .legend(|(x, y)| PathElement::new([(x - 12, y), (x + 12, y)], ACCENT.stroke_width(3)));
+        chart
+            .draw_series(DashedLineSeries::new(
+                to_log(&self.exclusion_95),
+                3,
+                5,
+                RGBColor(20, 90, 200).stroke_width(4),
+            ))?
+            .label("95% exclusion (above: ruled out if nothing is detected)")
+            .legend(|(x, y)| PathElement::new([(x - 12, y), (x + 12, y)], RGBColor(20, 90, 200).stroke_width(4)));
+        chart
+            .configure_series_labels()
+            .position(SeriesLabelPosition::LowerRight)
+            .label_font(("sans-serif", 18).into_font().color(&INK))
+            .background_style(WHITE.mix(0.9))
+            .border_style(INK)
+            .draw()?;
+        Ok(())
+    }
+}
+
+fn minmax(v: &[f64]) -> (f64, f64) {
+    let lo = v.iter().copied().fold(f64::INFINITY, f64::min);
+    let hi = v.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    if hi > lo { (lo, hi) } else { (lo - 0.5, lo + 0.5) }
+}
+
+fn distinct_count(v: &[f64]) -> usize {
+    let mut s: Vec<f64> = v.to_vec();
+    s.sort_by(f64::total_cmp);
+    s.dedup_by(|a, b| (*a - *b).abs() < 1e-12);
+    s.len()
+}
