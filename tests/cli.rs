@@ -64,7 +64,8 @@ fn demo_writes_its_track_and_says_what_it_did() {
     let mut names: Vec<String> =
         std::fs::read_dir(&dir).unwrap().map(|e| e.unwrap().file_name().to_string_lossy().into_owned()).collect();
     names.sort();
-    assert_eq!(names, ["observations.csv", "residuals", "search", "sites.csv", "track.csv"]);
+    assert_eq!(names, ["observations.csv", "residuals", "search", "sensitivity", "sites.csv", "track.csv"]);
+    assert!(dir.join("sensitivity/sensitivity.png").exists());
     let search: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(dir.join("search/summary.json")).unwrap()).unwrap();
     assert_eq!(search["detection"]["detected"], serde_json::Value::Bool(true));

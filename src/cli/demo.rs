@@ -269,8 +269,32 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
         let sep = crate::frames::angular_separation_radec(place, truth_place) / RAD_PER_DEG;
         println!("  basin {}: {sep:.1} deg from where {} really is", k + 1, hidden.name);
     }
-    println!("What this demo did not do yet: the posterior sampling, the search products (sky map, credible");
-    println!("regions) and the sensitivity map. Those stages are not built yet.");
+    // What this survey could have revealed at all.
+    println!("Mapping which perturber masses at which distances this survey could reveal (latens sensitivity):");
+    let sensitivity_dir = args.out.join("sensitivity");
+    super::sensitivity::run(&super::args::SensitivityArgs {
+        command: None,
+        input: Some(super::args::InputArgs {
+            obs: survey.observations_path.clone(),
+            sites: Some(survey.sites_path.clone()),
+            known: "jupiter,saturn,uranus,neptune".into(),
+            ephemeris: "builtin".into(),
+        }),
+        mass_earth: "0.1:10000".into(),
+        distance_au: "10:1000".into(),
+        grid: "24:24".into(),
+        trials: 48,
+        fap: super::infer::DETECTION_FAP,
+        near_ecliptic: None,
+        nulls: 500,
+        directions: 768,
+        distances: 20,
+        shard: None,
+        seed: SURVEY_SEED,
+        out: sensitivity_dir.clone(),
+    })?;
+    println!("What this demo did not do yet: the posterior sampling and the search products (sky map, credible");
+    println!("regions, search chart). Those stages are not built yet.");
     println!("Files written:");
     println!(
         "  {}  geocentric RA/Dec (ICRF), distances, solar elongation and the planets' shift of {} at each visit",
@@ -286,6 +310,10 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
     println!(
         "  {}/summary.json, residuals_null_vs_best.png, .svg, null_fit.json  the perturber search and its verdict",
         search_dir.display()
+    );
+    println!(
+        "  {}/sensitivity.csv, sensitivity.png, .svg  detection probability over perturber mass and distance",
+        sensitivity_dir.display()
     );
     Ok(())
 }
