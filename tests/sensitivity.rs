@@ -138,3 +138,142 @@ fn four_shards_merge_into_the_unsharded_map() {
     assert_eq!(o.status.code(), Some(2));
     std::fs::remove_dir_all(&dir).unwrap();
 }
+
+/// Injects perturbers drawn exactly as the map draws them into fully
+/// simulated data, runs the whole search on each, and compares the number
+/// of detections with the map's expectation (Poisson-binomial z-score).
+fn injection_recovery(per_cell: usize) -> (f64, f64, usize) {
+    use latens::dynamics::Perturber;
+    use latens::perturber::search::SearchSettings;
+    use latens::perturber::sensitivity::{configurations, detection_probability};
+    use latens::units::EARTH_MASS_SOLAR;
+    let t0 = 8766.0;
+    let model = ForceModel::outer_planets_with_inner_folded();
+    let mut bodies = latens::astrometry::observer_ephemeris_bodies();
+    bodies.extend(model.ephemeris_bodies());
+    bodies.sort();
+    bodies.dedup();
+    let eph = model.tabulate(&Vsop87::new(), &bodies, (t0 - 11.0 * 365.25, t0 + 11.0 * 365.25)).unwrap();
+    let el = Elements::from_semi_major_axis(44.0, 0.1, 12.0 * RAD_PER_DEG, 1.4, 2.6, 0.35).unwrap();
+    let (r, v) = state_from_elements(GM_SUN_AU3_PER_DAY2, &el).unwrap();
+    let sites = SiteTable::new();
+    let base = InitialState {
+        t0_tdb_days: t0,
+        tracked_position_au: icrf_from_ecliptic(r),
+        tracked_velocity_au_per_day: icrf_from_ecliptic(v),
+        perturbers: vec![],
+    };
+    let plan = |seed: u64| SurveyPlan {
+        times_tdb_days: (0..520).map(|k| t0 - 3652.5 + 14.0 * k as f64).collect(),
+        site: "geocenter".into(),
+        sigma_arcsec: 0.05,
+        add_noise: true,
+        min_elongation_deg: 90.0,
+        seed,
+    };
+    let search = SearchSettings {
+        n_directions: 48,
+        n_distances: 6,
+        n_orientations: 4,
+        n_null: 150,
+        ..SearchSettings::default()
+    };
+    let fap = 0.05;
+    let pipeline = |obs: &[latens::io::observations::Observation]| {
+        let fit = fit_reference_orbit(
+            obs,
+            &sites,
+            &model,
+            &eph,
+            &ReferenceSettings { epoch_tdb_days: Some(t0), ..Default::default() },
+            None,
+        )
+        .unwrap();
+        let geometry = observing_geometry(obs, &sites, &eph).unwrap();
+        LinearKernel::build(&fit, obs, geometry, &model, &eph).unwrap()
+    };
+    // The map for the base (unperturbed) data, with the search's own threshold.
+    let kernel = pipeline(&simulate_survey(&plan(1), &base, &model, &eph, &sites).unwrap());
+    let zeros = vec![0.0; kernel.n_residuals()];
+    let mut maxima = latens::perturber::grid_search(&kernel.with_residuals(&zeros), &search, &|_| {}).null_maxima;
+    maxima.sort_by(f64::total_cmp);
+    let threshold = maxima[((1.0 - fap) * maxima.len() as f64).ceil() as usize - 1];
+    let settings = SensitivitySettings {
+        mass_earth: (1.0, 1000.0),
+        distance_au: (20.0, 80.0),
+        n_masses: 25,
+        n_distances: 3,
+        n_trials: per_cell,
+        max_ecliptic_latitude_deg: None,
+        seed: 8,
+        min_separation_au: 2.0,
+    };
+    let cells: Vec<(usize, usize)> = (0..3).flat_map(|d| (0..25).map(move |m| (m, d))).collect();
+    let map = compute_cells(&kernel, &settings, threshold, &cells, &|_| {});
+    let gm_earth = EARTH_MASS_SOLAR * GM_SUN_AU3_PER_DAY2;
+    let (mut detected, mut expected, mut variance, mut runs) = (0.0, 0.0, 0.0, 0usize);
+    for di in 0..3 {
+        let confs = configurations(&kernel, &settings, di);
+        for level in [0.5, 0.9] {
+            let Some((_, Some(mass))) = contour(&map, level).into_iter().nth(di) else { continue };
+            for (k, c) in confs.iter().enumerate() {
+                let gm = mass * gm_earth;
+                let p = detection_probability(c.amplitude_per_gm, gm, threshold);
+                let init = InitialState {
+                    perturbers: vec![Perturber {
+                        gm_au3_per_day2: gm,
+                        position_au: c.position_au,
+                        velocity_au_per_day: c.velocity_au_per_day,
+                    }],
+                    ..base.clone()
+                };
+                let obs = simulate_survey(
+                    &plan(100 + (di * 100 + k) as u64 + (level * 10.0) as u64 * 1000),
+                    &init,
+                    &model,
+                    &eph,
+                    &sites,
+                )
+                .unwrap();
+                let k2 = pipeline(&obs);
+                let found = latens::perturber::grid_search(&k2, &search, &|_| {}).false_alarm_probability() < fap;
+                detected += f64::from(u8::from(found));
+                expected += p;
+                variance += p * (1.0 - p);
+                runs += 1;
+            }
+        }
+    }
+    (detected, expected, runs).into_z(variance)
+}
+
+trait IntoZ {
+    fn into_z(self, variance: f64) -> (f64, f64, usize);
+}
+impl IntoZ for (f64, f64, usize) {
+    fn into_z(self, variance: f64) -> (f64, f64, usize) {
+        let z = (self.0 - self.1) / variance.max(1e-9).sqrt();
+        eprintln!(
+            "injection-recovery: {} detections in {} injections, the map expects {:.1} (z = {z:.2})",
+            self.0, self.2, self.1
+        );
+        (z, self.1, self.2)
+    }
+}
+
+#[test]
+fn map_agrees_with_the_full_search_on_injected_perturbers_quick() {
+    // 6 cells (the 50% and 90% masses at 20, 40 and 80 au) x 2 injections.
+    let (z, _, runs) = injection_recovery(2);
+    assert!(runs >= 10);
+    // The map counts only the true hypothesis, so the search may do a little
+    // better (z > 0); it must not do clearly worse, nor far better.
+    assert!((-3.0..3.5).contains(&z), "z = {z}");
+}
+
+#[test]
+#[ignore = "slow: 6 cells x 12 full-pipeline injections (a few minutes)"]
+fn map_agrees_with_the_full_search_on_injected_perturbers() {
+    let (z, _, _) = injection_recovery(12);
+    assert!((-3.0..3.5).contains(&z), "z = {z}");
+}

@@ -74,8 +74,18 @@ pub fn normal_cdf(x: f64) -> f64 {
     if x >= 0.0 { 0.5 * (1.0 + erf) } else { 0.5 * (1.0 - erf) }
 }
 
-/// Signal amplitudes (per unit GM) of the trials at distance index `di`.
-pub fn trial_amplitudes(kernel: &LinearKernel, settings: &SensitivitySettings, di: usize) -> Vec<f64> {
+/// One drawn perturber configuration: heliocentric ICRF state at the
+/// reference epoch and its signal amplitude per unit GM.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Configuration {
+    pub position_au: Vec3,
+    pub velocity_au_per_day: Vec3,
+    pub amplitude_per_gm: f64,
+}
+
+/// The configurations drawn at distance index `di` (seeded by distance
+/// index, so every shard draws the same ones).
+pub fn configurations(kernel: &LinearKernel, settings: &SensitivitySettings, di: usize) -> Vec<Configuration> {
     let d = log_grid(settings.distance_au, settings.n_distances, di);
     let pole = icrf_from_ecliptic(Vec3::new(0.0, 0.0, 1.0));
     let mut rng = rand::rngs::StdRng::seed_from_u64(settings.seed.wrapping_mul(0x9E37_79B9).wrapping_add(di as u64));
@@ -105,9 +115,28 @@ pub fn trial_amplitudes(kernel: &LinearKernel, settings: &SensitivitySettings, d
         if kernel.closest_approach(r, v) < settings.min_separation_au {
             continue;
         }
-        out.push(signal.iter().map(|x| x * x).sum::<f64>().sqrt());
+        out.push(Configuration {
+            position_au: r,
+            velocity_au_per_day: v,
+            amplitude_per_gm: signal.iter().map(|x| x * x).sum::<f64>().sqrt(),
+        });
     }
     out
+}
+
+/// Signal amplitudes (per unit GM) of the trials at distance index `di`.
+pub fn trial_amplitudes(kernel: &LinearKernel, settings: &SensitivitySettings, di: usize) -> Vec<f64> {
+    configurations(kernel, settings, di).iter().map(|c| c.amplitude_per_gm).collect()
+}
+
+/// Detection probability of one configuration with GM `gm` at threshold `threshold_delta_chi2`.
+pub fn detection_probability(amplitude_per_gm: f64, gm: f64, threshold_delta_chi2: f64) -> f64 {
+    normal_cdf(gm * amplitude_per_gm - threshold_delta_chi2.max(0.0).sqrt())
+}
+
+/// The mass grid value at index `i` (Earth masses) and the distance at `i` (au).
+pub fn grid_mass_earth(settings: &SensitivitySettings, i: usize) -> f64 {
+    log_grid(settings.mass_earth, settings.n_masses, i)
 }
 
 fn rand_unit(rng: &mut rand::rngs::StdRng) -> f64 {
