@@ -132,6 +132,45 @@ fn four_shards_merge_into_the_unsharded_map() {
     let b = std::fs::read_to_string(merged.join("sensitivity.csv")).unwrap();
     assert_eq!(a, b, "merged shards differ from the unsharded map");
     assert!(merged.join("sensitivity.png").exists());
+    // A planned schedule (epochs and sigmas only) with an orbit from fit.json.
+    let text = std::fs::read_to_string(demo.join("observations.csv")).unwrap();
+    let mut schedule = String::from("epoch_utc,sigma_ra_arcsec,sigma_dec_arcsec,site\n");
+    for line in text.lines().filter(|l| !l.starts_with('#')).skip(1).step_by(3) {
+        let f: Vec<&str> = line.split(',').collect();
+        schedule.push_str(&format!("{},0.03,0.03,{}\n", f[0], f[5]));
+    }
+    std::fs::write(dir.join("schedule.csv"), schedule).unwrap();
+    let planned = |orbit: &std::path::Path| {
+        latens()
+            .args(["sensitivity", "--obs"])
+            .arg(dir.join("schedule.csv"))
+            .arg("--orbit")
+            .arg(orbit)
+            .arg("--sites")
+            .arg(demo.join("sites.csv"))
+            .args([
+                "--grid",
+                "4:3",
+                "--trials",
+                "4",
+                "--nulls",
+                "30",
+                "--directions",
+                "24",
+                "--distances",
+                "3",
+                "--out",
+            ])
+            .arg(dir.join("planned"))
+            .output()
+            .unwrap()
+    };
+    let o = planned(&demo.join("residuals/fit.json"));
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let rows = std::fs::read_to_string(dir.join("planned/sensitivity.csv")).unwrap();
+    assert_eq!(rows.lines().filter(|l| !l.starts_with('#')).count(), 1 + 12);
+    let o = planned(&demo.join("sites.csv"));
+    assert_eq!(o.status.code(), Some(2), "a non-JSON orbit file must be refused");
     // A missing shard is refused.
     std::fs::remove_file(parts.join("sensitivity.part-2-of-4.csv")).unwrap();
     let o = latens().args(["sensitivity", "merge"]).arg(&parts).arg("--out").arg(dir.join("bad")).output().unwrap();

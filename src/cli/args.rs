@@ -60,6 +60,12 @@ pub struct SensitivityArgs {
     /// Distances of that search grid (as `latens infer --distances`).
     #[arg(long, value_name = "N", default_value_t = 20)]
     pub distances: usize,
+    /// Treat --obs as a planned schedule (epoch_utc, sigmas, optional site;
+    /// no positions needed) and compute the positions from this orbit: the
+    /// fit.json of `latens residuals`. For designing a survey before it is
+    /// observed.
+    #[arg(long, value_name = "FIT_JSON")]
+    pub orbit: Option<PathBuf>,
     /// Compute only slice K of N of the cells (same numbers as an unsharded run).
     #[arg(long, value_name = "K/N")]
     pub shard: Option<String>,

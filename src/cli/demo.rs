@@ -286,6 +286,7 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
         trials: 48,
         fap: super::infer::DETECTION_FAP,
         near_ecliptic: None,
+        orbit: None,
         nulls: 500,
         directions: 768,
         distances: 20,

@@ -53,10 +53,37 @@ pub(super) fn run(args: &SensitivityArgs) -> Result<(), CliError> {
         }
         None => None,
     };
-    let (observations, sites) = read_inputs(&input.obs, input.sites.as_ref())?;
     let known = parse_known(&input.known).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
     let model = force_model(&known);
-    let ephemeris = load_ephemeris(&input.ephemeris, &model, &observations)?;
+    let (observations, sites, ephemeris) = match &args.orbit {
+        None => {
+            let (observations, sites) = read_inputs(&input.obs, input.sites.as_ref())?;
+            let ephemeris = load_ephemeris(&input.ephemeris, &model, &observations)?;
+            (observations, sites, ephemeris)
+        }
+        Some(orbit_path) => {
+            let sites = match &input.sites {
+                Some(p) => crate::io::observations::SiteTable::read(p).map_err(CliError::bad_input)?,
+                None => crate::io::observations::SiteTable::new(),
+            };
+            let mut schedule =
+                crate::io::observations::read_schedule(&input.obs, &sites, 3).map_err(CliError::bad_input)?;
+            let ephemeris = load_ephemeris(&input.ephemeris, &model, &schedule)?;
+            let (t0, state) = read_orbit(orbit_path)?;
+            // Positions the planned survey would measure of this orbit (no noise).
+            let geometry = observing_geometry(&schedule, &sites, ephemeris.as_ref()).map_err(CliError::failed)?;
+            let mut orbit = crate::reference::OrbitModel::new(&schedule, geometry, t0, &model, ephemeris.as_ref())
+                .map_err(CliError::failed)?;
+            orbit.predict(&state, false).map_err(CliError::failed)?;
+            let predicted = orbit.predict(&state, false).map_err(CliError::failed)?;
+            drop(orbit);
+            for (o, p) in schedule.iter_mut().zip(&predicted) {
+                o.ra_rad = p.radec.ra_rad;
+                o.dec_rad = p.radec.dec_rad;
+            }
+            (schedule, sites, ephemeris)
+        }
+    };
 
     eprintln!("Fitting the reference orbit and building the kernel...");
     let null =
@@ -146,6 +173,27 @@ pub(super) fn run(args: &SensitivityArgs) -> Result<(), CliError> {
         }
     }
     Ok(())
+}
+
+/// The reference epoch (TDB days after J2000.0) and heliocentric ICRF state
+/// from a fit.json of `latens residuals`.
+fn read_orbit(path: &Path) -> Result<(f64, [f64; 6]), CliError> {
+    let file = path.display().to_string();
+    let text = std::fs::read_to_string(path).with_context(|| format!("reading {file}")).map_err(CliError::bad_input)?;
+    let v: serde_json::Value =
+        serde_json::from_str(&text).map_err(|e| CliError::bad_input(anyhow::anyhow!("{file}: not JSON: {e}")))?;
+    let jd = v["orbit"]["epoch_tdb_jd"].as_f64().ok_or_else(|| {
+        CliError::bad_input(anyhow::anyhow!("{file}: field `orbit.epoch_tdb_jd` missing or not a number"))
+    })?;
+    let arr = v["orbit"]["state_icrf"]
+        .as_array()
+        .filter(|a| a.len() == 6 && a.iter().all(|x| x.as_f64().is_some_and(f64::is_finite)))
+        .ok_or_else(|| CliError::bad_input(anyhow::anyhow!("{file}: field `orbit.state_icrf` must hold 6 numbers")))?;
+    let mut state = [0.0; 6];
+    for (s, x) in state.iter_mut().zip(arr) {
+        *s = x.as_f64().unwrap_or(0.0);
+    }
+    Ok((jd - crate::units::J2000_JD, state))
 }
 
 fn write_products(out: &Path, csv: &str, cells: &[Cell], threshold: f64) -> anyhow::Result<()> {

@@ -129,6 +129,18 @@ pub struct Observation {
 /// Reads observations in Latens CSV or ADES PSV (chosen by content: a header
 /// with `|` separators is ADES). Needs at least `min_count` observations.
 pub fn read_observations(path: &Path, sites: &SiteTable, min_count: usize) -> Result<Vec<Observation>, InputError> {
+    read(path, sites, min_count, true)
+}
+
+/// Reads a planned observation schedule: Latens CSV with `epoch_utc`,
+/// `sigma_ra_arcsec`, `sigma_dec_arcsec` and optionally `site` and `corr`;
+/// `ra_deg`/`dec_deg` may be present and are ignored (the positions are set
+/// to zero, for the caller to compute).
+pub fn read_schedule(path: &Path, sites: &SiteTable, min_count: usize) -> Result<Vec<Observation>, InputError> {
+    read(path, sites, min_count, false)
+}
+
+fn read(path: &Path, sites: &SiteTable, min_count: usize, positions: bool) -> Result<Vec<Observation>, InputError> {
     let file = path.display().to_string();
     let text = read_text(path)?;
     let header = text.lines().map(str::trim).find(|l| !l.is_empty() && !l.starts_with('#') && !l.starts_with('!'));
@@ -155,35 +167,47 @@ pub fn read_observations(path: &Path, sites: &SiteTable, min_count: usize) -> Re
             site: "stn",
             corr: "rmsCorr",
         }
-    } else {
+    } else if positions {
         table.require(
             &["epoch_utc", "ra_deg", "dec_deg", "sigma_ra_arcsec", "sigma_dec_arcsec"],
             &["site", "corr"],
             false,
         )?;
-        ColumnNames {
-            epoch: "epoch_utc",
-            ra: "ra_deg",
-            dec: "dec_deg",
-            sra: "sigma_ra_arcsec",
-            sdec: "sigma_dec_arcsec",
-            site: "site",
-            corr: "corr",
-        }
+        csv_names()
+    } else {
+        table.require(
+            &["epoch_utc", "sigma_ra_arcsec", "sigma_dec_arcsec"],
+            &["site", "corr", "ra_deg", "dec_deg"],
+            false,
+        )?;
+        csv_names()
     };
     let mut out = Vec::with_capacity(table.rows.len());
     let mut seen: HashMap<(i128, String), usize> = HashMap::new();
+    if ades && !positions {
+        return Err(InputError {
+            file: table.file.clone(),
+            line: 0,
+            field: None,
+            message: "a schedule must be in Latens CSV (epoch_utc, sigma_ra_arcsec, sigma_dec_arcsec)".into(),
+        });
+    }
     for row in &table.rows {
         let epoch_text = row.text(names.epoch)?.to_string();
         let epoch = parse_utc_iso(&epoch_text).map_err(|e| row.error(names.epoch, &e.to_string()))?;
-        let ra = row.number(names.ra)?;
-        if !(0.0..360.0).contains(&ra) {
-            return Err(row.error(names.ra, &format!("{ra} is outside [0, 360) degrees")));
-        }
-        let dec = row.number(names.dec)?;
-        if !(-90.0..=90.0).contains(&dec) {
-            return Err(row.error(names.dec, &format!("{dec} is outside [-90, 90] degrees")));
-        }
+        let (ra, dec) = if positions {
+            let ra = row.number(names.ra)?;
+            if !(0.0..360.0).contains(&ra) {
+                return Err(row.error(names.ra, &format!("{ra} is outside [0, 360) degrees")));
+            }
+            let dec = row.number(names.dec)?;
+            if !(-90.0..=90.0).contains(&dec) {
+                return Err(row.error(names.dec, &format!("{dec} is outside [-90, 90] degrees")));
+            }
+            (ra, dec)
+        } else {
+            (0.0, 0.0)
+        };
         let sra = row.number(names.sra)?;
         let sdec = row.number(names.sdec)?;
         for (f, v) in [(names.sra, sra), (names.sdec, sdec)] {
@@ -241,6 +265,18 @@ pub fn read_observations(path: &Path, sites: &SiteTable, min_count: usize) -> Re
     }
     out.sort_by(|a, b| a.t_tdb_days.total_cmp(&b.t_tdb_days));
     Ok(out)
+}
+
+fn csv_names() -> ColumnNames {
+    ColumnNames {
+        epoch: "epoch_utc",
+        ra: "ra_deg",
+        dec: "dec_deg",
+        sra: "sigma_ra_arcsec",
+        sdec: "sigma_dec_arcsec",
+        site: "site",
+        corr: "corr",
+    }
 }
 
 struct ColumnNames {
