@@ -15,20 +15,28 @@ use latens::reference::{ReferenceSettings, fit_reference_orbit, observing_geomet
 use latens::simulate::{SurveyPlan, simulate_survey};
 use latens::units::{GM_SUN_AU3_PER_DAY2, RAD_PER_DEG};
 
-#[test]
-fn half_detection_mass_grows_as_distance_cubed_far_out() {
-    // Physics (common practice): far beyond the tracked body a perturber acts
-    // through its tide, GM / d^3, so the mass detected with 50% probability
-    // scales as d^3: slope 3 in log-log.
-    let t0 = 8766.0;
+const T0: f64 = 8766.0;
+
+/// The model, a tabulated ephemeris over 2013-2035 and the tracked body's
+/// ecliptic state (44 au, e = 0.1, i = 12 deg) shared by the tests below.
+fn scenario() -> (ForceModel, latens::ephemeris::Tabulated, (latens::vec3::Vec3, latens::vec3::Vec3)) {
     let model = ForceModel::outer_planets_with_inner_folded();
     let mut bodies = latens::astrometry::observer_ephemeris_bodies();
     bodies.extend(model.ephemeris_bodies());
     bodies.sort();
     bodies.dedup();
-    let eph = model.tabulate(&Vsop87::new(), &bodies, (t0 - 11.0 * 365.25, t0 + 11.0 * 365.25)).unwrap();
+    let eph = model.tabulate(&Vsop87::new(), &bodies, (T0 - 11.0 * 365.25, T0 + 11.0 * 365.25)).unwrap();
     let el = Elements::from_semi_major_axis(44.0, 0.1, 12.0 * RAD_PER_DEG, 1.4, 2.6, 0.35).unwrap();
-    let (r, v) = state_from_elements(GM_SUN_AU3_PER_DAY2, &el).unwrap();
+    (model, eph, state_from_elements(GM_SUN_AU3_PER_DAY2, &el).unwrap())
+}
+
+#[test]
+fn half_detection_mass_grows_as_distance_cubed_far_out() {
+    // Physics (common practice): far beyond the tracked body a perturber acts
+    // through its tide, GM / d^3, so the mass detected with 50% probability
+    // scales as d^3: slope 3 in log-log.
+    let t0 = T0;
+    let (model, eph, (r, v)) = scenario();
     let init = InitialState {
         t0_tdb_days: t0,
         tracked_position_au: icrf_from_ecliptic(r),
@@ -186,15 +194,8 @@ fn injection_recovery(per_cell: usize) -> (f64, f64, usize) {
     use latens::perturber::search::SearchSettings;
     use latens::perturber::sensitivity::{configurations, detection_probability};
     use latens::units::EARTH_MASS_SOLAR;
-    let t0 = 8766.0;
-    let model = ForceModel::outer_planets_with_inner_folded();
-    let mut bodies = latens::astrometry::observer_ephemeris_bodies();
-    bodies.extend(model.ephemeris_bodies());
-    bodies.sort();
-    bodies.dedup();
-    let eph = model.tabulate(&Vsop87::new(), &bodies, (t0 - 11.0 * 365.25, t0 + 11.0 * 365.25)).unwrap();
-    let el = Elements::from_semi_major_axis(44.0, 0.1, 12.0 * RAD_PER_DEG, 1.4, 2.6, 0.35).unwrap();
-    let (r, v) = state_from_elements(GM_SUN_AU3_PER_DAY2, &el).unwrap();
+    let t0 = T0;
+    let (model, eph, (r, v)) = scenario();
     let sites = SiteTable::new();
     let base = InitialState {
         t0_tdb_days: t0,

@@ -1,7 +1,6 @@
 //! `latens sensitivity`: the detection-probability map over perturber mass
 //! and distance, in shards for job arrays, and `latens sensitivity merge`.
 
-use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 
 use anyhow::Context;
@@ -149,17 +148,7 @@ pub(super) fn run(args: &SensitivityArgs) -> Result<(), CliError> {
         args.fap, args.seed, grid.0, grid.1, args.trials
     );
     for c in &cells {
-        let _ = writeln!(
-            csv,
-            "{},{},{:.6},{},{:.4},{},{}",
-            c.mass_earth,
-            c.distance_au,
-            c.detection_probability,
-            c.n_trials,
-            c.median_delta_chi2,
-            c.mass_index,
-            c.distance_index
-        );
+        csv.push_str(&csv_row(c));
     }
     match shard {
         Some((k, n)) => {
@@ -173,6 +162,20 @@ pub(super) fn run(args: &SensitivityArgs) -> Result<(), CliError> {
         }
     }
     Ok(())
+}
+
+/// One line of sensitivity.csv (shards and merged maps alike).
+fn csv_row(c: &Cell) -> String {
+    format!(
+        "{},{},{:.6},{},{:.4},{},{}\n",
+        c.mass_earth,
+        c.distance_au,
+        c.detection_probability,
+        c.n_trials,
+        c.median_delta_chi2,
+        c.mass_index,
+        c.distance_index
+    )
 }
 
 /// The reference epoch (TDB days after J2000.0) and heliocentric ICRF state
@@ -298,17 +301,7 @@ fn merge(dirs: &[PathBuf], out: &Path) -> Result<(), CliError> {
         .unwrap_or(f64::NAN);
     let mut csv = format!("#{comment}\n{HEADER}\n");
     for c in &cells {
-        let _ = writeln!(
-            csv,
-            "{},{},{:.6},{},{:.4},{},{}",
-            c.mass_earth,
-            c.distance_au,
-            c.detection_probability,
-            c.n_trials,
-            c.median_delta_chi2,
-            c.mass_index,
-            c.distance_index
-        );
+        csv.push_str(&csv_row(c));
     }
     write_products(out, &csv, &cells, threshold).map_err(CliError::failed)
 }
