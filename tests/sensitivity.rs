@@ -87,6 +87,15 @@ fn half_detection_mass_grows_as_distance_cubed_far_out() {
         c50.iter().map(|p| (p.0 - mx) * (p.1 - my)).sum::<f64>() / c50.iter().map(|p| (p.0 - mx).powi(2)).sum::<f64>();
     eprintln!("slope of the 50% contour, 200-800 au: {slope:.3}");
     assert!((slope - 3.0).abs() < 0.2, "{slope}");
+
+    // Near-ecliptic draws stay within their latitude band.
+    let near = SensitivitySettings { max_ecliptic_latitude_deg: Some(10.0), n_trials: 50, ..settings };
+    let confs = latens::perturber::sensitivity::configurations(&kernel, &near, 2);
+    assert_eq!(confs.len(), 50);
+    for c in &confs {
+        let lat = latens::frames::ecliptic_lonlat_from_icrf(c.position_au).lat_rad.to_degrees();
+        assert!(lat.abs() <= 10.0 + 1e-9, "latitude {lat}");
+    }
 }
 
 fn latens() -> Command {
