@@ -88,6 +88,28 @@ with open(os.path.join(HERE, "uranus.csv"), "w") as f:
         ddec = rng_u.standard_normal() * SIGMA / 3600.0
         f.write(f"{iso},{float((ra._degrees + dra) % 360.0)!r},{float(dec.degrees + ddec)!r},{SIGMA},{SIGMA}\n")
         k += 1
+# Uranus 1900-2024 (through the 1993 conjunction with Neptune), every 60 days,
+# for the long-arc recovery of Neptune (the test reads the planets from the
+# embedded VSOP87A, so no ephemeris file is needed for this span).
+rng_l = np.random.default_rng(8)
+with open(os.path.join(HERE, "uranus_1900_2024.csv"), "w") as f:
+    f.write("# Uranus barycentre from DE421 via skyfield, every 60 days 1900-2024, noise 0.05 arcsec (seeded); see gen.py\n")
+    f.write("epoch_utc,ra_deg,dec_deg,sigma_ra_arcsec,sigma_dec_arcsec\n")
+    t_first = ts.utc(1900, 2, 3, 5, 0, 0)
+    k = 0
+    while True:
+        t0 = ts.tt_jd(t_first.tt + 60.0 * k)
+        if t0.utc_datetime().year >= 2024:
+            break
+        u = t0.utc
+        iso = f"{int(u[0]):04d}-{int(u[1]):02d}-{int(u[2]):02d}T{int(u[3]):02d}:{int(u[4]):02d}:{u[5]:09.6f}Z"
+        t = ts.utc(int(u[0]), int(u[1]), int(u[2]), int(u[3]), int(u[4]), float(f"{u[5]:.6f}"))
+        ra, dec, _ = earth.at(t).observe(uranus).radec()
+        dra = rng_l.standard_normal() * SIGMA / 3600.0 / np.cos(dec.radians)
+        ddec = rng_l.standard_normal() * SIGMA / 3600.0
+        f.write(f"{iso},{float((ra._degrees + dra) % 360.0)!r},{float(dec.degrees + ddec)!r},{SIGMA},{SIGMA}\n")
+        k += 1
+
 # Neptune's astrometric place at a later epoch, the check value for the search.
 t_later = ts.utc(2024, 6, 1)
 ra, dec, dist = earth.at(t_later).observe(planets["neptune barycenter"]).radec()
