@@ -49,8 +49,14 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
     let known = parse_known(&args.input.known).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
     let mass = parse_range(&args.mass_earth, "--mass-earth")?;
     let distance = parse_range(&args.distance_au, "--distance-au")?;
-    if args.nulls < 20 {
-        return Err(CliError::bad_input(anyhow::anyhow!("--nulls must be at least 20, got {}", args.nulls)));
+    // The false-alarm probability cannot go below 1/(nulls + 1): enough
+    // nulls are needed for it to reach the detection threshold at all.
+    let min_nulls = (1.0 / DETECTION_FAP).ceil() as usize;
+    if args.nulls < min_nulls {
+        return Err(CliError::bad_input(anyhow::anyhow!(
+            "--nulls must be at least {min_nulls} for a false-alarm probability below the detection threshold {DETECTION_FAP}, got {}",
+            args.nulls
+        )));
     }
     let model = force_model(&known);
     let ephemeris = load_ephemeris(&args.input.ephemeris, &model, &observations)?;
@@ -161,7 +167,23 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
         _ => None,
     };
     let detected = fap < DETECTION_FAP && best_delta > 0.0;
-    let verdict = if detected {
+    // A signal that repeats with the year points at a systematic error tied
+    // to the Earth's motion (a catalogue or reduction error), not at a
+    // planet, whose pull changes slowly.
+    let annual = annual_share(&null, &observations, best_delta);
+    let yearly = annual > ANNUAL_SUSPICION;
+    if yearly {
+        warnings.push(format!(
+            "a one-year sinusoid accounts for {:.0}% of the residuals' excess: check the astrometry for systematic errors before believing in a planet",
+            100.0 * annual
+        ));
+    }
+    let verdict = if detected && yearly {
+        format!(
+            "suspicious: a perturber lowers the chi-square by {best_delta:.1} (false-alarm probability {fap:.2e}), but a one-year sinusoid accounts for {:.0}% of the residuals' excess, which points at a systematic error in the astrometry rather than a planet",
+            100.0 * annual
+        )
+    } else if detected {
         format!(
             "detected: the best perturber lowers the chi-square by {best_delta:.1}, which {} of {} simulated noise-only data sets reached (false-alarm probability {fap:.2e})",
             result.null_maxima.iter().filter(|&&m| m >= best_delta).count(),
@@ -430,6 +452,69 @@ fn linearisation_error(
 fn residual_arcsec_between(a: &crate::frames::RaDec, b: &crate::frames::RaDec, _dec: f64) -> (f64, f64) {
     let dra = crate::units::wrap_pi(a.ra_rad - b.ra_rad) * a.dec_rad.cos() / crate::units::RAD_PER_ARCSEC;
     (dra, (a.dec_rad - b.dec_rad) / crate::units::RAD_PER_ARCSEC)
+}
+
+/// Share of the residuals' excess chi-square that a one-year sinusoid
+/// explains, above which a detection is called suspicious.
+const ANNUAL_SUSPICION: f64 = 0.5;
+
+/// The share of the null residuals' excess chi-square (over its degrees of
+/// freedom, or over the best solution's drop if larger) that a constant plus
+/// a one-year sinusoid in each coordinate removes.
+fn annual_share(null: &ReferenceFit, observations: &[Observation], best_delta: f64) -> f64 {
+    let mut removed = 0.0;
+    for coordinate in 0..2 {
+        // Weighted least squares of r = a + b sin(wt) + c cos(wt).
+        let mut ata = [[0.0; 3]; 3];
+        let mut atb = [0.0; 3];
+        for (k, o) in observations.iter().enumerate() {
+            if !null.residuals[k].used {
+                continue;
+            }
+            let (r, sigma) = if coordinate == 0 {
+                (null.residuals[k].ra_arcsec, o.sigma_ra_arcsec)
+            } else {
+                (null.residuals[k].dec_arcsec, o.sigma_dec_arcsec)
+            };
+            let w = std::f64::consts::TAU * o.t_tdb_days / crate::units::JULIAN_YEAR_DAYS;
+            let x = [1.0 / sigma, w.sin() / sigma, w.cos() / sigma];
+            for i in 0..3 {
+                atb[i] += x[i] * r / sigma;
+                for j in 0..3 {
+                    ata[i][j] += x[i] * x[j];
+                }
+            }
+        }
+        // The chi-square removed by the fit is b^T (A^T A)^-1 b; less the
+        // constant's share, which is not periodic.
+        let Some(coef) = solve3(ata, atb) else { continue };
+        let all: f64 = (0..3).map(|i| coef[i] * atb[i]).sum();
+        let constant = if ata[0][0] > 0.0 { atb[0] * atb[0] / ata[0][0] } else { 0.0 };
+        removed += (all - constant).max(0.0);
+    }
+    let excess = (null.chi2 - null.dof as f64).max(best_delta).max(1e-9);
+    removed / excess
+}
+
+/// Solves a 3x3 linear system by Cramer's rule (None when singular).
+fn solve3(a: [[f64; 3]; 3], b: [f64; 3]) -> Option<[f64; 3]> {
+    let det = |m: [[f64; 3]; 3]| {
+        m[0][0] * (m[1][1] * m[2][2] - m[1][2] * m[2][1]) - m[0][1] * (m[1][0] * m[2][2] - m[1][2] * m[2][0])
+            + m[0][2] * (m[1][0] * m[2][1] - m[1][1] * m[2][0])
+    };
+    let d = det(a);
+    if d.abs() < 1e-300 {
+        return None;
+    }
+    let mut out = [0.0; 3];
+    for (col, o) in out.iter_mut().enumerate() {
+        let mut m = a;
+        for row in 0..3 {
+            m[row][col] = b[row];
+        }
+        *o = det(m) / d;
+    }
+    Some(out)
 }
 
 /// Residuals of the best solution: the null residuals minus its linear
