@@ -82,23 +82,36 @@ const SURVEY_START_UTC: &str = "2014-03-01T06:00:00Z";
 const SURVEY_END_UTC: &str = "2034-03-01T06:00:00Z";
 const VISIT_SPACING_DAYS: f64 = 30.4375;
 
+/// Heliocentric ICRF state of an invented body from its heliocentric ecliptic
+/// J2000 elements (au, degrees), with the Sun's GM.
+fn icrf_state(
+    a_au: f64,
+    e: f64,
+    i_deg: f64,
+    node_deg: f64,
+    peri_deg: f64,
+    mean_deg: f64,
+) -> Result<(Vec3, Vec3), CliError> {
+    let elements = Elements::from_semi_major_axis(
+        a_au,
+        e,
+        i_deg * RAD_PER_DEG,
+        node_deg * RAD_PER_DEG,
+        peri_deg * RAD_PER_DEG,
+        mean_deg * RAD_PER_DEG,
+    )
+    .map_err(CliError::failed)?;
+    let (r, v) = state_from_elements(GM_SUN_AU3_PER_DAY2, &elements).map_err(CliError::failed)?;
+    Ok((icrf_from_ecliptic(r), icrf_from_ecliptic(v)))
+}
+
 pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
     let body = &VESK;
     let t_ref = tdb_days_from_j2000(parse_epoch(body.reference_epoch).map_err(CliError::failed)?);
     let t_start = tdb_days_from_j2000(parse_epoch(SURVEY_START_UTC).map_err(CliError::failed)?);
     let t_end = tdb_days_from_j2000(parse_epoch(SURVEY_END_UTC).map_err(CliError::failed)?);
 
-    let elements = Elements::from_semi_major_axis(
-        body.a_au,
-        body.e,
-        body.i_deg * RAD_PER_DEG,
-        body.node_deg * RAD_PER_DEG,
-        body.peri_deg * RAD_PER_DEG,
-        body.mean_anomaly_deg * RAD_PER_DEG,
-    )
-    .map_err(CliError::failed)?;
-    let (r_ecl, v_ecl) = state_from_elements(GM_SUN_AU3_PER_DAY2, &elements).map_err(CliError::failed)?;
-    let (r0, v0) = (icrf_from_ecliptic(r_ecl), icrf_from_ecliptic(v_ecl));
+    let (r0, v0) = icrf_state(body.a_au, body.e, body.i_deg, body.node_deg, body.peri_deg, body.mean_anomaly_deg)?;
 
     let mut epochs = Vec::new();
     let mut t = t_start;
@@ -112,20 +125,12 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
     let ephemeris =
         model.tabulate(&Vsop87::new(), &[Body::Earth], (t_start - 1.0, t_end + 1.0)).map_err(CliError::failed)?;
     let hidden = &ORLA;
-    let hidden_elements = Elements::from_semi_major_axis(
-        hidden.a_au,
-        hidden.e,
-        hidden.i_deg * RAD_PER_DEG,
-        hidden.node_deg * RAD_PER_DEG,
-        hidden.peri_deg * RAD_PER_DEG,
-        hidden.mean_anomaly_deg * RAD_PER_DEG,
-    )
-    .map_err(CliError::failed)?;
-    let (hr, hv) = state_from_elements(GM_SUN_AU3_PER_DAY2, &hidden_elements).map_err(CliError::failed)?;
+    let (hr, hv) =
+        icrf_state(hidden.a_au, hidden.e, hidden.i_deg, hidden.node_deg, hidden.peri_deg, hidden.mean_anomaly_deg)?;
     let hidden_state = Perturber {
         gm_au3_per_day2: hidden.mass_earth * crate::units::EARTH_MASS_SOLAR * GM_SUN_AU3_PER_DAY2,
-        position_au: icrf_from_ecliptic(hr),
-        velocity_au_per_day: icrf_from_ecliptic(hv),
+        position_au: hr,
+        velocity_au_per_day: hv,
     };
     let initial = InitialState {
         t0_tdb_days: t_ref,
