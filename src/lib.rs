@@ -15,6 +15,8 @@
 //! - [`fit`]: Levenberg-Marquardt least squares (knows nothing of orbits).
 //! - [`reference`]: the reference orbit fit and its O-C residuals.
 //! - [`perturber`]: the perturber search (linearised kernel, grid, detection).
+//! - [`posterior`]: the perturber's posterior (tempered ensemble MCMC), the
+//!   evidence and the alternative explanations.
 //! - [`astrometry`]: the observation model (light time, observing sites).
 //! - [`io`]: reading observations, writing output files safely.
 //! - [`simulate`]: simulated survey astrometry with seeded noise.
@@ -29,6 +31,7 @@ pub mod fit;
 pub mod frames;
 pub mod io;
 pub mod perturber;
+pub mod posterior;
 pub mod reference;
 pub mod report;
 pub mod simulate;

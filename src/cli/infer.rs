@@ -423,7 +423,7 @@ fn linearisation_error(
     let p1 = with.predict(&null.state, false).map_err(CliError::failed)?;
     let mut nonlinear = vec![0.0; 2 * n];
     for k in 0..n {
-        let w = whiten(&observations[k], residual_arcsec_between(&p1[k].radec, &p0[k].radec, observations[k].dec_rad));
+        let w = whiten(&observations[k], crate::reference::residual_arcsec_between(&p1[k].radec, &p0[k].radec));
         nonlinear[2 * k] = w.0;
         nonlinear[2 * k + 1] = w.1;
     }
@@ -446,12 +446,6 @@ fn linearisation_error(
     let rms = (diff2 / count.max(1) as f64).sqrt();
     let frac = if sig2 > 0.0 { (diff2 / sig2).sqrt() } else { 0.0 };
     Ok((rms, frac))
-}
-
-/// The (RA*cos(Dec), Dec) difference a - b between two predicted places, arcsec.
-fn residual_arcsec_between(a: &crate::frames::RaDec, b: &crate::frames::RaDec, _dec: f64) -> (f64, f64) {
-    let dra = crate::units::wrap_pi(a.ra_rad - b.ra_rad) * a.dec_rad.cos() / crate::units::RAD_PER_ARCSEC;
-    (dra, (a.dec_rad - b.dec_rad) / crate::units::RAD_PER_ARCSEC)
 }
 
 /// Share of the residuals' excess chi-square that a one-year sinusoid

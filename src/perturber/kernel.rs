@@ -141,6 +141,7 @@ pub struct LinearKernel {
     /// Quadrature nodes: times, tracked-body positions, Psi (6 x 3 rows).
     node_t: Vec<f64>,
     node_r: Vec<Vec3>,
+    node_v: Vec<Vec3>,
     node_psi: Vec<[[f64; 3]; 6]>,
     /// Panel length (days) and the start of the first panel.
     panel_days: f64,
@@ -204,9 +205,11 @@ impl LinearKernel {
         let block = |e: usize, row: usize, col: usize| traj.tracked_partial(e, row, col);
         let _ = np;
         let mut node_r = Vec::with_capacity(node_t.len());
+        let mut node_v = Vec::with_capacity(node_t.len());
         let mut node_psi = Vec::with_capacity(node_t.len());
         for e in 0..node_t.len() {
             node_r.push(traj.tracked[e].position_au);
+            node_v.push(traj.tracked[e].velocity_au_per_day);
             // Psi = [-B'^T; A^T], A = dr/dr0, B' = dr/dv0.
             let mut psi = [[0.0; 3]; 6];
             for i in 0..3 {
@@ -276,6 +279,7 @@ impl LinearKernel {
             epoch_tdb_days: t0,
             node_t,
             node_r,
+            node_v,
             node_psi,
             panel_days,
             first_t: lo,
@@ -327,6 +331,27 @@ impl LinearKernel {
     /// removed, into `out` (length 2N). Returns the closest approach to the
     /// tracked body at the nodes, au.
     pub fn signal(&self, orbit: &KeplerOrbit, out: &mut [f64]) -> f64 {
+        let mut guess = f64::NAN;
+        let mut closest = f64::INFINITY;
+        self.signal_of(
+            |_, t, r, _| {
+                let rp = orbit.position(t, &mut guess);
+                let d = rp - r;
+                let dn2 = d.norm_squared();
+                closest = closest.min(dn2);
+                let rp2 = rp.norm_squared();
+                d / (dn2 * dn2.sqrt()) - rp / (rp2 * rp2.sqrt())
+            },
+            out,
+        );
+        closest.sqrt()
+    }
+
+    /// The whitened O-C signal of an extra acceleration on the tracked body
+    /// (au/day^2, ICRF), given at each quadrature node by
+    /// `accel(node, t, position, velocity)` of the tracked body's reference
+    /// orbit, into `out` (length 2N), orbit correction not removed.
+    pub fn signal_of(&self, accel: impl FnMut(usize, f64, Vec3, Vec3) -> Vec3, out: &mut [f64]) {
         thread_local! {
             static WORK: std::cell::RefCell<Workspace> = const { std::cell::RefCell::new((Vec::new(), Vec::new())) };
         }
@@ -334,20 +359,24 @@ impl LinearKernel {
             let (g, starts) = &mut *w.borrow_mut();
             g.resize(self.node_t.len(), [0.0; 6]);
             starts.resize(self.n_panels + 1, [0.0; 6]);
-            self.signal_into(orbit, out, g, starts)
+            self.signal_into(accel, out, g, starts)
         })
     }
 
-    fn signal_into(&self, orbit: &KeplerOrbit, out: &mut [f64], g: &mut [[f64; 6]], starts: &mut [[f64; 6]]) -> f64 {
-        let mut guess = f64::NAN;
-        let mut closest = f64::INFINITY;
+    /// Times of the quadrature nodes (TDB days from J2000).
+    pub fn node_times(&self) -> &[f64] {
+        &self.node_t
+    }
+
+    fn signal_into(
+        &self,
+        mut accel: impl FnMut(usize, f64, Vec3, Vec3) -> Vec3,
+        out: &mut [f64],
+        g: &mut [[f64; 6]],
+        starts: &mut [[f64; 6]],
+    ) {
         for (i, &t) in self.node_t.iter().enumerate() {
-            let rp = orbit.position(t, &mut guess);
-            let d = rp - self.node_r[i];
-            let dn2 = d.norm_squared();
-            closest = closest.min(dn2);
-            let rp2 = rp.norm_squared();
-            let acc = d / (dn2 * dn2.sqrt()) - rp / (rp2 * rp2.sqrt());
+            let acc = accel(i, t, self.node_r[i], self.node_v[i]);
             let psi = &self.node_psi[i];
             for (gi, row) in g[i].iter_mut().zip(psi) {
                 *gi = row[0] * acc.x + row[1] * acc.y + row[2] * acc.z;
@@ -384,7 +413,6 @@ impl LinearKernel {
             }
         }
         let _ = self.first_t;
-        closest.sqrt()
     }
 
     /// The whitened signal of a perturber with GM `gm` on the two-body orbit
@@ -426,6 +454,11 @@ impl LinearKernel {
         for (c, b) in coef.iter().zip(&self.basis) {
             signal.iter_mut().zip(b).for_each(|(s, bv)| *s -= c * bv);
         }
+    }
+
+    /// (s.y, s.s) of a projected signal s against the residuals y.
+    pub fn signal_products(&self, projected: &[f64]) -> (f64, f64) {
+        (dot(projected, &self.residuals), dot(projected, projected))
     }
 
     /// Profiles the mass for a projected signal: the chi-square drop and the

@@ -14,7 +14,10 @@
 pub mod gauss;
 mod model;
 
-pub use model::{MAX_PARAMS, OrbitModel, OrbitProblem, Prediction, residual_arcsec, whiten, whitened_residuals};
+pub use model::{
+    MAX_PARAMS, OrbitModel, OrbitProblem, Prediction, residual_arcsec, residual_arcsec_between, whiten,
+    whitened_residuals,
+};
 
 use crate::astrometry::{ObservingGeometry, observer_heliocentric_au, sun_barycentric_velocity};
 use crate::dynamics::ForceModel;

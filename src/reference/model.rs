@@ -51,6 +51,19 @@ impl<'a> OrbitModel<'a> {
         ephemeris: &'a dyn Ephemeris,
     ) -> Result<Self, PropagationError> {
         let settings = PropagationSettings { partials: true, reuse_steps: true, ..PropagationSettings::fast() };
+        Self::with_settings(observations, geometry, epoch_tdb_days, model, ephemeris, settings)
+    }
+
+    /// As [`OrbitModel::new`], with other propagation settings (e.g. without
+    /// partials, for many predictions that need none).
+    pub fn with_settings(
+        observations: &'a [Observation],
+        geometry: Vec<ObservingGeometry>,
+        epoch_tdb_days: f64,
+        model: &'a ForceModel,
+        ephemeris: &'a dyn Ephemeris,
+        settings: PropagationSettings,
+    ) -> Result<Self, PropagationError> {
         let emission = observations.iter().map(|o| o.t_tdb_days).collect();
         Ok(OrbitModel {
             observations,
@@ -66,6 +79,13 @@ impl<'a> OrbitModel<'a> {
     /// The current light-time emission epochs (TDB days), one per observation.
     pub fn emission_epochs(&self) -> &[f64] {
         &self.emission
+    }
+
+    /// Sets the emission epochs the next prediction starts from (so that a
+    /// prediction depends only on its inputs, not on the ones before it).
+    pub fn set_emission_epochs(&mut self, epochs: &[f64]) {
+        self.emission.copy_from_slice(epochs);
+        self.predictions = self.predictions.max(1);
     }
 
     /// Predictions for a heliocentric ICRF state (x, y, z, vx, vy, vz) at the
@@ -107,6 +127,13 @@ impl<'a> OrbitModel<'a> {
         }
         Ok(out)
     }
+}
+
+/// The (RA*cos(Dec), Dec) difference a - b between two predicted places,
+/// arcsec.
+pub fn residual_arcsec_between(a: &RaDec, b: &RaDec) -> (f64, f64) {
+    let dra = wrap_pi(a.ra_rad - b.ra_rad) * a.dec_rad.cos() / RAD_PER_ARCSEC;
+    (dra, (a.dec_rad - b.dec_rad) / RAD_PER_ARCSEC)
 }
 
 /// O-C of one observation: (RA_obs - RA_calc) cos(Dec) and Dec_obs - Dec_calc,

@@ -1,0 +1,181 @@
+//! The perturber's posterior: where can it be, how heavy, and is it a
+//! perturber at all?
+//!
+//! - [`sampler`]: the parallel-tempered ensemble sampler, its diagnostics,
+//!   the evidence by thermodynamic integration, checkpoints.
+//! - [`model`]: the perturber's prior and linear-kernel likelihood.
+//! - [`impostors`]: the alternative explanations (planet masses,
+//!   non-gravitational push, astrometric offsets) and their Bayes factors.
+//! - this module: the check of the linear samples against the full
+//!   nonlinear model (importance weights) and summaries of samples.
+
+pub mod impostors;
+pub mod model;
+pub mod sampler;
+
+use std::sync::Mutex;
+
+use rand::{RngExt, SeedableRng};
+use rayon::prelude::*;
+
+pub use model::{PerturberPosterior, PerturberPrior, PerturberSample};
+pub use sampler::{SamplerSettings, SamplerState, Target};
+
+use crate::astrometry::ObservingGeometry;
+use crate::dynamics::{ForceModel, Perturber, PropagationError, PropagationSettings};
+use crate::ephemeris::Ephemeris;
+use crate::io::observations::Observation;
+use crate::perturber::LinearKernel;
+use crate::reference::{OrbitModel, ReferenceFit, residual_arcsec_between, whiten};
+
+/// The full nonlinear likelihood of a perturber sample: the tracked body
+/// and the perturber integrated together under the Sun and the known
+/// planets, the difference from the null model's predictions whitened and
+/// projected like the kernel's signal (so the orbit correction is
+/// marginalised the same way).
+pub struct NonlinearLikelihood<'a> {
+    kernel: &'a LinearKernel,
+    observations: &'a [Observation],
+    state: [f64; 6],
+    base: Vec<crate::reference::Prediction>,
+    emission: Vec<f64>,
+    models: Vec<Mutex<OrbitModel<'a>>>,
+}
+
+impl<'a> NonlinearLikelihood<'a> {
+    pub fn new(
+        null: &ReferenceFit,
+        kernel: &'a LinearKernel,
+        observations: &'a [Observation],
+        geometry: &[ObservingGeometry],
+        model: &'a ForceModel,
+        ephemeris: &'a dyn Ephemeris,
+    ) -> Result<Self, PropagationError> {
+        let settings = PropagationSettings { partials: false, reuse_steps: false, ..PropagationSettings::fast() };
+        let make = || {
+            OrbitModel::with_settings(observations, geometry.to_vec(), null.epoch_tdb_days, model, ephemeris, settings)
+        };
+        let mut first = make()?;
+        first.predict(&null.state, false)?;
+        let base = first.predict(&null.state, false)?;
+        let emission = first.emission_epochs().to_vec();
+        let mut models = vec![Mutex::new(first)];
+        for _ in 1..rayon::current_num_threads() {
+            models.push(Mutex::new(make()?));
+        }
+        Ok(NonlinearLikelihood { kernel, observations, state: null.state, base, emission, models })
+    }
+
+    /// ln L (the chi-square drop over 2) of a sample; `None` when the
+    /// propagation fails (a close encounter, say).
+    pub fn log_likelihood(&self, s: &PerturberSample) -> Option<f64> {
+        let slot = rayon::current_thread_index().unwrap_or(0) % self.models.len();
+        let mut m = self.models[slot].lock().ok()?;
+        m.set_emission_epochs(&self.emission);
+        m.perturbers = vec![Perturber {
+            gm_au3_per_day2: s.gm_au3_per_day2,
+            position_au: s.position_au,
+            velocity_au_per_day: s.velocity_au_per_day,
+        }];
+        let p = m.predict(&self.state, false).ok()?;
+        drop(m);
+        let n = self.observations.len();
+        let mut signal = vec![0.0; 2 * n];
+        for k in 0..n {
+            if !self.kernel.used[k] {
+                continue;
+            }
+            let d = residual_arcsec_between(&p[k].radec, &self.base[k].radec);
+            let (w1, w2) = whiten(&self.observations[k], d);
+            signal[2 * k] = w1;
+            signal[2 * k + 1] = w2;
+        }
+        self.kernel.project(&mut signal);
+        let (sy, ss) = self.kernel.signal_products(&signal);
+        Some(sy - 0.5 * ss)
+    }
+}
+
+/// The nonlinear posterior: the linear model's prior with the nonlinear
+/// likelihood, for MCMC steps where the importance weights collapse.
+pub struct NonlinearPosterior<'p, 'a> {
+    pub linear: &'p PerturberPosterior<'p>,
+    pub likelihood: &'p NonlinearLikelihood<'a>,
+}
+
+impl Target for NonlinearPosterior<'_, '_> {
+    fn dim(&self) -> usize {
+        model::DIM
+    }
+    fn log_prior(&self, x: &[f64]) -> f64 {
+        self.linear.log_prior(x)
+    }
+    fn log_likelihood(&self, x: &[f64]) -> Option<f64> {
+        // The close-approach exclusion of the linear model.
+        self.linear.log_likelihood(x)?;
+        self.likelihood.log_likelihood(&PerturberSample::from_params(x))
+    }
+}
+
+/// Importance weights of linear-model samples under the nonlinear model:
+/// ln w = ln L_nonlinear - ln L_linear, evaluated in parallel; samples whose
+/// propagation fails get weight 0.
+pub fn importance_log_weights(samples: &[(Vec<f64>, f64)], nonlinear: &NonlinearLikelihood) -> Vec<f64> {
+    samples
+        .par_iter()
+        .map(|(x, ll)| match nonlinear.log_likelihood(&PerturberSample::from_params(x)) {
+            Some(nl) => nl - ll,
+            None => f64::NEG_INFINITY,
+        })
+        .collect()
+}
+
+/// Kish's effective sample size of importance weights given as logs.
+pub fn effective_sample_size(log_w: &[f64]) -> f64 {
+    let max = log_w.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    if !max.is_finite() {
+        return 0.0;
+    }
+    let w: Vec<f64> = log_w.iter().map(|l| (l - max).exp()).collect();
+    let s: f64 = w.iter().sum();
+    let s2: f64 = w.iter().map(|x| x * x).sum();
+    s * s / s2
+}
+
+/// Systematic resampling: `n` indices drawn in proportion to the weights
+/// (given as logs), seeded.
+pub fn resample(log_w: &[f64], n: usize, seed: u64) -> Vec<usize> {
+    let max = log_w.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    let w: Vec<f64> = log_w.iter().map(|l| (l - max).exp()).collect();
+    let total: f64 = w.iter().sum();
+    let mut rng = rand::rngs::StdRng::seed_from_u64(seed);
+    let u0: f64 = rng.random::<f64>() / n as f64;
+    let mut out = Vec::with_capacity(n);
+    let (mut acc, mut i) = (w.first().copied().unwrap_or(0.0) / total, 0);
+    for k in 0..n {
+        let u = u0 + k as f64 / n as f64;
+        while u > acc && i + 1 < w.len() {
+            i += 1;
+            acc += w[i] / total;
+        }
+        out.push(i);
+    }
+    out
+}
+
+/// Quantiles (linear interpolation between order statistics) of values.
+pub fn quantiles(values: &[f64], probs: &[f64]) -> Vec<f64> {
+    let mut v: Vec<f64> = values.iter().copied().filter(|x| x.is_finite()).collect();
+    if v.is_empty() {
+        return vec![f64::NAN; probs.len()];
+    }
+    v.sort_by(f64::total_cmp);
+    probs
+        .iter()
+        .map(|&p| {
+            let h = p.clamp(0.0, 1.0) * (v.len() - 1) as f64;
+            let (lo, hi) = (h.floor() as usize, h.ceil() as usize);
+            v[lo] + (h - lo as f64) * (v[hi] - v[lo])
+        })
+        .collect()
+}
