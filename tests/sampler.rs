@@ -4,6 +4,7 @@ use std::sync::atomic::{AtomicBool, Ordering};
 
 use latens::posterior::sampler::{
     Checkpoint, SamplerSettings, SamplerState, Target, autocorrelation_time, combined_evidence, run, split_r_hat,
+    stepping_stone_evidence, thermodynamic_evidence,
 };
 use rand::SeedableRng;
 use rand_distr::{Distribution, Normal, StandardNormal};
@@ -208,7 +209,7 @@ fn tempering_finds_both_modes_in_the_right_ratio() {
     assert!((left - 0.25).abs() < 0.04, "share in the lighter mode {left}");
     // ln Z = ln(0.25 * 2 pi * 0.25 + 0.75 * 2 pi * 0.25) - ln(1600).
     let exact = (2.0 * std::f64::consts::PI * 0.25).ln() - 1600f64.ln();
-    let (z, err) = combined_evidence(&states);
+    let (z, err) = combined_evidence(&states, thermodynamic_evidence);
     assert!(err < 0.3, "evidence error {err}");
     assert!((z - exact).abs() < 3.0 * err.max(0.02), "ln Z {z} +- {err} vs {exact}");
 }
@@ -261,9 +262,11 @@ fn thermodynamic_integration_matches_an_analytic_evidence() {
         .collect();
     let states: Vec<SamplerState> = (0..2).map(|r| SamplerState::new(&t, &settings, r, &starts).unwrap()).collect();
     let states = run(&t, &settings, states, None, &AtomicBool::new(false), &|_| {}).unwrap();
-    let (z, err) = combined_evidence(&states);
+    let (z, err) = combined_evidence(&states, thermodynamic_evidence);
     assert!(err < 0.5, "error {err}");
     assert!((z - exact).abs() < 3.0 * err, "ln Z {z} +- {err} vs exact {exact}");
+    let (ss, ss_err) = combined_evidence(&states, stepping_stone_evidence);
+    assert!((ss - exact).abs() < 3.0 * ss_err.max(0.05), "stepping stones: ln Z {ss} +- {ss_err} vs exact {exact}");
 }
 
 #[test]

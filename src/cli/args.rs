@@ -137,6 +137,27 @@ pub struct InferArgs {
     /// Directory to write into (created if missing).
     #[arg(long, value_name = "DIR", default_value = "output/infer")]
     pub out: PathBuf,
+    /// Skip the posterior sampling (grid search and refinement only).
+    #[arg(long)]
+    pub no_posterior: bool,
+    /// Steps of the posterior sampler (the first 40% are burn-in).
+    #[arg(long, value_name = "N", default_value_t = 1500)]
+    pub posterior_steps: usize,
+    /// Walkers per temperature (even, at least 14).
+    #[arg(long, value_name = "N", default_value_t = 32)]
+    pub walkers: usize,
+    /// Rungs of the temperature ladder, the prior rung included.
+    #[arg(long, value_name = "N", default_value_t = 16)]
+    pub temperatures: usize,
+    /// Independent sampler runs (for the split R-hat; at least 2 to check convergence).
+    #[arg(long, value_name = "N", default_value_t = 2)]
+    pub runs: usize,
+    /// Largest perturber eccentricity the prior allows.
+    #[arg(long, value_name = "E", default_value_t = 0.6)]
+    pub max_eccentricity: f64,
+    /// Continue an interrupted run from DIR/checkpoint.json (DIR becomes the output directory).
+    #[arg(long, value_name = "DIR")]
+    pub resume: Option<PathBuf>,
 }
 
 #[derive(Debug, clap::Args)]

@@ -252,6 +252,13 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
         distances: 20,
         seed: SURVEY_SEED,
         out: search_dir.clone(),
+        no_posterior: false,
+        posterior_steps: 1500,
+        walkers: 32,
+        temperatures: 16,
+        runs: 2,
+        max_eccentricity: 0.6,
+        resume: None,
     })?;
     // Where the hidden planet really is at the search epoch, against the
     // search's basins (the demo knows the truth; a user would not).

@@ -32,7 +32,7 @@ use crate::vec3::Vec3;
 pub const DETECTION_FAP: f64 = 0.0027;
 
 /// Solar elongations below this get a safety warning, degrees.
-const SUN_WARNING_DEG: f64 = 45.0;
+pub(super) const SUN_WARNING_DEG: f64 = 45.0;
 
 fn parse_range(text: &str, what: &str) -> Result<(f64, f64), CliError> {
     let bad = || CliError::bad_input(anyhow::anyhow!("{what}: expected MIN:MAX with 0 < MIN < MAX, got `{text}`"));
@@ -45,6 +45,9 @@ fn parse_range(text: &str, what: &str) -> Result<(f64, f64), CliError> {
 }
 
 pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
+    // A resumed run writes where it was interrupted.
+    let out_dir = args.resume.clone().unwrap_or_else(|| args.out.clone());
+    let out = out_dir.as_path();
     let (observations, sites) = read_inputs(&args.input.obs, args.input.sites.as_ref())?;
     let known = parse_known(&args.input.known).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
     let mass = parse_range(&args.mass_earth, "--mass-earth")?;
@@ -199,6 +202,33 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
         )
     };
 
+    let stage = super::posterior::run(
+        args,
+        out,
+        &super::posterior::Inputs {
+            null: &null,
+            kernel: &kernel,
+            observations: &observations,
+            geometry: &geometry,
+            model: &model,
+            ephemeris: ephemeris.as_ref(),
+            wide: wide.as_ref(),
+            search_epoch,
+            basins: &result.basins,
+            mass_earth: mass,
+            distance_au: distance,
+            min_separation_au: settings.min_separation_au,
+        },
+    )?;
+    warnings.extend(stage.warnings.iter().cloned());
+    let mut verdict = verdict;
+    if let Some(ex) = &stage.explanation
+        && detected
+        && ex.best != "an unseen perturber"
+    {
+        verdict.push_str(&format!("; but the data favour another explanation: {} ({})", ex.best, ex.strength));
+    }
+
     let summary = InferSummary {
         search_epoch_utc: utc_iso_from_epoch(epoch_from_tdb_days(search_epoch)),
         seed: args.seed,
@@ -233,6 +263,11 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
             signal_subspace_dimension: result.subspace_dimension,
             signal_subspace_energy: result.subspace_energy,
         },
+        posterior: stage.posterior,
+        evidence: stage.evidence,
+        impostors: stage.impostors,
+        explanation: stage.explanation,
+        diagnostics: stage.diagnostics,
         warnings: warnings.clone(),
     };
     let json = serde_json::to_string_pretty(&summary).map_err(|e| CliError::failed(anyhow::anyhow!(e)))? + "\n";
@@ -241,8 +276,7 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
     // the best linear signal, with the orbit correction), side by side.
     let null_products = ResidualProducts::build(&null, &observations, &model, ephemeris.description());
     let charts = best_fit_residuals(&null, &observations, &kernel, result.best());
-    write_outputs(&args.out, &json, &null_products, &charts, &observations, &null, best_delta)
-        .map_err(CliError::failed)?;
+    write_outputs(out, &json, &null_products, &charts, &observations, &null, best_delta).map_err(CliError::failed)?;
 
     let mut text = String::new();
     let _ =
@@ -274,15 +308,19 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
             "  Several basins fit almost equally well: mass, distance and direction are not all pinned down by these data."
         );
     }
+    text.push_str(&stage.text);
     for w in &warnings {
         let _ = writeln!(text, "warning: {w}");
     }
     print!("{text}");
-    println!("Files written in {}:", args.out.display());
+    println!("Files written in {}:", out.display());
     println!("  summary.json         the verdict, the best solution and every basin, the settings and the seed");
     println!(
         "  residuals_null_vs_best.png (.svg)  O-C of the null model and of the best perturber solution, side by side"
     );
+    for (name, what) in &stage.files {
+        println!("  {name:<20} {what}");
+    }
     Ok(summary)
 }
 

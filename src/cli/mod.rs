@@ -6,6 +6,7 @@
 mod args;
 mod demo;
 mod infer;
+mod posterior;
 mod residuals;
 mod sensitivity;
 

@@ -81,7 +81,127 @@ pub struct InferSummary {
     pub basins: Vec<PerturberFile>,
     pub detection: DetectionFile,
     pub search: SearchStatsFile,
+    /// The posterior (absent with --no-posterior).
+    pub posterior: Option<PosteriorFile>,
+    /// Evidence for a perturber against no perturber (absent with --no-posterior).
+    pub evidence: Option<EvidenceFile>,
+    /// The alternative explanations, each weighed against no extra effect.
+    pub impostors: Vec<ImpostorFile>,
+    /// Which explanation the data support best, and how strongly.
+    pub explanation: Option<ExplanationFile>,
+    pub diagnostics: Option<DiagnosticsFile>,
     pub warnings: Vec<String>,
+}
+
+/// Median and central 68% and 95% intervals of one quantity.
+#[derive(Debug, Serialize, Clone, Copy)]
+pub struct IntervalFile {
+    pub median: f64,
+    pub lo68: f64,
+    pub hi68: f64,
+    pub lo95: f64,
+    pub hi95: f64,
+}
+
+#[derive(Debug, Serialize)]
+pub struct PosteriorFile {
+    /// How the samples in posterior.csv were made: `linear` (the kernel's
+    /// posterior, confirmed by the nonlinear weights), `reweighted` (resampled
+    /// by nonlinear importance weights) or `nonlinear` (MCMC on the full model).
+    pub method: String,
+    pub n_samples: usize,
+    pub mass_earth: IntervalFile,
+    /// Geocentric distance at the search epoch.
+    pub distance_au: IntervalFile,
+    /// Heliocentric distance at the search epoch.
+    pub heliocentric_distance_au: IntervalFile,
+    pub a_au: IntervalFile,
+    pub e: IntervalFile,
+    pub inc_deg: IntervalFile,
+    /// Angular distance of the samples from their mean direction at the
+    /// search epoch (a rough size; the sky map gives the regions).
+    pub sky_radius_deg: IntervalFile,
+    pub mean_ra_deg: f64,
+    pub mean_dec_deg: f64,
+    pub prior: PriorFile,
+}
+
+#[derive(Debug, Serialize)]
+pub struct PriorFile {
+    pub mass_earth_log_uniform: [f64; 2],
+    pub heliocentric_distance_au_log_uniform: [f64; 2],
+    pub max_eccentricity: f64,
+    pub min_separation_au: f64,
+    pub description: String,
+}
+
+#[derive(Debug, Serialize)]
+pub struct EvidenceFile {
+    /// ln of the evidence ratio against the no-perturber model, and its error.
+    pub ln_bayes_factor: f64,
+    pub ln_bayes_factor_error: f64,
+    pub log10_bayes_factor: f64,
+    pub log10_bayes_factor_error: f64,
+    pub method: String,
+}
+
+#[derive(Debug, Serialize)]
+pub struct ImpostorFile {
+    pub name: String,
+    pub description: String,
+    pub n_parameters: usize,
+    pub delta_chi2: f64,
+    pub log10_bayes_factor: f64,
+    pub estimates: Vec<EstimateFile>,
+}
+
+#[derive(Debug, Serialize)]
+pub struct EstimateFile {
+    pub parameter: String,
+    pub mean: f64,
+    pub sigma: f64,
+    pub unit: String,
+}
+
+#[derive(Debug, Serialize)]
+pub struct ExplanationFile {
+    pub best: String,
+    pub runner_up: String,
+    /// log10 Bayes factor of the best over the runner-up.
+    pub log10_margin: f64,
+    /// Kass & Raftery (1995) wording for the margin.
+    pub strength: String,
+    pub text: String,
+}
+
+#[derive(Debug, Serialize)]
+pub struct DiagnosticsFile {
+    pub runs: usize,
+    pub walkers: usize,
+    pub steps: usize,
+    pub burn_in: usize,
+    pub thin: usize,
+    pub likelihood_evaluations: u64,
+    pub sampling_seconds: f64,
+    /// Final ladder (inverse temperatures) of the first run.
+    pub betas: Vec<f64>,
+    /// Stretch-move acceptance per temperature, after burn-in, all runs.
+    pub acceptance: Vec<f64>,
+    /// Exchange rates between neighbouring temperatures.
+    pub swap_rates: Vec<f64>,
+    pub parameters: Vec<String>,
+    /// Integrated autocorrelation time per parameter (steps, the largest over runs).
+    pub autocorrelation_steps: Vec<f64>,
+    /// Split R-hat per parameter across the runs.
+    pub split_r_hat: Vec<f64>,
+    /// Cold-chain samples after burn-in over the largest autocorrelation time.
+    pub effective_samples: f64,
+    pub effective_samples_per_second: f64,
+    /// Kish effective size of the nonlinear importance weights, of `reweighting_checked` samples.
+    pub reweighting_effective_samples: f64,
+    pub reweighting_checked: usize,
+    pub converged: bool,
+    pub advice: String,
 }
 
 #[derive(Debug, Serialize)]

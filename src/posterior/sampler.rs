@@ -137,6 +137,10 @@ pub struct SamplerState {
     /// Ensemble mean of ln L per temperature, one entry per step after
     /// burn-in ([temperature][step]).
     pub mean_log_l: Vec<Vec<f64>>,
+    /// Per step after burn-in, for each rung k >= 1: the log of the walkers'
+    /// mean of exp((beta_{k-1} - beta_k) ln L) (the stepping-stone ratio of
+    /// Xie et al. 2011, Syst. Biol. 60, 150), [rung][step].
+    pub stone_log_ratio: Vec<Vec<f64>>,
     /// The cold chain every `thin` steps, burn-in included:
     /// [kept step][walker][dim] flattened, with ln L and the step numbers.
     pub chain: Vec<f64>,
@@ -221,6 +225,7 @@ impl SamplerState {
             swaps_accepted: vec![0; nt.saturating_sub(1)],
             swaps_proposed: vec![0; nt.saturating_sub(1)],
             mean_log_l: vec![Vec::new(); nt],
+            stone_log_ratio: vec![Vec::new(); nt],
             chain: Vec::new(),
             chain_log_l: Vec::new(),
             chain_steps: Vec::new(),
@@ -356,6 +361,11 @@ pub fn advance(mut s: SamplerState, target: &dyn Target, settings: &SamplerSetti
         for t in 0..nt {
             let m = s.log_l[t * nw..][..nw].iter().sum::<f64>() / nw as f64;
             s.mean_log_l[t].push(m);
+            if t > 0 {
+                let db = s.betas[t - 1] - s.betas[t];
+                let terms: Vec<f64> = s.log_l[t * nw..][..nw].iter().map(|l| db * l).collect();
+                s.stone_log_ratio[t].push(log_mean_exp(&terms));
+            }
         }
     }
     s.step += 1;
@@ -366,7 +376,8 @@ pub fn advance(mut s: SamplerState, target: &dyn Target, settings: &SamplerSetti
 /// One adaptation of the ladder's finite rungs: each log-temperature gap
 /// grows where its exchange rate is above the mean and shrinks where it is
 /// below, with a gain decaying as t0/(t + t0); the gaps are then rescaled so
-/// that the hottest finite temperature stays put.
+/// that the hottest finite temperature stays put (no gap wider than twice
+/// the even spacing).
 fn adapt_ladder(betas: &mut [f64], rates: &[f64], step: usize, t_max: f64) {
     const NU: f64 = 10.0;
     const T0: f64 = 100.0;
@@ -376,6 +387,14 @@ fn adapt_ladder(betas: &mut [f64], rates: &[f64], step: usize, t_max: f64) {
     let mean = rates[..gaps].iter().sum::<f64>() / gaps as f64;
     let mut ln_t: Vec<f64> = betas[..finite].iter().map(|b| -b.ln()).collect();
     let mut g: Vec<f64> = (0..gaps).map(|i| (ln_t[i + 1] - ln_t[i]) * (kappa * (rates[i] - mean)).exp()).collect();
+    // No gap may grow beyond twice the even spacing in ln T: the evidence's
+    // quadrature needs rungs all along the ladder, not only where the
+    // exchanges are hardest.
+    let even = t_max.ln() / gaps as f64;
+    for _ in 0..3 {
+        let total: f64 = g.iter().sum();
+        g.iter_mut().for_each(|x| *x = (*x * t_max.ln() / total).min(2.0 * even));
+    }
     let total: f64 = g.iter().sum();
     g.iter_mut().for_each(|x| *x *= t_max.ln() / total);
     for i in 0..gaps {
@@ -556,51 +575,74 @@ pub fn split_r_hat(runs: &[Vec<f64>]) -> f64 {
     (((n - 1.0) / n * w + b / n) / w).sqrt()
 }
 
+fn log_mean_exp(v: &[f64]) -> f64 {
+    let m = v.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    if !m.is_finite() {
+        return m;
+    }
+    m + (v.iter().map(|x| (x - m).exp()).sum::<f64>() / v.len() as f64).ln()
+}
+
+/// The stepping-stone estimate of ln(Z_{beta_{k-1}} / Z_{beta_k}) from rung
+/// k's samples, and its error (delta method, with the autocorrelation time
+/// of the per-step ratios).
+fn stone(state: &SamplerState, k: usize) -> (f64, f64) {
+    let series = &state.stone_log_ratio[k];
+    let n = series.len() as f64;
+    let m = series.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    if !m.is_finite() || series.is_empty() {
+        return (f64::NEG_INFINITY, f64::INFINITY);
+    }
+    let r: Vec<f64> = series.iter().map(|x| (x - m).exp()).collect();
+    let mean = r.iter().sum::<f64>() / n;
+    let var = r.iter().map(|x| (x - mean).powi(2)).sum::<f64>() / (n - 1.0).max(1.0);
+    let tau = autocorrelation_time(std::slice::from_ref(&r));
+    let tau = if tau.is_finite() { tau } else { n };
+    (m + mean.ln(), (var * tau / n).sqrt() / mean)
+}
+
 /// ln evidence by thermodynamic integration, ln Z = integral over beta in
 /// [0, 1] of <ln L>_beta. Between finite rungs the rule is the trapezoid in
 /// ln(beta) applied to beta <ln L>_beta (exact where <ln L> ~ -d/(2 beta),
 /// the regime of a well-measured parameter, where the plain trapezoid in
-/// beta needs many rungs); from the hottest finite rung to 0, the plain
-/// trapezoid. Its error: the Monte Carlo error of each rung's mean (from the
-/// variance and autocorrelation time of its per-step means) through the
-/// rule's weights, in quadrature with the discretisation error, estimated
-/// as the difference from the same rule on every other rung (as ptemcee
-/// does).
+/// beta needs many rungs). From the hottest finite rung down to the prior
+/// (beta = 0), where <ln L> can fall by many orders of magnitude and no
+/// quadrature is safe, the stepping-stone ratio E_prior[L^beta_min] is used
+/// instead (Xie et al. 2011). The error: the Monte Carlo error of each
+/// rung's mean (variance and autocorrelation time of its per-step means)
+/// through the rule's weights, the stepping-stone error, and the
+/// discretisation error, estimated as the difference from the same rule on
+/// every other rung (as ptemcee does), in quadrature.
 pub fn thermodynamic_evidence(state: &SamplerState) -> (f64, f64) {
     let nt = state.betas.len();
     if nt < 2 || state.mean_log_l.iter().any(|m| m.is_empty()) {
         return (f64::NAN, f64::NAN);
     }
     let b = &state.betas;
+    let finite = if b[nt - 1] == 0.0 { nt - 1 } else { nt };
     let means: Vec<f64> = state.mean_log_l.iter().map(|m| m.iter().sum::<f64>() / m.len() as f64).collect();
-    // Weights of each rung's mean in the rule over the rungs `idx`.
     let weights = |idx: &[usize]| -> Vec<f64> {
         let mut w = vec![0.0; nt];
         for pair in idx.windows(2) {
             let (i, j) = (pair[0], pair[1]);
-            if b[j] > 0.0 {
-                let h = 0.5 * (b[i].ln() - b[j].ln());
-                w[i] += h * b[i];
-                w[j] += h * b[j];
-            } else {
-                let h = 0.5 * (b[i] - b[j]);
-                w[i] += h;
-                w[j] += h;
-            }
+            let h = 0.5 * (b[i].ln() - b[j].ln());
+            w[i] += h * b[i];
+            w[j] += h * b[j];
         }
         w
     };
     let rule = |idx: &[usize]| -> f64 { weights(idx).iter().zip(&means).map(|(w, m)| w * m).sum() };
-    let all: Vec<usize> = (0..nt).collect();
-    let mut half: Vec<usize> = (0..nt).step_by(2).collect();
-    if *half.last().unwrap_or(&0) != nt - 1 {
-        half.push(nt - 1);
+    let all: Vec<usize> = (0..finite).collect();
+    let mut half: Vec<usize> = (0..finite).step_by(2).collect();
+    if *half.last().unwrap_or(&0) != finite - 1 {
+        half.push(finite - 1);
     }
-    let z = rule(&all);
-    let discretisation = (z - rule(&half)).abs();
+    let (tail, tail_err) = if finite < nt { stone(state, nt - 1) } else { (0.0, 0.0) };
+    let z = rule(&all) + tail;
+    let discretisation = (rule(&all) - rule(&half)).abs();
     let w = weights(&all);
-    let mut var = 0.0;
-    for k in 0..nt {
+    let mut var = tail_err * tail_err;
+    for k in 0..finite {
         let series = &state.mean_log_l[k];
         let n = series.len() as f64;
         let mu = means[k];
@@ -612,10 +654,26 @@ pub fn thermodynamic_evidence(state: &SamplerState) -> (f64, f64) {
     (z, (var + discretisation * discretisation).sqrt())
 }
 
+/// ln evidence by stepping stones over the whole ladder, with its error: a
+/// cross-check of [`thermodynamic_evidence`].
+pub fn stepping_stone_evidence(state: &SamplerState) -> (f64, f64) {
+    let nt = state.betas.len();
+    if nt < 2 || state.stone_log_ratio[1..].iter().any(|m| m.is_empty()) {
+        return (f64::NAN, f64::NAN);
+    }
+    let (mut z, mut var) = (0.0, 0.0);
+    for k in 1..nt {
+        let (r, e) = stone(state, k);
+        z += r;
+        var += e * e;
+    }
+    (z, var.sqrt())
+}
+
 /// Combines the evidence of independent runs: their mean, with the larger
 /// of the propagated error and the runs' scatter.
-pub fn combined_evidence(states: &[SamplerState]) -> (f64, f64) {
-    let each: Vec<(f64, f64)> = states.iter().map(thermodynamic_evidence).collect();
+pub fn combined_evidence(states: &[SamplerState], method: fn(&SamplerState) -> (f64, f64)) -> (f64, f64) {
+    let each: Vec<(f64, f64)> = states.iter().map(method).collect();
     let n = each.len() as f64;
     if each.is_empty() {
         return (f64::NAN, f64::NAN);
