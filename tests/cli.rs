@@ -33,11 +33,8 @@ fn bad_arguments_exit_two() {
 
 #[test]
 fn demo_writes_its_track_and_says_what_it_did() {
-    let dir = temp_dir("demo");
-    let out = latens().args(["demo", "--out"]).arg(&dir).output().unwrap();
-    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
-    let stdout = String::from_utf8_lossy(&out.stdout);
-    assert!(stdout.contains("Files written") && stdout.contains("not built yet"), "{stdout}");
+    let (dir, stdout) = shared_demo();
+    assert!(stdout.contains("Files written") && stdout.contains("did not do yet"), "{stdout}");
     assert!(stdout.contains("NOT consistent with noise") && stdout.contains("Verdict: detected"), "{stdout}");
     let track = std::fs::read_to_string(dir.join("track.csv")).unwrap();
     let lines: Vec<&str> = track.lines().collect();
@@ -82,7 +79,6 @@ fn demo_writes_its_track_and_says_what_it_did() {
     let per_dof = fit["chi2_per_dof"].as_f64().unwrap();
     assert!(per_dof > 1.2, "chi2/dof {per_dof}");
     assert!(fit["orbit"]["frame"].as_str().unwrap().contains("ecliptic J2000"));
-    std::fs::remove_dir_all(&dir).unwrap();
 }
 
 #[test]
@@ -99,14 +95,33 @@ fn unwritable_output_is_an_error_naming_the_path() {
     std::fs::remove_dir_all(&dir).unwrap();
 }
 
+/// The demo, run once for every test of this file that needs its files:
+/// its output directory and what it printed.
+fn shared_demo() -> &'static (PathBuf, String) {
+    static DEMO: std::sync::OnceLock<(PathBuf, String)> = std::sync::OnceLock::new();
+    DEMO.get_or_init(|| {
+        let dir = temp_dir("shared-demo");
+        let out = latens().args(["demo", "--out"]).arg(&dir).output().unwrap();
+        assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+        (dir, String::from_utf8_lossy(&out.stdout).into_owned())
+    })
+}
+
+/// A summary without its wall-clock figures, which differ between runs.
+fn without_timings(mut v: serde_json::Value) -> serde_json::Value {
+    if let Some(d) = v.get_mut("diagnostics").and_then(|d| d.as_object_mut()) {
+        d.remove("sampling_seconds");
+        d.remove("effective_samples_per_second");
+    }
+    v
+}
+
 #[test]
 fn infer_on_the_demo_survey_detects_the_hidden_planet_and_repeats_with_the_same_seed() {
     // The demo's invented survey carries a hidden planet: even a coarse search
     // must find it, and two runs with one seed must write identical summaries.
     let dir = temp_dir("infer");
-    let demo = dir.join("demo");
-    let out = latens().args(["demo", "--out"]).arg(&demo).output().unwrap();
-    assert!(out.status.success());
+    let demo = &shared_demo().0;
     let mut summaries = Vec::new();
     for run in 0..2 {
         let out_dir = dir.join(format!("infer{run}"));
@@ -115,7 +130,8 @@ fn infer_on_the_demo_survey_detects_the_hidden_planet_and_repeats_with_the_same_
             .arg(demo.join("observations.csv"))
             .arg("--sites")
             .arg(demo.join("sites.csv"))
-            .args(["--directions", "96", "--distances", "8", "--nulls", "400", "--seed", "7", "--out"])
+            .args(["--directions", "96", "--distances", "8", "--nulls", "400", "--seed", "7"])
+            .args(["--posterior-steps", "600", "--temperatures", "8", "--walkers", "16", "--out"])
             .arg(&out_dir)
             .output()
             .unwrap();
@@ -129,9 +145,22 @@ fn infer_on_the_demo_survey_detects_the_hidden_planet_and_repeats_with_the_same_
         );
         assert_eq!(v["seed"], 7);
         assert!(out_dir.join("residuals_null_vs_best.png").exists());
-        summaries.push(text);
+        // The posterior, the evidence and the alternatives are all there.
+        assert!(v["posterior"]["mass_earth"]["median"].as_f64().unwrap() > 0.0, "{text}");
+        assert!(v["evidence"]["log10_bayes_factor"].as_f64().unwrap().is_finite());
+        assert_eq!(v["impostors"].as_array().unwrap().len(), 3);
+        assert!(v["explanation"]["text"].as_str().unwrap().starts_with("best supported"));
+        assert!(v["diagnostics"]["split_r_hat"].as_array().unwrap().len() == 7);
+        let csv = std::fs::read_to_string(out_dir.join("posterior.csv")).unwrap();
+        assert!(csv.starts_with(
+            "mass_earth,a_au,e,inc_deg,node_deg,peri_deg,mean_anomaly_deg,ra_deg,dec_deg,distance_au,log_likelihood\n"
+        ));
+        assert!(csv.lines().count() > 100);
+        assert!(out_dir.join("posterior_corner.png").exists() && out_dir.join("posterior_trace.svg").exists());
+        assert!(!out_dir.join("checkpoint.json").exists(), "a finished run leaves no checkpoint");
+        summaries.push((without_timings(v), csv));
     }
-    assert_eq!(summaries[0], summaries[1], "the same seed gave different results");
+    assert!(summaries[0] == summaries[1], "the same seed gave different results");
 
     // A one-year systematic in the astrometry (0.4" in Dec) is called
     // suspicious, not a planet.
@@ -157,7 +186,7 @@ fn infer_on_the_demo_survey_detects_the_hidden_planet_and_repeats_with_the_same_
         .arg(dir.join("annual.csv"))
         .arg("--sites")
         .arg(demo.join("sites.csv"))
-        .args(["--directions", "96", "--distances", "8", "--nulls", "400", "--out"])
+        .args(["--directions", "96", "--distances", "8", "--nulls", "400", "--no-posterior", "--out"])
         .arg(dir.join("annual"))
         .output()
         .unwrap();
@@ -175,5 +204,54 @@ fn infer_on_the_demo_survey_detects_the_hidden_planet_and_repeats_with_the_same_
         .unwrap();
     assert_eq!(bad.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&bad.stderr).contains("--mass-earth"));
+    std::fs::remove_dir_all(&dir).unwrap();
+}
+
+#[test]
+fn an_interrupted_posterior_resumes_to_the_same_result() {
+    // Ctrl-C (SIGINT) during the sampling saves a checkpoint and exits with
+    // 1; --resume DIR finishes the run, and its posterior is the one an
+    // uninterrupted run with the same seed gives.
+    let dir = temp_dir("resume");
+    let demo = &shared_demo().0;
+    let infer = |out: &std::path::Path| {
+        let mut c = latens();
+        c.args(["infer", "--obs"])
+            .arg(demo.join("observations.csv"))
+            .arg("--sites")
+            .arg(demo.join("sites.csv"))
+            .args(["--directions", "96", "--distances", "8", "--nulls", "400", "--seed", "3"])
+            .args(["--posterior-steps", "3000", "--temperatures", "8", "--walkers", "16", "--out"])
+            .arg(out);
+        c
+    };
+    let whole = dir.join("whole");
+    let o = infer(&whole).output().unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+
+    let cut = dir.join("cut");
+    let child = infer(&cut).stdout(std::process::Stdio::null()).stderr(std::process::Stdio::piped()).spawn().unwrap();
+    let checkpoint = cut.join("checkpoint.json");
+    let started = std::time::Instant::now();
+    while !checkpoint.exists() && started.elapsed().as_secs() < 300 {
+        std::thread::sleep(std::time::Duration::from_millis(5));
+    }
+    assert!(checkpoint.exists(), "no checkpoint appeared");
+    let status = Command::new("kill").args(["-INT", &child.id().to_string()]).status().unwrap();
+    assert!(status.success());
+    let out = child.wait_with_output().unwrap();
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(1), "{stderr}");
+    assert!(stderr.contains("--resume"), "{stderr}");
+    assert!(!cut.join("posterior.csv").exists(), "an interrupted run wrote results");
+
+    let mut resumed = infer(&dir.join("ignored"));
+    resumed.arg("--resume").arg(&cut);
+    let o = resumed.output().unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("Resuming the posterior"));
+    let a = std::fs::read_to_string(whole.join("posterior.csv")).unwrap();
+    let b = std::fs::read_to_string(cut.join("posterior.csv")).unwrap();
+    assert!(a == b, "the resumed posterior differs from the uninterrupted one");
     std::fs::remove_dir_all(&dir).unwrap();
 }

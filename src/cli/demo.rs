@@ -306,8 +306,7 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
         seed: SURVEY_SEED,
         out: sensitivity_dir.clone(),
     })?;
-    println!("What this demo did not do yet: the posterior sampling and the search products (sky map, credible");
-    println!("regions, search chart). Those stages are not built yet.");
+    println!("What this demo did not do yet: the search products (sky map, credible regions, search chart).");
     println!("Files written:");
     println!(
         "  {}  geocentric RA/Dec (ICRF), distances, solar elongation and the planets' shift of {} at each visit",
@@ -321,7 +320,7 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
         residual_dir.display()
     );
     println!(
-        "  {}/summary.json, residuals_null_vs_best.png, .svg, null_fit.json  the perturber search and its verdict",
+        "  {}/summary.json, residuals_null_vs_best.png, .svg, null_fit.json  the perturber search and its verdict; posterior.csv, posterior_corner.png/.svg, posterior_trace.png/.svg  the posterior",
         search_dir.display()
     );
     println!(
