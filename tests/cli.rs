@@ -59,7 +59,7 @@ fn demo_writes_its_track_and_says_what_it_did() {
     }
     // Every product is there and no temporary file is left behind.
     let mut names: Vec<String> =
-        std::fs::read_dir(&dir).unwrap().map(|e| e.unwrap().file_name().to_string_lossy().into_owned()).collect();
+        std::fs::read_dir(dir).unwrap().map(|e| e.unwrap().file_name().to_string_lossy().into_owned()).collect();
     names.sort();
     assert_eq!(names, ["observations.csv", "residuals", "search", "sensitivity", "sites.csv", "track.csv"]);
     assert!(dir.join("sensitivity/sensitivity.png").exists());
