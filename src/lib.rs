@@ -17,6 +17,8 @@
 //! - [`perturber`]: the perturber search (linearised kernel, grid, detection).
 //! - [`posterior`]: the perturber's posterior (tempered ensemble MCMC), the
 //!   evidence and the alternative explanations.
+//! - [`skymap`]: the search products on the sky: HEALPix probability map,
+//!   credible regions as MOCs, modes, brightness and observability.
 //! - [`astrometry`]: the observation model (light time, observing sites).
 //! - [`io`]: reading observations, writing output files safely.
 //! - [`simulate`]: simulated survey astrometry with seeded noise.
@@ -35,6 +37,7 @@ pub mod posterior;
 pub mod reference;
 pub mod report;
 pub mod simulate;
+pub mod skymap;
 pub mod stats;
 pub mod time;
 pub mod units;

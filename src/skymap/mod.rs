@@ -1,0 +1,246 @@
+//! Search products on the sky: the posterior's HEALPix probability map,
+//! its credible regions as IVOA MOCs, and their connected modes.
+//!
+//! The map is an adaptive multi-order histogram in the NESTED scheme: every
+//! pixel holding more than [`SPLIT_COUNT`] samples splits into its four
+//! children, down to [`MAX_ORDER`], and never coarser than [`MIN_ORDER`]; the
+//! leaves tile the whole sky, so a compact posterior and a wide one are both
+//! resolved. A leaf's probability is its share of the samples; its density
+//! that over its area (4 pi / (12 4^order) sr, Gorski et al. 2005, ApJ 622,
+//! 759). HEALPix indexing and MOCs come from the CDS crates cdshealpix and
+//! moc.
+//!
+//! The credible region at level p is the highest-density set: leaves taken
+//! by decreasing density until their probability reaches p.
+
+pub mod fits;
+pub mod observe;
+
+use std::collections::HashMap;
+
+use cdshealpix::nested;
+use moc::moc::range::RangeMOC;
+use moc::moc::{CellMOCIterator, RangeMOCIntoIterator, RangeMOCIterator};
+use moc::qty::Hpx;
+
+use crate::vec3::Vec3;
+
+/// Orders of the adaptive map.
+pub const MIN_ORDER: u8 = 3;
+pub const MAX_ORDER: u8 = 12;
+/// A pixel with more samples than this splits.
+pub const SPLIT_COUNT: usize = 32;
+
+/// Square degrees per steradian.
+pub const DEG2_PER_SR: f64 = (180.0 / std::f64::consts::PI) * (180.0 / std::f64::consts::PI);
+
+/// Area of one pixel at `order`, steradians.
+pub fn pixel_area_sr(order: u8) -> f64 {
+    4.0 * std::f64::consts::PI / (12.0 * 4f64.powi(order as i32))
+}
+
+/// One leaf of the map.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Leaf {
+    pub order: u8,
+    pub ipix: u64,
+    /// Share of the samples in it.
+    pub probability: f64,
+}
+
+impl Leaf {
+    pub fn area_sr(&self) -> f64 {
+        pixel_area_sr(self.order)
+    }
+    /// Probability per steradian.
+    pub fn density(&self) -> f64 {
+        self.probability / self.area_sr()
+    }
+    /// The IVOA NUNIQ index, 4 * 4^order + ipix.
+    pub fn uniq(&self) -> u64 {
+        nested::to_uniq_ivoa(self.order, self.ipix)
+    }
+}
+
+/// Longitude and latitude (radians) of a unit vector.
+pub fn lon_lat(d: Vec3) -> (f64, f64) {
+    (d.y.atan2(d.x).rem_euclid(std::f64::consts::TAU), d.z.clamp(-1.0, 1.0).asin())
+}
+
+/// The multi-order probability map of a set of equally weighted directions.
+#[derive(Clone, Debug)]
+pub struct SkyMap {
+    pub leaves: Vec<Leaf>,
+    /// Each sample's pixel index at MAX_ORDER.
+    sample_hash: Vec<u64>,
+}
+
+impl SkyMap {
+    /// Builds the map from unit vectors (equatorial: RA, Dec).
+    pub fn from_directions(directions: &[Vec3]) -> SkyMap {
+        let sample_hash: Vec<u64> = directions
+            .iter()
+            .map(|d| {
+                let (lon, lat) = lon_lat(*d);
+                nested::hash(MAX_ORDER, lon, lat)
+            })
+            .collect();
+        let mut sorted = sample_hash.clone();
+        sorted.sort_unstable();
+        let n = sorted.len().max(1) as f64;
+        let mut leaves = Vec::new();
+        for base in 0..12u64 {
+            split(0, base, &sorted, n, &mut leaves);
+        }
+        SkyMap { leaves, sample_hash }
+    }
+
+    /// Indices of the leaves of the highest-density region holding at least
+    /// `level` of the probability, in decreasing density.
+    pub fn credible_leaves(&self, level: f64) -> Vec<usize> {
+        let mut order: Vec<usize> = (0..self.leaves.len()).filter(|&i| self.leaves[i].probability > 0.0).collect();
+        order.sort_by(|&a, &b| self.leaves[b].density().total_cmp(&self.leaves[a].density()).then(a.cmp(&b)));
+        let mut total = 0.0;
+        let mut out = Vec::new();
+        for i in order {
+            if total >= level - 1e-12 {
+                break;
+            }
+            total += self.leaves[i].probability;
+            out.push(i);
+        }
+        out
+    }
+
+    /// Area of a set of leaves, square degrees.
+    pub fn area_deg2(&self, leaves: &[usize]) -> f64 {
+        leaves.iter().map(|&i| self.leaves[i].area_sr()).sum::<f64>() * DEG2_PER_SR
+    }
+
+    /// The leaf holding each sample.
+    pub fn sample_leaves(&self) -> Vec<usize> {
+        let index: HashMap<(u8, u64), usize> =
+            self.leaves.iter().enumerate().map(|(i, l)| ((l.order, l.ipix), i)).collect();
+        self.sample_hash
+            .iter()
+            .map(|&h| {
+                (0..=MAX_ORDER)
+                    .rev()
+                    .find_map(|o| index.get(&(o, h >> (2 * (MAX_ORDER - o)))).copied())
+                    .unwrap_or(usize::MAX)
+            })
+            .collect()
+    }
+
+    /// The leaf containing a direction.
+    pub fn leaf_of(&self, d: Vec3) -> Option<usize> {
+        let (lon, lat) = lon_lat(d);
+        let h = nested::hash(MAX_ORDER, lon, lat);
+        self.leaves.iter().position(|l| h >> (2 * (MAX_ORDER - l.order)) == l.ipix)
+    }
+
+    /// Connected components (sharing an edge or a corner) of a set of
+    /// leaves: a component number per given leaf.
+    pub fn components(&self, leaves: &[usize]) -> Vec<usize> {
+        let key = |i: usize| (self.leaves[i].order, self.leaves[i].ipix);
+        let pos: HashMap<(u8, u64), usize> = leaves.iter().enumerate().map(|(k, &i)| (key(i), k)).collect();
+        // Every ancestor of a region leaf, with the leaves beneath it.
+        let mut beneath: HashMap<(u8, u64), Vec<usize>> = HashMap::new();
+        for (k, &i) in leaves.iter().enumerate() {
+            let (o, p) = key(i);
+            for up in 1..=o {
+                beneath.entry((o - up, p >> (2 * up))).or_default().push(k);
+            }
+        }
+        let mut parent: Vec<usize> = (0..leaves.len()).collect();
+        fn find(p: &mut [usize], mut x: usize) -> usize {
+            while p[x] != x {
+                p[x] = p[p[x]];
+                x = p[x];
+            }
+            x
+        }
+        for (k, &i) in leaves.iter().enumerate() {
+            let (o, p) = key(i);
+            for n in nested::neighbours(o, p, false).values_vec() {
+                let mut linked: Vec<usize> = Vec::new();
+                if let Some(&j) = pos.get(&(o, n)) {
+                    linked.push(j);
+                }
+                // A coarser region leaf containing the neighbour.
+                for up in 1..=o {
+                    if let Some(&j) = pos.get(&(o - up, n >> (2 * up))) {
+                        linked.push(j);
+                    }
+                }
+                // Finer region leaves inside the neighbour.
+                if let Some(js) = beneath.get(&(o, n)) {
+                    linked.extend(js.iter().copied());
+                }
+                for j in linked {
+                    let (a, b) = (find(&mut parent, k), find(&mut parent, j));
+                    if a != b {
+                        parent[a] = b;
+                    }
+                }
+            }
+        }
+        let roots: Vec<usize> = (0..leaves.len()).map(|k| find(&mut parent, k)).collect();
+        let mut label: HashMap<usize, usize> = HashMap::new();
+        roots
+            .iter()
+            .map(|r| {
+                let n = label.len();
+                *label.entry(*r).or_insert(n)
+            })
+            .collect()
+    }
+
+    /// A set of leaves as a MOC (depth: the finest leaf's order).
+    pub fn moc(&self, leaves: &[usize]) -> RangeMOC<u64, Hpx<u64>> {
+        let depth = leaves.iter().map(|&i| self.leaves[i].order).max().unwrap_or(MIN_ORDER);
+        let mut cells: Vec<(u8, u64)> = leaves.iter().map(|&i| (self.leaves[i].order, self.leaves[i].ipix)).collect();
+        cells.sort_by_key(|&(o, p)| p << (2 * (depth - o)));
+        RangeMOC::from_cells(depth, cells.into_iter(), None)
+    }
+}
+
+fn split(order: u8, ipix: u64, sorted: &[u64], n: f64, out: &mut Vec<Leaf>) {
+    let shift = 2 * (MAX_ORDER - order) as u32;
+    let lo = sorted.partition_point(|&h| (h >> shift) < ipix);
+    let hi = sorted.partition_point(|&h| (h >> shift) <= ipix);
+    let count = hi - lo;
+    if order < MIN_ORDER || (count > SPLIT_COUNT && order < MAX_ORDER) {
+        for c in 0..4 {
+            split(order + 1, 4 * ipix + c, &sorted[lo..hi], n, out);
+        }
+    } else {
+        out.push(Leaf { order, ipix, probability: count as f64 / n });
+    }
+}
+
+/// A MOC as IVOA FITS bytes.
+pub fn moc_fits(moc: &RangeMOC<u64, Hpx<u64>>) -> Result<Vec<u8>, String> {
+    let mut out = Vec::new();
+    moc.into_range_moc_iter().to_fits_ivoa(None, None, &mut out).map_err(|e| e.to_string())?;
+    Ok(out)
+}
+
+/// A MOC in the JSON serialisation of the IVOA MOC 2.0 recommendation
+/// (`{"order": [cells...]}`).
+pub fn moc_json(moc: &RangeMOC<u64, Hpx<u64>>) -> Result<Vec<u8>, String> {
+    let mut out = Vec::new();
+    moc.into_range_moc_iter().cells().to_json_aladin(None, &mut out).map_err(|e| e.to_string())?;
+    Ok(out)
+}
+
+/// Area of a MOC, square degrees.
+pub fn moc_area_deg2(moc: &RangeMOC<u64, Hpx<u64>>) -> f64 {
+    moc.coverage_percentage() * 4.0 * std::f64::consts::PI * DEG2_PER_SR
+}
+
+/// Whether a MOC holds a direction.
+pub fn moc_contains(moc: &RangeMOC<u64, Hpx<u64>>, d: Vec3) -> bool {
+    let (lon, lat) = lon_lat(d);
+    moc.is_in(lon, lat)
+}
