@@ -158,6 +158,48 @@ fn infer_on_the_demo_survey_detects_the_hidden_planet_and_repeats_with_the_same_
         assert!(csv.lines().count() > 100);
         assert!(out_dir.join("posterior_corner.png").exists() && out_dir.join("posterior_trace.svg").exists());
         assert!(!out_dir.join("checkpoint.json").exists(), "a finished run leaves no checkpoint");
+        // The search products.
+        for f in ["skymap.fits", "region50.fits", "region50.json", "region90.fits", "region90.json", "search_chart.png"]
+        {
+            assert!(out_dir.join(f).exists(), "{f} missing");
+        }
+        let sky = &v["sky"];
+        assert!(sky["area50_deg2"].as_f64().unwrap() < sky["area90_deg2"].as_f64().unwrap(), "{sky}");
+        let modes = std::fs::read_to_string(out_dir.join("modes.csv")).unwrap();
+        assert!(modes.starts_with("mode,probability,ra_deg,dec_deg,area50_deg2,area90_deg2,"));
+        let p: f64 = sky["modes"].as_array().unwrap().iter().map(|m| m["probability"].as_f64().unwrap()).sum();
+        assert!((p - 0.9).abs() < 0.02, "modes hold {p}");
+        if run == 0 {
+            // Predictions from the same directory: the first date is the
+            // search epoch, where each listed mode's centre is where infer
+            // put it (predict follows at most 400 samples per mode, so
+            // within a few degrees).
+            let o = latens().args(["predict", "--from"]).arg(&out_dir).args(["--step-days", "60"]).output().unwrap();
+            assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+            let rows = std::fs::read_to_string(out_dir.join("predict.csv")).unwrap();
+            let mut lines = rows.lines();
+            assert_eq!(
+                lines.next().unwrap(),
+                "mode,epoch_utc,ra_deg,dec_deg,ellipse_major_deg,ellipse_minor_deg,ellipse_pa_deg,v_mag_bright,v_mag_faint,motion_arcsec_per_hour,motion_pa_deg,solar_elongation_deg,near_sun"
+            );
+            let first: Vec<&str> = lines.next().unwrap().split(',').collect();
+            let m0 = &sky["modes"][0];
+            let unit = |ra: f64, dec: f64| {
+                let (a, d) = (ra.to_radians(), dec.to_radians());
+                latens::vec3::Vec3::new(d.cos() * a.cos(), d.cos() * a.sin(), d.sin())
+            };
+            let sep = latens::frames::angular_separation(
+                unit(first[2].parse().unwrap(), first[3].parse().unwrap()),
+                unit(m0["ra_deg"].as_f64().unwrap(), m0["dec_deg"].as_f64().unwrap()),
+            )
+            .to_degrees();
+            assert_eq!(first[0], "1");
+            assert!(sep < 5.0, "predicted centre {sep} deg from the mode's");
+            assert_eq!(rows.lines().filter(|l| l.starts_with("1,")).count(), 7, "{rows}");
+            let bad = latens().args(["predict", "--from"]).arg(dir.join("nowhere")).output().unwrap();
+            assert_eq!(bad.status.code(), Some(2));
+            assert!(String::from_utf8_lossy(&bad.stderr).contains("summary.json"));
+        }
         summaries.push((without_timings(v), csv));
     }
     assert!(summaries[0] == summaries[1], "the same seed gave different results");

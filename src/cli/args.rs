@@ -23,6 +23,27 @@ pub enum Command {
     Infer(InferArgs),
     /// Map which perturber masses at which distances the observations could reveal.
     Sensitivity(SensitivityArgs),
+    /// Predict where each sky mode of an `infer` result will be, for scheduling the search.
+    Predict(PredictArgs),
+}
+
+#[derive(Debug, clap::Args)]
+pub struct PredictArgs {
+    /// Output directory of `latens infer` (reads summary.json and posterior.csv).
+    #[arg(long, value_name = "DIR")]
+    pub from: PathBuf,
+    /// First date (ISO UTC or `JD <days> TDB`); default: the search epoch.
+    #[arg(long, value_name = "DATE")]
+    pub start: Option<String>,
+    /// Last date; default: a year after the start.
+    #[arg(long, value_name = "DATE")]
+    pub end: Option<String>,
+    /// Days between predictions.
+    #[arg(long, value_name = "N", default_value_t = 7.0)]
+    pub step_days: f64,
+    /// Where to write predict.csv; default: the --from directory.
+    #[arg(long, value_name = "DIR")]
+    pub out: Option<PathBuf>,
 }
 
 #[derive(Debug, clap::Args)]

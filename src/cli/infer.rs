@@ -221,6 +221,21 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
         },
     )?;
     warnings.extend(stage.warnings.iter().cloned());
+    let search_products = if stage.samples.is_empty() {
+        None
+    } else {
+        let geometry_now = super::posterior::SearchGeometry::new(wide.as_ref(), search_epoch)?;
+        let s = super::search::run(
+            out,
+            &stage.samples,
+            &geometry_now,
+            wide.as_ref(),
+            kernel.epoch_tdb_days,
+            kernel.central_gm(),
+        )?;
+        warnings.extend(s.warnings.iter().cloned());
+        Some(s)
+    };
     let mut verdict = verdict;
     if let Some(ex) = &stage.explanation
         && detected
@@ -268,6 +283,7 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
         impostors: stage.impostors,
         explanation: stage.explanation,
         diagnostics: stage.diagnostics,
+        sky: search_products.as_ref().map(|s| s.sky.clone()),
         warnings: warnings.clone(),
     };
     let json = serde_json::to_string_pretty(&summary).map_err(|e| CliError::failed(anyhow::anyhow!(e)))? + "\n";
@@ -309,6 +325,9 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
         );
     }
     text.push_str(&stage.text);
+    if let Some(s) = &search_products {
+        text.push_str(&s.text);
+    }
     for w in &warnings {
         let _ = writeln!(text, "warning: {w}");
     }
@@ -318,7 +337,7 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
     println!(
         "  residuals_null_vs_best.png (.svg)  O-C of the null model and of the best perturber solution, side by side"
     );
-    for (name, what) in &stage.files {
+    for (name, what) in stage.files.iter().chain(search_products.iter().flat_map(|s| s.files.iter())) {
         println!("  {name:<20} {what}");
     }
     Ok(summary)

@@ -7,7 +7,9 @@ mod args;
 mod demo;
 mod infer;
 mod posterior;
+mod predict;
 mod residuals;
+mod search;
 mod sensitivity;
 
 use std::ffi::OsString;
@@ -70,6 +72,7 @@ fn run(args: Args) -> Result<(), CliError> {
         Command::Residuals(r) => residuals::run(&r),
         Command::Infer(i) => infer::run(&i).map(|_| ()),
         Command::Sensitivity(s) => sensitivity::run(&s),
+        Command::Predict(p) => predict::run(&p),
     }
 }
 

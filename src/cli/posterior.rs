@@ -69,6 +69,8 @@ pub(super) struct Outcome {
     pub warnings: Vec<String>,
     pub text: String,
     pub files: Vec<(&'static str, &'static str)>,
+    /// Equally weighted samples with their derived quantities (empty without a posterior).
+    pub samples: Vec<DerivedSample>,
 }
 
 /// One posterior sample with everything posterior.csv says about it.
@@ -228,6 +230,7 @@ pub(super) fn run(args: &InferArgs, out: &Path, input: &Inputs) -> Result<Outcom
             warnings,
             text,
             files,
+            samples: Vec::new(),
         });
     }
     let burn_in = args.posterior_steps * 2 / 5;
@@ -440,14 +443,6 @@ pub(super) fn run(args: &InferArgs, out: &Path, input: &Inputs) -> Result<Outcom
             description: "mass log-uniform; position isotropic with log-uniform heliocentric distance; velocity uniform over bound orbits with e <= max_eccentricity; orbits passing within min_separation_au of the tracked body excluded".into(),
         },
     };
-    let near_sun = derived.iter().filter(|d| d.elongation_deg < super::infer::SUN_WARNING_DEG).count();
-    if near_sun > 0 {
-        warnings.push(format!(
-            "{:.0}% of the posterior lies within {:.0} deg of the Sun at the search epoch: pointing a telescope or any optics near the Sun can blind and destroy instruments; such fields are observable only in twilight, if at all",
-            100.0 * near_sun as f64 / derived.len() as f64,
-            super::infer::SUN_WARNING_DEG
-        ));
-    }
     let diagnostics = DiagnosticsFile {
         runs: args.runs,
         walkers: settings.n_walkers,
@@ -522,6 +517,7 @@ pub(super) fn run(args: &InferArgs, out: &Path, input: &Inputs) -> Result<Outcom
         warnings,
         text,
         files,
+        samples: derived,
     })
 }
 

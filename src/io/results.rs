@@ -90,7 +90,51 @@ pub struct InferSummary {
     /// Which explanation the data support best, and how strongly.
     pub explanation: Option<ExplanationFile>,
     pub diagnostics: Option<DiagnosticsFile>,
+    /// The search products: credible areas and modes (absent without a posterior).
+    pub sky: Option<SkyFile>,
     pub warnings: Vec<String>,
+}
+
+#[derive(Debug, Serialize, Clone)]
+pub struct SkyFile {
+    pub search_epoch_utc: String,
+    pub area50_deg2: f64,
+    pub area90_deg2: f64,
+    /// Connected sky regions of the 90% region, most probable first.
+    pub modes: Vec<ModeFile>,
+    /// How sizes and brightness were estimated.
+    pub brightness_assumptions: String,
+    /// The Sun's geocentric direction at the search epoch.
+    pub sun_ra_deg: f64,
+    pub sun_dec_deg: f64,
+    pub safety_warning: Option<String>,
+}
+
+#[derive(Debug, Serialize, Clone)]
+pub struct ModeFile {
+    pub mode: usize,
+    /// Posterior probability inside this mode's part of the 90% region.
+    pub probability: f64,
+    pub ra_deg: f64,
+    pub dec_deg: f64,
+    pub area50_deg2: f64,
+    pub area90_deg2: f64,
+    /// Median and 5%-95% range.
+    pub heliocentric_distance_au: [f64; 3],
+    pub geocentric_distance_au: [f64; 3],
+    pub mass_earth: [f64; 3],
+    /// Brightest and faintest expected V (5% and 95% over the mode's samples
+    /// and the density and albedo ranges).
+    pub v_mag_range: [f64; 2],
+    pub motion_arcsec_per_hour: f64,
+    pub motion_position_angle_deg: f64,
+    pub solar_elongation_deg: f64,
+    /// Months (YYYY-MM) of the twelve after the search epoch when the mode's
+    /// median solar elongation exceeds 90 deg.
+    pub months_elongation_over_90: Vec<String>,
+    pub galactic_latitude_deg: f64,
+    pub crowded_field: bool,
+    pub near_sun: bool,
 }
 
 /// Median and central 68% and 95% intervals of one quantity.

@@ -196,6 +196,32 @@ impl SkyMap {
             .collect()
     }
 
+    /// The modes of the credible region at `level`: its connected parts,
+    /// numbered by decreasing probability.
+    pub fn modes(&self, level: f64) -> Modes {
+        let region = self.credible_leaves(level);
+        let comp = self.components(&region);
+        let n = comp.iter().copied().max().map_or(0, |m| m + 1);
+        let mut probability = vec![0.0; n];
+        for (k, &i) in region.iter().enumerate() {
+            probability[comp[k]] += self.leaves[i].probability;
+        }
+        let mut rank: Vec<usize> = (0..n).collect();
+        rank.sort_by(|&a, &b| probability[b].total_cmp(&probability[a]).then(a.cmp(&b)));
+        let mut renumber = vec![0; n];
+        for (new, &old) in rank.iter().enumerate() {
+            renumber[old] = new;
+        }
+        let mode_of_leaf: Vec<usize> = comp.iter().map(|&c| renumber[c]).collect();
+        let mut leaf_mode = vec![usize::MAX; self.leaves.len()];
+        for (k, &i) in region.iter().enumerate() {
+            leaf_mode[i] = mode_of_leaf[k];
+        }
+        let sample_mode =
+            self.sample_leaves().iter().map(|&i| leaf_mode.get(i).copied().filter(|&m| m != usize::MAX)).collect();
+        Modes { probability: rank.iter().map(|&old| probability[old]).collect(), region, mode_of_leaf, sample_mode }
+    }
+
     /// A set of leaves as a MOC (depth: the finest leaf's order).
     pub fn moc(&self, leaves: &[usize]) -> RangeMOC<u64, Hpx<u64>> {
         let depth = leaves.iter().map(|&i| self.leaves[i].order).max().unwrap_or(MIN_ORDER);
@@ -203,6 +229,18 @@ impl SkyMap {
         cells.sort_by_key(|&(o, p)| p << (2 * (depth - o)));
         RangeMOC::from_cells(depth, cells.into_iter(), None)
     }
+}
+
+/// The connected parts of a credible region.
+#[derive(Clone, Debug)]
+pub struct Modes {
+    /// Probability of each mode, decreasing.
+    pub probability: Vec<f64>,
+    /// The region's leaves, and each one's mode.
+    pub region: Vec<usize>,
+    pub mode_of_leaf: Vec<usize>,
+    /// Each sample's mode (None outside the region).
+    pub sample_mode: Vec<Option<usize>>,
 }
 
 fn split(order: u8, ipix: u64, sorted: &[u64], n: f64, out: &mut Vec<Leaf>) {

@@ -1,0 +1,442 @@
+//! The search products of `latens infer`: the sky map, the credible regions
+//! as MOCs, the modes with their brightness, motion and observability
+//! (modes.csv), and the search chart.
+
+use std::fmt::Write as _;
+use std::path::Path;
+
+use super::CliError;
+use super::posterior::{DerivedSample, SearchGeometry, save_chart};
+use crate::astrometry::{ObservingGeometry, sun_barycentric_velocity};
+use crate::ephemeris::{Body, Ephemeris};
+use crate::frames::{angular_separation, icrf_from_ecliptic};
+use crate::io::results::{ModeFile, SkyFile};
+use crate::io::write_atomically;
+use crate::perturber::KeplerOrbit;
+use crate::posterior::quantiles;
+use crate::report::search_chart::{SearchChart, SkyCell, ZoomPanel, from_tangent, tangent};
+use crate::skymap::observe::{
+    ALBEDO_RANGE, CROWDED_LATITUDE_DEG, DENSITY_RANGE_G_CM3, galactic_lon_lat_deg, icrs_from_galactic_deg,
+    magnitude_range, motion,
+};
+use crate::skymap::{self, DEG2_PER_SR, SkyMap};
+use crate::time::{epoch_from_tdb_days, parse_epoch, tdb_days_from_j2000, utc_iso_from_epoch};
+use crate::vec3::Vec3;
+
+/// Solar elongation below which a field gets the safety warning, degrees.
+const SUN_DEG: f64 = 45.0;
+
+pub(super) struct Outcome {
+    pub sky: SkyFile,
+    pub text: String,
+    pub warnings: Vec<String>,
+    pub files: Vec<(&'static str, &'static str)>,
+}
+
+/// Geometry of the Earth at `t` (TDB days).
+pub(crate) fn geometry_at(wide: &dyn Ephemeris, t: f64) -> Result<ObservingGeometry, CliError> {
+    let earth = wide.heliocentric_position_au(Body::Earth, t).map_err(CliError::failed)?;
+    let vsun = sun_barycentric_velocity(wide, t).unwrap_or(Vec3::ZERO);
+    Ok(ObservingGeometry { t_tdb_days: t, observer_au: earth, sun_barycentric_velocity_au_per_day: vsun })
+}
+
+/// The mid-month epochs (TDB days) and labels of the twelve months after
+/// the one holding `t`.
+pub(crate) fn next_months(t: f64) -> Vec<(f64, String)> {
+    let iso = utc_iso_from_epoch(epoch_from_tdb_days(t));
+    let (mut year, mut month): (i32, u32) = (iso[0..4].parse().unwrap_or(2000), iso[5..7].parse().unwrap_or(1));
+    let mut out = Vec::new();
+    for _ in 0..12 {
+        month += 1;
+        if month > 12 {
+            month = 1;
+            year += 1;
+        }
+        if let Ok(e) = parse_epoch(&format!("{year:04}-{month:02}-15T00:00:00Z")) {
+            out.push((tdb_days_from_j2000(e), format!("{year:04}-{month:02}")));
+        }
+    }
+    out
+}
+
+pub(super) fn run(
+    out: &Path,
+    samples: &[DerivedSample],
+    search: &SearchGeometry,
+    wide: &dyn Ephemeris,
+    t0: f64,
+    gm_sun: f64,
+) -> Result<Outcome, CliError> {
+    let mut warnings = Vec::new();
+    let mut text = String::new();
+    let fail = |e: String| CliError::failed(anyhow::anyhow!(e));
+    let directions: Vec<Vec3> = samples.iter().map(|s| s.direction).collect();
+    let map = SkyMap::from_directions(&directions);
+    let r50 = map.credible_leaves(0.5);
+    let r90 = map.credible_leaves(0.9);
+    debug_assert_eq!(r90, map.modes(0.9).region);
+    let (area50, area90) = (map.area_deg2(&r50), map.area_deg2(&r90));
+    let found = map.modes(0.9);
+    let comp = found.mode_of_leaf.clone();
+    let n_modes = found.probability.len();
+    let in50: std::collections::HashSet<usize> = r50.iter().copied().collect();
+    let sample_mode: Vec<usize> = found.sample_mode.iter().map(|m| m.unwrap_or(usize::MAX)).collect();
+    let sun = -search.geometry.observer_au.unit();
+    let months = next_months(search.epoch);
+    let month_geometry: Vec<(ObservingGeometry, String)> =
+        months.iter().filter_map(|(t, label)| geometry_at(wide, *t).ok().map(|g| (g, label.clone()))).collect();
+    let (g_before, g_after) = (geometry_at(wide, search.epoch - 0.5)?, geometry_at(wide, search.epoch + 0.5)?);
+
+    let mut modes: Vec<ModeFile> = Vec::new();
+    for m in 0..n_modes {
+        let members: Vec<&DerivedSample> =
+            samples.iter().zip(&sample_mode).filter(|(_, k)| **k == m).map(|(s, _)| s).collect();
+        let leaves: Vec<usize> = r90.iter().zip(&comp).filter(|(_, c)| **c == m).map(|(&i, _)| i).collect();
+        let probability: f64 = leaves.iter().map(|&i| map.leaves[i].probability).sum();
+        if members.is_empty() {
+            continue;
+        }
+        let centre = members.iter().fold(Vec3::ZERO, |a, s| a + s.direction).unit();
+        let (ra, dec) = skymap::lon_lat(centre);
+        let q = |f: &dyn Fn(&DerivedSample) -> f64| -> [f64; 3] {
+            let v: Vec<f64> = members.iter().map(|s| f(s)).collect();
+            let q = quantiles(&v, &[0.5, 0.05, 0.95]);
+            [q[0], q[1], q[2]]
+        };
+        let (bright, faint): (Vec<f64>, Vec<f64>) = members
+            .iter()
+            .map(|s| magnitude_range(s.sample.mass_earth(), s.heliocentric_distance_au, s.distance_au))
+            .unzip();
+        // Motion and elongation over the year, on up to 64 of the mode's samples.
+        let stride = (members.len() / 64).max(1);
+        let mut rates = Vec::new();
+        let (mut pa_sin, mut pa_cos) = (0.0, 0.0);
+        let mut elong_by_month = vec![Vec::new(); month_geometry.len()];
+        for s in members.iter().step_by(stride) {
+            let Some(orbit) = KeplerOrbit::from_state(gm_sun, s.sample.position_au, s.sample.velocity_au_per_day, t0)
+            else {
+                continue;
+            };
+            let (a, _, _, _) = search.place_at(&orbit, search.epoch - 0.5, &g_before);
+            let (b, _, _, _) = search.place_at(&orbit, search.epoch + 0.5, &g_after);
+            let (rate, pa) = motion(a, b, 24.0);
+            rates.push(rate);
+            pa_sin += pa.to_radians().sin();
+            pa_cos += pa.to_radians().cos();
+            for (k, (g, _)) in month_geometry.iter().enumerate() {
+                let (_, _, _, elong) = search.place_at(&orbit, g.t_tdb_days, g);
+                elong_by_month[k].push(elong);
+            }
+        }
+        let observable: Vec<String> = month_geometry
+            .iter()
+            .zip(&elong_by_month)
+            .filter(|(_, e)| quantiles(e, &[0.5])[0] > 90.0)
+            .map(|((_, label), _)| label.clone())
+            .collect();
+        let elongation = angular_separation(centre, sun).to_degrees();
+        let (_, b) = galactic_lon_lat_deg(centre);
+        modes.push(ModeFile {
+            mode: 0,
+            probability,
+            ra_deg: ra.to_degrees(),
+            dec_deg: dec.to_degrees(),
+            area50_deg2: leaves.iter().filter(|i| in50.contains(i)).map(|&i| map.leaves[i].area_sr()).sum::<f64>()
+                * DEG2_PER_SR,
+            area90_deg2: map.area_deg2(&leaves),
+            heliocentric_distance_au: q(&|s| s.heliocentric_distance_au),
+            geocentric_distance_au: q(&|s| s.distance_au),
+            mass_earth: q(&|s| s.sample.mass_earth()),
+            v_mag_range: [quantiles(&bright, &[0.05])[0], quantiles(&faint, &[0.95])[0]],
+            motion_arcsec_per_hour: quantiles(&rates, &[0.5])[0],
+            motion_position_angle_deg: pa_sin.atan2(pa_cos).to_degrees().rem_euclid(360.0),
+            solar_elongation_deg: elongation,
+            months_elongation_over_90: observable,
+            galactic_latitude_deg: b,
+            crowded_field: b.abs() < CROWDED_LATITUDE_DEG,
+            near_sun: elongation < SUN_DEG || members.iter().any(|s| s.elongation_deg < SUN_DEG),
+        });
+    }
+    for (k, m) in modes.iter_mut().enumerate() {
+        m.mode = k + 1;
+    }
+    let near: Vec<&ModeFile> = modes.iter().filter(|m| m.near_sun).collect();
+    let safety = (!near.is_empty()).then(|| {
+        let names: Vec<String> = near.iter().map(|m| m.mode.to_string()).collect();
+        format!(
+            "part of the search region (mode {}) lies within {SUN_DEG:.0} deg of the Sun at the search epoch: pointing a telescope or any optics near the Sun can blind and destroy eyes and instruments; such fields are observable only in twilight, if at all",
+            names.join(", ")
+        )
+    });
+    if let Some(w) = &safety {
+        warnings.push(w.clone());
+    }
+    for m in &modes {
+        if m.crowded_field && m.probability >= 0.05 {
+            warnings.push(format!(
+                "mode {} lies at galactic latitude {:+.0} deg: a crowded star field, where a faint moving target is hard to pick out",
+                m.mode, m.galactic_latitude_deg
+            ));
+        }
+    }
+
+    // Files: the map, the regions, the modes, the chart.
+    let epoch_text = utc_iso_from_epoch(epoch_from_tdb_days(search.epoch));
+    let map_fits = skymap::fits::multi_order_map(
+        &map.leaves,
+        &[("DATE-OBS", skymap::fits::fits_string(&epoch_text[..19.min(epoch_text.len())]), "search epoch (UTC)")],
+    );
+    write_atomically(&out.join("skymap.fits"), &map_fits).map_err(CliError::failed)?;
+    for (name, region) in [("region50", &r50), ("region90", &r90)] {
+        let moc = map.moc(region);
+        write_atomically(&out.join(format!("{name}.fits")), &skymap::moc_fits(&moc).map_err(fail)?)
+            .map_err(CliError::failed)?;
+        write_atomically(&out.join(format!("{name}.json")), &skymap::moc_json(&moc).map_err(fail)?)
+            .map_err(CliError::failed)?;
+    }
+    write_modes_csv(out, &modes)?;
+    let chart = build_chart(&map, &r50, &r90, &comp, &modes, sun, &epoch_text, area50, area90, safety.clone());
+    save_chart(out, "search_chart", SearchChart::SIZE, |a| chart.draw(a), |a| chart.draw(a))?;
+
+    let _ = writeln!(
+        text,
+        "Search region at {}: 50% within {area50:.0} sq deg, 90% within {area90:.0} sq deg, in {} mode(s)",
+        &epoch_text[..10.min(epoch_text.len())],
+        modes.len()
+    );
+    let listed: Vec<&ModeFile> = modes.iter().filter(|m| m.probability >= 0.01).take(5).collect();
+    for m in &listed {
+        let _ = writeln!(
+            text,
+            "  mode {}: {:.0}% at RA {:.2} deg, Dec {:+.2} deg ({:.0} sq deg at 90%), {:.0}-{:.0} au away, V {:.1} to {:.1}, moving {:.2}\"/h toward PA {:.0} deg, {:.0} deg from the Sun{}",
+            m.mode,
+            100.0 * m.probability,
+            m.ra_deg,
+            m.dec_deg,
+            m.area90_deg2,
+            m.geocentric_distance_au[1],
+            m.geocentric_distance_au[2],
+            m.v_mag_range[0],
+            m.v_mag_range[1],
+            m.motion_arcsec_per_hour,
+            m.motion_position_angle_deg,
+            m.solar_elongation_deg,
+            if m.months_elongation_over_90.is_empty() {
+                String::from("; never beyond 90 deg from the Sun in the next year")
+            } else {
+                format!("; beyond 90 deg from the Sun in {}", m.months_elongation_over_90.join(" "))
+            }
+        );
+    }
+    if modes.len() > listed.len() {
+        let rest: f64 = modes.iter().skip(listed.len()).map(|m| m.probability).sum();
+        let _ = writeln!(
+            text,
+            "  ... and {} smaller modes holding {:.1}% together (modes.csv)",
+            modes.len() - listed.len(),
+            100.0 * rest
+        );
+    }
+    let (sra, sdec) = skymap::lon_lat(sun);
+    Ok(Outcome {
+        sky: SkyFile {
+            search_epoch_utc: epoch_text,
+            area50_deg2: area50,
+            area90_deg2: area90,
+            modes,
+            brightness_assumptions: format!(
+                "diameter from the mass at bulk density {}-{} g/cm^3; geometric albedo {}-{}; H from D = 1329 km / sqrt(p) 10^(-H/5) (Pravec & Harris 2007); V = H + 5 log10(r delta), phase term left out",
+                DENSITY_RANGE_G_CM3.0, DENSITY_RANGE_G_CM3.1, ALBEDO_RANGE.0, ALBEDO_RANGE.1
+            ),
+            sun_ra_deg: sra.to_degrees(),
+            sun_dec_deg: sdec.to_degrees(),
+            safety_warning: safety,
+        },
+        text,
+        warnings,
+        files: vec![
+            ("skymap.fits", "the posterior's multi-order HEALPix map (UNIQ, PROBDENSITY per sr)"),
+            ("region50/90.fits (.json)", "the 50% and 90% credible regions as IVOA MOCs"),
+            ("modes.csv", "each sky mode: centre, areas, distances, brightness, motion, when observable"),
+            ("search_chart.png (.svg)", "where to point: the whole sky and a zoom on each major mode"),
+        ],
+    })
+}
+
+fn write_modes_csv(out: &Path, modes: &[ModeFile]) -> Result<(), CliError> {
+    let fail = |e: String| CliError::failed(anyhow::anyhow!(e));
+    let mut w = csv::Writer::from_writer(Vec::new());
+    w.write_record([
+        "mode",
+        "probability",
+        "ra_deg",
+        "dec_deg",
+        "area50_deg2",
+        "area90_deg2",
+        "helio_au_median",
+        "helio_au_p05",
+        "helio_au_p95",
+        "geo_au_median",
+        "geo_au_p05",
+        "geo_au_p95",
+        "mass_earth_median",
+        "mass_earth_p05",
+        "mass_earth_p95",
+        "v_mag_bright",
+        "v_mag_faint",
+        "motion_arcsec_per_hour",
+        "motion_pa_deg",
+        "solar_elongation_deg",
+        "months_elongation_over_90",
+        "galactic_lat_deg",
+        "crowded_field",
+        "near_sun",
+    ])
+    .map_err(|e| fail(e.to_string()))?;
+    for m in modes {
+        let mut row: Vec<String> = vec![m.mode.to_string()];
+        row.extend(
+            [m.probability, m.ra_deg, m.dec_deg, m.area50_deg2, m.area90_deg2]
+                .iter()
+                .chain(&m.heliocentric_distance_au)
+                .chain(&m.geocentric_distance_au)
+                .chain(&m.mass_earth)
+                .chain(&m.v_mag_range)
+                .chain(&[m.motion_arcsec_per_hour, m.motion_position_angle_deg, m.solar_elongation_deg])
+                .map(|v| format!("{v:.6}")),
+        );
+        row.push(m.months_elongation_over_90.join(" "));
+        row.push(format!("{:.3}", m.galactic_latitude_deg));
+        row.push(m.crowded_field.to_string());
+        row.push(m.near_sun.to_string());
+        w.write_record(&row).map_err(|e| fail(e.to_string()))?;
+    }
+    let bytes = w.into_inner().map_err(|e| fail(e.to_string()))?;
+    write_atomically(&out.join("modes.csv"), &bytes).map_err(CliError::failed)
+}
+
+#[allow(clippy::too_many_arguments)]
+fn build_chart(
+    map: &SkyMap,
+    r50: &[usize],
+    r90: &[usize],
+    comp: &[usize],
+    modes: &[ModeFile],
+    sun: Vec3,
+    epoch: &str,
+    area50: f64,
+    area90: f64,
+    warning: Option<String>,
+) -> SearchChart {
+    let cell = |i: usize, layer: u8| {
+        let l = &map.leaves[i];
+        let v = cdshealpix::nested::vertices(l.order, l.ipix);
+        let (clon, clat) = cdshealpix::nested::center(l.order, l.ipix);
+        let u = |(lon, lat): (f64, f64)| Vec3::new(lat.cos() * lon.cos(), lat.cos() * lon.sin(), lat.sin());
+        SkyCell { corners: v.iter().map(|&p| u(p)).collect(), centre: u((clon, clat)), layer }
+    };
+    let mut cells: Vec<SkyCell> = Vec::new();
+    // The zone within 45 deg of the Sun, at order 5.
+    let order = 5u8;
+    for ipix in 0..cdshealpix::nested::n_hash(order) {
+        let (lon, lat) = cdshealpix::nested::center(order, ipix);
+        let c = Vec3::new(lat.cos() * lon.cos(), lat.cos() * lon.sin(), lat.sin());
+        if angular_separation(c, sun).to_degrees() < SUN_DEG {
+            let v = cdshealpix::nested::vertices(order, ipix);
+            let corners =
+                v.iter().map(|&(lo, la)| Vec3::new(la.cos() * lo.cos(), la.cos() * lo.sin(), la.sin())).collect();
+            cells.push(SkyCell { corners, centre: c, layer: 2 });
+        }
+    }
+    cells.extend(r90.iter().map(|&i| cell(i, 0)));
+    cells.extend(r50.iter().map(|&i| cell(i, 1)));
+    let ecliptic: Vec<Vec3> = (0..=720)
+        .map(|k| {
+            let l = (k as f64 * 0.5).to_radians();
+            icrf_from_ecliptic(Vec3::new(l.cos(), l.sin(), 0.0))
+        })
+        .collect();
+    let galactic_plane: Vec<Vec3> = (0..=720).map(|k| icrs_from_galactic_deg(k as f64 * 0.5, 0.0)).collect();
+    let unit = |ra: f64, dec: f64| {
+        let (a, d) = (ra.to_radians(), dec.to_radians());
+        Vec3::new(d.cos() * a.cos(), d.cos() * a.sin(), d.sin())
+    };
+    let marks = modes
+        .iter()
+        .filter(|m| m.probability >= 0.01)
+        .take(6)
+        .map(|m| (unit(m.ra_deg, m.dec_deg), format!("mode {}", m.mode)))
+        .collect();
+    // Zoom panels: up to three modes with at least 5% probability.
+    let mut zooms = Vec::new();
+    let level = |region: &[usize]| region.iter().map(|&i| map.leaves[i].density()).fold(f64::INFINITY, f64::min);
+    let (level50, level90) = (level(r50) / DEG2_PER_SR, level(r90) / DEG2_PER_SR);
+    for m in modes.iter().filter(|m| m.probability >= 0.05).take(3) {
+        let centre = unit(m.ra_deg, m.dec_deg);
+        // The panel spans the mode's 90% leaves.
+        let comp_id = r90
+            .iter()
+            .zip(comp)
+            .find(|(i, _)| {
+                let (lon, lat) = cdshealpix::nested::center(map.leaves[**i].order, map.leaves[**i].ipix);
+                let c = Vec3::new(lat.cos() * lon.cos(), lat.cos() * lon.sin(), lat.sin());
+                angular_separation(c, centre).to_degrees() < 1e-9 + (m.area90_deg2.sqrt())
+            })
+            .map(|(_, &c)| c);
+        let mut reach: f64 = 0.5;
+        for (k, &i) in r90.iter().enumerate() {
+            if Some(comp[k]) != comp_id {
+                continue;
+            }
+            let l = &map.leaves[i];
+            for (lon, lat) in cdshealpix::nested::vertices(l.order, l.ipix) {
+                let v = Vec3::new(lat.cos() * lon.cos(), lat.cos() * lon.sin(), lat.sin());
+                if let Some((x, y)) = tangent(centre, v) {
+                    reach = reach.max(x.abs()).max(y.abs());
+                }
+            }
+        }
+        let half = (reach * 1.15).min(40.0);
+        let n = 120;
+        let raster: Vec<Vec<f64>> = (0..n)
+            .map(|j| {
+                (0..n)
+                    .map(|i| {
+                        let x = -half + (i as f64 + 0.5) * 2.0 * half / n as f64;
+                        let y = -half + (j as f64 + 0.5) * 2.0 * half / n as f64;
+                        map.leaf_of(from_tangent(centre, x, y)).map_or(0.0, |k| map.leaves[k].density() / DEG2_PER_SR)
+                    })
+                    .collect()
+            })
+            .collect();
+        zooms.push(ZoomPanel {
+            title: format!(
+                "mode {}: {:.0}%, centre RA {:.2}°, Dec {:+.2}°; {:.0} sq deg at 90%",
+                m.mode,
+                100.0 * m.probability,
+                m.ra_deg,
+                m.dec_deg,
+                m.area90_deg2
+            ),
+            centre,
+            half_width_deg: half,
+            raster,
+            level50,
+            level90,
+        });
+    }
+    SearchChart {
+        title: format!("Where to look for the perturber on {}", &epoch[..10.min(epoch.len())]),
+        subtitle: format!(
+            "Geocentric astrometric RA/Dec (ICRF). Credible regions: 50% in {area50:.0} sq deg, 90% in {area90:.0} sq deg; {} mode(s).",
+            modes.len()
+        ),
+        cells,
+        sun,
+        ecliptic,
+        galactic_plane,
+        marks,
+        zooms,
+        warning: warning.map(|w| format!("WARNING: {w}")).unwrap_or_default(),
+    }
+}

@@ -1,0 +1,477 @@
+//! The search chart: where to point. Top: the whole sky in an equal-area
+//! Hammer-Aitoff projection, equatorial coordinates centred on RA 12 h with
+//! RA increasing to the left (as the sky is seen), the 90% and 50% credible
+//! regions, the ecliptic, the galactic plane, the Sun and the zone too close
+//! to it to observe. Bottom: one zoomed panel per major mode with the
+//! posterior density, its 50% and 90% contours and an RA/Dec grid.
+//!
+//! Colours: regions in two strengths of one warm hue (light: 90%, dark:
+//! 50%), so they stay distinct in greyscale; lines are told apart by dash
+//! pattern, not only colour.
+
+use plotters::coord::Shift;
+use plotters::prelude::*;
+
+use crate::vec3::Vec3;
+
+const INK: RGBColor = RGBColor(30, 30, 30);
+const REGION90: RGBColor = RGBColor(250, 196, 120);
+const REGION50: RGBColor = RGBColor(176, 72, 16);
+const SUN_ZONE: RGBColor = RGBColor(215, 215, 215);
+const ECLIPTIC: RGBColor = RGBColor(30, 90, 170);
+const GALACTIC: RGBColor = RGBColor(90, 140, 60);
+
+/// A filled sky polygon (unit vectors around it) and which layer it is.
+#[derive(Clone, Debug)]
+pub struct SkyCell {
+    pub corners: Vec<Vec3>,
+    pub centre: Vec3,
+    /// 0: 90% region, 1: 50% region, 2: near the Sun.
+    pub layer: u8,
+}
+
+/// One zoomed panel: a tangent-plane raster of density and the two contour
+/// levels.
+pub struct ZoomPanel {
+    pub title: String,
+    pub centre: Vec3,
+    /// Half width of the panel, degrees.
+    pub half_width_deg: f64,
+    /// density(direction) in probability per square degree.
+    pub raster: Vec<Vec<f64>>,
+    pub level50: f64,
+    pub level90: f64,
+}
+
+pub struct SearchChart {
+    pub title: String,
+    pub subtitle: String,
+    pub cells: Vec<SkyCell>,
+    pub sun: Vec3,
+    pub ecliptic: Vec<Vec3>,
+    pub galactic_plane: Vec<Vec3>,
+    /// Mode centres with their labels.
+    pub marks: Vec<(Vec3, String)>,
+    pub zooms: Vec<ZoomPanel>,
+    /// Shown in a box on the chart when not empty.
+    pub warning: String,
+}
+
+/// Hammer-Aitoff projection of a direction, RA 180 deg in the centre, RA
+/// increasing to the left: x in [-2 sqrt 2, 2 sqrt 2], y in [-sqrt 2, sqrt 2].
+pub fn hammer(d: Vec3) -> (f64, f64) {
+    let ra = d.y.atan2(d.x).rem_euclid(std::f64::consts::TAU);
+    let dec = d.z.clamp(-1.0, 1.0).asin();
+    hammer_ra_dec(ra, dec)
+}
+
+fn hammer_ra_dec(ra: f64, dec: f64) -> (f64, f64) {
+    // Longitude measured from the centre, positive to the left.
+    let l = -(ra - std::f64::consts::PI);
+    let den = (1.0 + dec.cos() * (l / 2.0).cos()).sqrt();
+    (2.0 * std::f64::consts::SQRT_2 * dec.cos() * (l / 2.0).sin() / den, std::f64::consts::SQRT_2 * dec.sin() / den)
+}
+
+fn ra_dec(d: Vec3) -> (f64, f64) {
+    (d.y.atan2(d.x).rem_euclid(std::f64::consts::TAU), d.z.clamp(-1.0, 1.0).asin())
+}
+
+/// A polygon's projected corners, unwrapped in RA around its centre (kept
+/// on the centre's side of the chart's edge).
+fn project_cell(cell: &SkyCell) -> Vec<(f64, f64)> {
+    let (rc, _) = ra_dec(cell.centre);
+    let pi = std::f64::consts::PI;
+    cell.corners
+        .iter()
+        .map(|c| {
+            let (mut r, d) = ra_dec(*c);
+            while r - rc > pi {
+                r -= 2.0 * pi;
+            }
+            while rc - r > pi {
+                r += 2.0 * pi;
+            }
+            // Stay within the chart: RA within 180 deg of the centre RA 180.
+            let r = r.clamp(1e-9, 2.0 * pi - 1e-9);
+            hammer_ra_dec(r, d)
+        })
+        .collect()
+}
+
+/// Splits a projected curve where it jumps across the chart's edge.
+fn split_curve(points: &[Vec3]) -> Vec<Vec<(f64, f64)>> {
+    let mut out: Vec<Vec<(f64, f64)>> = vec![Vec::new()];
+    let mut last: Option<(f64, f64)> = None;
+    for p in points {
+        let q = hammer(*p);
+        if let Some(l) = last
+            && (q.0 - l.0).abs() > 1.0
+        {
+            out.push(Vec::new());
+        }
+        if let Some(cur) = out.last_mut() {
+            cur.push(q);
+        }
+        last = Some(q);
+    }
+    out
+}
+
+impl SearchChart {
+    pub const SIZE: (u32, u32) = (1600, 1500);
+
+    pub fn draw<DB: DrawingBackend>(&self, root: &DrawingArea<DB, Shift>) -> Result<(), String> {
+        let e = |x: DrawingAreaErrorKind<DB::ErrorType>| x.to_string();
+        root.fill(&WHITE).map_err(e)?;
+        let (top, rest) = root.split_vertically(90);
+        top.draw(&Text::new(self.title.clone(), (30, 14), ("sans-serif", 30).into_font().color(&INK))).map_err(e)?;
+        top.draw(&Text::new(self.subtitle.clone(), (30, 54), ("sans-serif", 19).into_font().color(&INK))).map_err(e)?;
+        let (sky, bottom) = rest.split_vertically(720);
+        self.draw_sky(&sky)?;
+        let (banner, bottom) = bottom.split_vertically(76);
+        if !self.warning.is_empty() {
+            let (w, _) = banner.dim_in_pixel();
+            banner
+                .draw(&Rectangle::new([(20, 6), (w as i32 - 20, 68)], RGBColor(255, 235, 235).filled()))
+                .map_err(|x| x.to_string())?;
+            banner
+                .draw(&Rectangle::new([(20, 6), (w as i32 - 20, 68)], RGBColor(180, 0, 0).stroke_width(3)))
+                .map_err(|x| x.to_string())?;
+            let mut lines = wrap(&self.warning, 150);
+            lines.truncate(2);
+            for (k, line) in lines.iter().enumerate() {
+                banner
+                    .draw(&Text::new(
+                        line.clone(),
+                        (32, 14 + 24 * k as i32),
+                        ("sans-serif", 18).into_font().color(&RGBColor(150, 0, 0)),
+                    ))
+                    .map_err(|x| x.to_string())?;
+            }
+        }
+        if !self.zooms.is_empty() {
+            let panels = bottom.split_evenly((1, self.zooms.len()));
+            for (z, area) in self.zooms.iter().zip(&panels) {
+                draw_zoom(z, area)?;
+            }
+        }
+        Ok(())
+    }
+
+    fn draw_sky<DB: DrawingBackend>(&self, area: &DrawingArea<DB, Shift>) -> Result<(), String> {
+        let e = |x: DrawingAreaErrorKind<DB::ErrorType>| x.to_string();
+        let xr = 2.0 * std::f64::consts::SQRT_2;
+        let yr = std::f64::consts::SQRT_2;
+        let mut chart = ChartBuilder::on(area)
+            .margin(20)
+            .margin_right(260)
+            .build_cartesian_2d(-xr * 1.02..xr * 1.02, -yr * 1.04..yr * 1.04)
+            .map_err(e)?;
+        // Layers: near-Sun zone, 90%, 50%.
+        for layer in [2u8, 0, 1] {
+            let colour = match layer {
+                0 => REGION90,
+                1 => REGION50,
+                _ => SUN_ZONE,
+            };
+            chart
+                .draw_series(
+                    self.cells
+                        .iter()
+                        .filter(|c| c.layer == layer)
+                        .map(|c| Polygon::new(project_cell(c), colour.filled())),
+                )
+                .map_err(e)?;
+        }
+        // Graticule: RA every 2 h, Dec every 30 deg.
+        let grid = RGBColor(150, 150, 150);
+        for h in (0..24).step_by(2) {
+            let ra = (h as f64 * 15.0).to_radians().clamp(1e-6, std::f64::consts::TAU - 1e-6);
+            let pts: Vec<(f64, f64)> = (-90..=90).map(|d| hammer_ra_dec(ra, (d as f64).to_radians())).collect();
+            chart.draw_series(LineSeries::new(pts, grid.stroke_width(1))).map_err(e)?;
+            let (x, y) = hammer_ra_dec(ra, 0.0);
+            chart
+                .draw_series([Text::new(format!("{h}h"), (x, y), ("sans-serif", 16).into_font().color(&INK))])
+                .map_err(e)?;
+        }
+        for d in [-60, -30, 0, 30, 60] {
+            let dec = (d as f64).to_radians();
+            let pts: Vec<(f64, f64)> = (0..=360)
+                .map(|r| hammer_ra_dec((r as f64).to_radians().clamp(1e-6, std::f64::consts::TAU - 1e-6), dec))
+                .collect();
+            chart.draw_series(LineSeries::new(pts, grid.stroke_width(1))).map_err(e)?;
+            let (x, y) = hammer_ra_dec(std::f64::consts::TAU - 1e-6, dec);
+            chart
+                .draw_series([Text::new(format!("{d:+}°"), (x - 0.12, y), ("sans-serif", 16).into_font().color(&INK))])
+                .map_err(e)?;
+        }
+        // Outline.
+        let edge: Vec<(f64, f64)> = (0..=360)
+            .map(|k| {
+                let t = (k as f64).to_radians();
+                (xr * t.cos(), yr * t.sin())
+            })
+            .collect();
+        chart.draw_series(LineSeries::new(edge, INK.stroke_width(2))).map_err(e)?;
+        for part in split_curve(&self.ecliptic) {
+            chart.draw_series(DashedLineSeries::new(part, 12, 6, ECLIPTIC.stroke_width(3))).map_err(e)?;
+        }
+        for part in split_curve(&self.galactic_plane) {
+            chart.draw_series(DashedLineSeries::new(part, 3, 5, GALACTIC.stroke_width(3))).map_err(e)?;
+        }
+        let sun = hammer(self.sun);
+        chart
+            .draw_series([
+                Circle::new(sun, 11, RGBColor(255, 215, 0).filled()),
+                Circle::new(sun, 11, INK.stroke_width(2)),
+                Circle::new(sun, 2, INK.filled()),
+            ])
+            .map_err(e)?;
+        chart
+            .draw_series([Text::new("Sun", (sun.0 + 0.06, sun.1 + 0.1), ("sans-serif", 18).into_font().color(&INK))])
+            .map_err(e)?;
+        for (d, label) in &self.marks {
+            let p = hammer(*d);
+            chart.draw_series([Cross::new(p, 9, INK.stroke_width(2))]).map_err(e)?;
+            chart
+                .draw_series([Text::new(
+                    label.clone(),
+                    (p.0 + 0.05, p.1 - 0.05),
+                    ("sans-serif", 18).into_font().color(&INK),
+                )])
+                .map_err(e)?;
+        }
+        // Legend, drawn by hand to the right of the map.
+        let (w, _) = area.dim_in_pixel();
+        let x0 = w as i32 - 250;
+        let font = ("sans-serif", 17).into_font().color(&INK);
+        let rows: [(&str, ShapeStyle, bool); 6] = [
+            ("90% credible region", REGION90.filled(), true),
+            ("50% credible region", REGION50.filled(), true),
+            ("within 45° of the Sun", SUN_ZONE.filled(), true),
+            ("ecliptic (long dashes)", ECLIPTIC.stroke_width(3), false),
+            ("galactic plane (dots)", GALACTIC.stroke_width(3), false),
+            ("Sun (yellow disc)", RGBColor(255, 215, 0).filled(), true),
+        ];
+        for (k, (label, style, filled)) in rows.iter().enumerate() {
+            let y = 60 + 34 * k as i32;
+            if *filled {
+                area.draw(&Rectangle::new([(x0, y - 9), (x0 + 30, y + 9)], *style)).map_err(e)?;
+                area.draw(&Rectangle::new([(x0, y - 9), (x0 + 30, y + 9)], INK.stroke_width(1))).map_err(e)?;
+            } else {
+                area.draw(&PathElement::new(vec![(x0, y), (x0 + 30, y)], *style)).map_err(e)?;
+            }
+            area.draw(&Text::new(label.to_string(), (x0 + 40, y - 9), font.clone())).map_err(e)?;
+        }
+        area.draw(&Text::new("×  mode centre", (x0 + 4, 60 + 34 * 6 - 9), font.clone())).map_err(e)?;
+        area.draw(&Text::new("RA grows to the left", (x0, 60 + 34 * 7 - 9), font.clone())).map_err(e)?;
+        area.draw(&Text::new("equal-area (Hammer-Aitoff)", (x0, 60 + 34 * 8 - 9), font)).map_err(e)?;
+        Ok(())
+    }
+}
+
+fn wrap(text: &str, width: usize) -> Vec<String> {
+    let mut lines = vec![String::new()];
+    for word in text.split_whitespace() {
+        let cur = lines.last_mut().expect("one line");
+        if !cur.is_empty() && cur.len() + word.len() + 1 > width {
+            lines.push(word.to_string());
+        } else {
+            if !cur.is_empty() {
+                cur.push(' ');
+            }
+            cur.push_str(word);
+        }
+    }
+    lines
+}
+
+/// Tangent-plane (gnomonic) coordinates, degrees, of `d` about `c`: x
+/// towards increasing RA (east, drawn to the left), y towards north.
+pub fn tangent(c: Vec3, d: Vec3) -> Option<(f64, f64)> {
+    let cosd = c.dot(d);
+    if cosd <= 1e-6 {
+        return None;
+    }
+    let pole = Vec3::new(0.0, 0.0, 1.0);
+    let east = pole.cross(c);
+    let east = if east.norm() > 1e-12 { east.unit() } else { Vec3::new(0.0, 1.0, 0.0) };
+    let north = c.cross(east);
+    Some(((d.dot(east) / cosd).atan().to_degrees(), (d.dot(north) / cosd).atan().to_degrees()))
+}
+
+/// The direction at tangent-plane coordinates (degrees) about `c`.
+pub fn from_tangent(c: Vec3, x: f64, y: f64) -> Vec3 {
+    let pole = Vec3::new(0.0, 0.0, 1.0);
+    let east = pole.cross(c);
+    let east = if east.norm() > 1e-12 { east.unit() } else { Vec3::new(0.0, 1.0, 0.0) };
+    let north = c.cross(east);
+    (c + east * x.to_radians().tan() + north * y.to_radians().tan()).unit()
+}
+
+fn draw_zoom<DB: DrawingBackend>(z: &ZoomPanel, area: &DrawingArea<DB, Shift>) -> Result<(), String> {
+    let e = |x: DrawingAreaErrorKind<DB::ErrorType>| x.to_string();
+    let h = z.half_width_deg;
+    let mut chart = ChartBuilder::on(area)
+        .caption(z.title.clone(), ("sans-serif", 19).into_font().color(&INK))
+        .margin(14)
+        .x_label_area_size(45)
+        .y_label_area_size(60)
+        // East (increasing RA) to the left.
+        .build_cartesian_2d(h..-h, -h..h)
+        .map_err(e)?;
+    chart
+        .configure_mesh()
+        .disable_mesh()
+        .x_desc("offset east (deg), RA grows to the left")
+        .y_desc("offset north (deg)")
+        .label_style(("sans-serif", 14).into_font().color(&INK))
+        .axis_desc_style(("sans-serif", 15).into_font().color(&INK))
+        .draw()
+        .map_err(e)?;
+    let n = z.raster.len();
+    let step = 2.0 * h / n as f64;
+    let peak = z.raster.iter().flatten().copied().fold(0.0, f64::max).max(1e-300);
+    chart
+        .draw_series((0..n).flat_map(|i| (0..n).map(move |j| (i, j))).filter_map(|(i, j)| {
+            let v = z.raster[j][i];
+            if v <= 0.0 {
+                return None;
+            }
+            let shade = (245.0 * (1.0 - (v / peak).sqrt())) as u8;
+            let x = -h + i as f64 * step;
+            let y = -h + j as f64 * step;
+            Some(Rectangle::new([(x, y), (x + step, y + step)], RGBColor(shade, shade, shade).filled()))
+        }))
+        .map_err(e)?;
+    // RA/Dec grid about the centre.
+    let (rc, dc) = ra_dec(z.centre);
+    let (rc, dc) = (rc.to_degrees(), dc.to_degrees());
+    let spacing = nice_step(2.0 * h / 4.0);
+    let grid = RGBColor(120, 140, 200);
+    let ra_spacing = (spacing / dc.to_radians().cos().max(0.05)).min(90.0);
+    let ra_spacing = nice_step(ra_spacing);
+    let reach = 3.0 * h / dc.to_radians().cos().max(0.05);
+    let mut ra = ((rc - reach) / ra_spacing).floor() * ra_spacing;
+    while ra <= rc + reach {
+        let pts: Vec<(f64, f64)> = (0..=60)
+            .filter_map(|k| {
+                let dec = dc - 2.0 * h + 4.0 * h * k as f64 / 60.0;
+                let d = unit(ra, dec.clamp(-89.999, 89.999));
+                tangent(z.centre, d)
+            })
+            .filter(|p| p.0.abs() <= h && p.1.abs() <= h)
+            .collect();
+        if pts.len() > 1 {
+            let label_at = pts[0];
+            chart.draw_series(LineSeries::new(pts, grid.stroke_width(1))).map_err(e)?;
+            chart
+                .draw_series([Text::new(
+                    format!("{:.1}h", ra.rem_euclid(360.0) / 15.0),
+                    label_at,
+                    ("sans-serif", 13).into_font().color(&grid),
+                )])
+                .map_err(e)?;
+        }
+        ra += ra_spacing;
+    }
+    let mut dec = ((dc - 2.0 * h) / spacing).floor() * spacing;
+    while dec <= dc + 2.0 * h {
+        if dec.abs() < 90.0 {
+            let pts: Vec<(f64, f64)> = (0..=60)
+                .filter_map(|k| tangent(z.centre, unit(rc - reach + 2.0 * reach * k as f64 / 60.0, dec)))
+                .filter(|p| p.0.abs() <= h && p.1.abs() <= h)
+                .collect();
+            if pts.len() > 1 {
+                let label_at = *pts.last().unwrap_or(&(0.0, 0.0));
+                chart.draw_series(LineSeries::new(pts, grid.stroke_width(1))).map_err(e)?;
+                chart
+                    .draw_series([Text::new(
+                        format!("{dec:+.1}°"),
+                        label_at,
+                        ("sans-serif", 13).into_font().color(&grid),
+                    )])
+                    .map_err(e)?;
+            }
+        }
+        dec += spacing;
+    }
+    for (level, style) in [(z.level90, REGION90.stroke_width(3)), (z.level50, REGION50.stroke_width(3))] {
+        let segments = marching_squares(&z.raster, level);
+        chart
+            .draw_series(segments.iter().map(|s| {
+                PathElement::new(
+                    vec![(-h + s.0.0 * step, -h + s.0.1 * step), (-h + s.1.0 * step, -h + s.1.1 * step)],
+                    style,
+                )
+            }))
+            .map_err(e)?;
+    }
+    area.draw(&Text::new(
+        "grey: posterior density; light line: 90%, dark line: 50% contour",
+        (70, area.dim_in_pixel().1 as i32 - 18),
+        ("sans-serif", 13).into_font().color(&INK),
+    ))
+    .map_err(e)?;
+    Ok(())
+}
+
+fn unit(ra_deg: f64, dec_deg: f64) -> Vec3 {
+    let (a, d) = (ra_deg.to_radians(), dec_deg.to_radians());
+    Vec3::new(d.cos() * a.cos(), d.cos() * a.sin(), d.sin())
+}
+
+fn nice_step(x: f64) -> f64 {
+    let p = 10f64.powf(x.log10().floor());
+    let m = x / p;
+    p * if m < 1.5 {
+        1.0
+    } else if m < 3.5 {
+        2.0
+    } else if m < 7.5 {
+        5.0
+    } else {
+        10.0
+    }
+}
+
+/// Contour segments of a raster (raster[row][col], cell centres at
+/// (col + 0.5, row + 0.5)) at `level`, in cell units.
+#[allow(clippy::type_complexity)]
+pub fn marching_squares(raster: &[Vec<f64>], level: f64) -> Vec<((f64, f64), (f64, f64))> {
+    let n = raster.len();
+    let mut out = Vec::new();
+    if n < 2 {
+        return out;
+    }
+    let m = raster[0].len();
+    let at = |i: usize, j: usize| raster[j][i];
+    for j in 0..n - 1 {
+        for i in 0..m - 1 {
+            let v = [at(i, j), at(i + 1, j), at(i + 1, j + 1), at(i, j + 1)];
+            let corners = [
+                (i as f64 + 0.5, j as f64 + 0.5),
+                (i as f64 + 1.5, j as f64 + 0.5),
+                (i as f64 + 1.5, j as f64 + 1.5),
+                (i as f64 + 0.5, j as f64 + 1.5),
+            ];
+            // Crossing points on the four edges.
+            let mut pts = Vec::new();
+            for k in 0..4 {
+                let (a, b) = (v[k], v[(k + 1) % 4]);
+                if (a >= level) != (b >= level) {
+                    let t = (level - a) / (b - a);
+                    let (p, q) = (corners[k], corners[(k + 1) % 4]);
+                    pts.push((p.0 + t * (q.0 - p.0), p.1 + t * (q.1 - p.1)));
+                }
+            }
+            if pts.len() == 2 {
+                out.push((pts[0], pts[1]));
+            } else if pts.len() == 4 {
+                out.push((pts[0], pts[1]));
+                out.push((pts[2], pts[3]));
+            }
+        }
+    }
+    out
+}
