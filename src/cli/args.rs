@@ -23,8 +23,20 @@ pub enum Command {
     Infer(InferArgs),
     /// Map which perturber masses at which distances the observations could reveal.
     Sensitivity(SensitivityArgs),
+    /// Simulate a scenario's survey (observations from the full model with seeded noise, and the truth).
+    Simulate(SimulateArgs),
     /// Predict where each sky mode of an `infer` result will be, for scheduling the search.
     Predict(PredictArgs),
+}
+
+#[derive(Debug, clap::Args)]
+pub struct SimulateArgs {
+    /// The scenario file (TOML; see docs/formats.md and scenarios/).
+    #[arg(value_name = "SCENARIO.toml")]
+    pub scenario: PathBuf,
+    /// Directory to write into (created if missing).
+    #[arg(long, value_name = "DIR", default_value = "output/simulate")]
+    pub out: PathBuf,
 }
 
 #[derive(Debug, clap::Args)]

@@ -11,6 +11,7 @@ mod predict;
 mod residuals;
 mod search;
 mod sensitivity;
+mod simulate;
 
 use std::ffi::OsString;
 use std::process::ExitCode;
@@ -73,6 +74,7 @@ fn run(args: Args) -> Result<(), CliError> {
         Command::Infer(i) => infer::run(&i).map(|_| ()),
         Command::Sensitivity(s) => sensitivity::run(&s),
         Command::Predict(p) => predict::run(&p),
+        Command::Simulate(s) => simulate::run(&s),
     }
 }
 

@@ -4,6 +4,7 @@
 
 pub mod observations;
 pub mod results;
+pub mod scenario;
 
 use std::fs;
 use std::io::Write;

@@ -340,3 +340,46 @@ pub struct RefinedFile {
     pub condition_number: f64,
     pub note: String,
 }
+
+/// `truth.json` of `latens simulate`: what the simulation put in.
+#[derive(Debug, Serialize, Clone)]
+pub struct TruthFile {
+    pub scenario: String,
+    pub description: String,
+    /// Epoch of the elements and states (the tracked body's epoch).
+    pub epoch_utc: String,
+    pub epoch_tdb_jd: f64,
+    pub tracked: TruthBodyFile,
+    pub perturber: Option<TruthBodyFile>,
+    pub survey: String,
+    pub n_observations: usize,
+    pub sigma_arcsec: f64,
+    pub seed: u64,
+    pub known_bodies: String,
+}
+
+#[derive(Debug, Serialize, Clone)]
+pub struct TruthBodyFile {
+    pub name: String,
+    pub mass_earth: Option<f64>,
+    pub frame: String,
+    pub a_au: f64,
+    pub e: f64,
+    pub inc_deg: f64,
+    pub node_deg: f64,
+    pub peri_deg: f64,
+    pub mean_anomaly_deg: f64,
+    pub state_icrf: [f64; 6],
+    /// The geocentric astrometric place at the search epoch (perturber only).
+    pub at_search_epoch: Option<PlaceFile>,
+}
+
+#[derive(Debug, Serialize, Clone)]
+pub struct PlaceFile {
+    pub epoch_utc: String,
+    pub ra_deg: f64,
+    pub dec_deg: f64,
+    pub distance_au: f64,
+    pub heliocentric_distance_au: f64,
+    pub solar_elongation_deg: f64,
+}

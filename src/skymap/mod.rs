@@ -282,3 +282,22 @@ pub fn moc_contains(moc: &RangeMOC<u64, Hpx<u64>>, d: Vec3) -> bool {
     let (lon, lat) = lon_lat(d);
     moc.is_in(lon, lat)
 }
+
+/// Whether a MOC in the JSON serialisation (`{"order": [cells]}`) holds a
+/// direction.
+pub fn moc_json_contains(json: &str, d: Vec3) -> Result<bool, String> {
+    let v: serde_json::Value = serde_json::from_str(json).map_err(|e| e.to_string())?;
+    let obj = v.as_object().ok_or("a MOC in JSON is an object")?;
+    let (lon, lat) = lon_lat(d);
+    for (order, cells) in obj {
+        let o: u8 = order.parse().map_err(|_| format!("bad order `{order}`"))?;
+        if o > 29 {
+            return Err(format!("bad order `{order}`"));
+        }
+        let h = nested::hash(o, lon, lat);
+        if cells.as_array().is_some_and(|c| c.iter().any(|x| x.as_u64() == Some(h))) {
+            return Ok(true);
+        }
+    }
+    Ok(false)
+}
