@@ -36,7 +36,8 @@ fn main() {
     .expect("elements");
     let (r, v) = state_from_elements(GM_SUN_AU3_PER_DAY2, &el).expect("state");
     let (r, v) = (icrf_from_ecliptic(r), icrf_from_ecliptic(v));
-    let init = InitialState { t0_tdb_days: T0, tracked_position_au: r, tracked_velocity_au_per_day: v, perturbers: vec![] };
+    let init =
+        InitialState { t0_tdb_days: T0, tracked_position_au: r, tracked_velocity_au_per_day: v, perturbers: vec![] };
     let times = (0..30)
         .flat_map(|y| (0..10).map(move |n| T0 - 15.0 * 365.25 + 365.25 * y as f64 + 120.0 + 3.0 * n as f64))
         .collect();

@@ -66,7 +66,10 @@ fn demo_writes_its_track_and_says_what_it_did() {
     let mut names: Vec<String> =
         std::fs::read_dir(dir).unwrap().map(|e| e.unwrap().file_name().to_string_lossy().into_owned()).collect();
     names.sort();
-    assert_eq!(names, ["observations.csv", "residuals", "search", "sensitivity", "sites.csv", "track.csv"]);
+    assert_eq!(
+        names,
+        ["observations.csv", "residuals", "search", "sensitivity", "sites.csv", "track.csv", "truth.json"]
+    );
     assert!(dir.join("sensitivity/sensitivity.png").exists());
     let search: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(dir.join("search/summary.json")).unwrap()).unwrap();
@@ -205,9 +208,18 @@ fn infer_on_the_demo_survey_detects_the_hidden_planet_and_repeats_with_the_same_
     }
     assert!(summaries[0] == summaries[1], "the same seed gave different results");
 
-    // A one-year systematic in the astrometry (0.4" in Dec) is called
-    // suspicious, not a planet.
-    let text = std::fs::read_to_string(demo.join("observations.csv")).unwrap();
+    // A one-year systematic (0.4" in Dec) in the astrometry of the null
+    // scenario (no planet) is called suspicious, not a planet.
+    let null = dir.join("null");
+    let o = latens()
+        .arg("simulate")
+        .arg(concat!(env!("CARGO_MANIFEST_DIR"), "/scenarios/null.toml"))
+        .arg("--out")
+        .arg(&null)
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let text = std::fs::read_to_string(null.join("observations.csv")).unwrap();
     let mut out = String::new();
     for line in text.lines() {
         if line.starts_with('#') || line.starts_with("epoch") {
