@@ -249,7 +249,9 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
         && detected
         && ex.best != "an unseen perturber"
     {
-        verdict.push_str(&format!("; but the data favour another explanation: {} ({})", ex.best, ex.strength));
+        let lead =
+            if yearly { "; the best-supported explanation is" } else { "; but the data favour another explanation:" };
+        verdict.push_str(&format!("{lead} {} ({})", ex.best, ex.strength));
     }
 
     let summary = InferSummary {
