@@ -3,8 +3,8 @@
 use std::sync::atomic::{AtomicBool, Ordering};
 
 use latens::posterior::sampler::{
-    Checkpoint, SamplerSettings, SamplerState, Target, autocorrelation_time, combined_evidence, run, split_r_hat,
-    stepping_stone_evidence, thermodynamic_evidence,
+    Checkpoint, SamplerSettings, SamplerState, Target, autocorrelation_time, combined_evidence, rank_normalized_r_hat,
+    run, split_r_hat, stepping_stone_evidence, thermodynamic_evidence,
 };
 use rand::SeedableRng;
 use rand_distr::{Distribution, Normal, StandardNormal};
@@ -346,4 +346,12 @@ fn split_r_hat_flags_runs_that_disagree() {
     assert!((r - 1.0).abs() < 0.01, "{r}");
     let apart = vec![draw(&mut rng, 0.0), draw(&mut rng, 1.0)];
     assert!(split_r_hat(&apart) > 1.1);
+    // Runs with the same mean but different spreads: the plain split R-hat
+    // misses it, the rank-normalised one (its folded part) does not
+    // (Vehtari et al. 2021).
+    let wide: Vec<f64> = draw(&mut rng, 0.0).iter().map(|x| 3.0 * x).collect();
+    let spread = vec![draw(&mut rng, 0.0), wide];
+    assert!(split_r_hat(&spread) < 1.02, "{}", split_r_hat(&spread));
+    assert!(rank_normalized_r_hat(&spread) > 1.1, "{}", rank_normalized_r_hat(&spread));
+    assert!((rank_normalized_r_hat(&same) - 1.0).abs() < 0.01);
 }

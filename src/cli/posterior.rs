@@ -326,7 +326,7 @@ pub(super) fn run(args: &InferArgs, out: &Path, input: &Inputs) -> Result<Outcom
                     (0..n).flat_map(|k| w.iter().map(move |walker| walker[k])).collect()
                 })
                 .collect();
-            sampler::split_r_hat(&runs)
+            sampler::rank_normalized_r_hat(&runs)
         })
         .collect();
     let tau_max = tau.iter().copied().fold(0.0, f64::max);
@@ -336,13 +336,16 @@ pub(super) fn run(args: &InferArgs, out: &Path, input: &Inputs) -> Result<Outcom
     let mixed = args.runs >= 2 && r_hat_max < MAX_R_HAT;
     let converged = enough_length && mixed;
     let advice = if converged {
-        "converged: split R-hat below 1.05 and more than 50 autocorrelation times after burn-in".to_string()
+        "converged: rank-normalised split R-hat (bulk and folded) below 1.05 and more than 50 autocorrelation times after burn-in".to_string()
     } else {
         let mut a = String::from("not converged: ");
         if args.runs < 2 {
             a.push_str("one run cannot show convergence, use --runs 2 or more; ");
         } else if !mixed {
-            let _ = write!(a, "the runs disagree (split R-hat {r_hat_max:.3} > {MAX_R_HAT}); ");
+            let _ = write!(
+                a,
+                "the runs or their halves disagree (rank-normalised split R-hat {r_hat_max:.3} > {MAX_R_HAT}); "
+            );
         }
         if !enough_length {
             let _ = write!(

@@ -236,7 +236,7 @@ pub struct DiagnosticsFile {
     pub parameters: Vec<String>,
     /// Integrated autocorrelation time per parameter (steps, the largest over runs).
     pub autocorrelation_steps: Vec<f64>,
-    /// Split R-hat per parameter across the runs.
+    /// Rank-normalised split R-hat (bulk and folded, the larger) per parameter across the runs.
     pub split_r_hat: Vec<f64>,
     /// Cold-chain samples after burn-in over the largest autocorrelation time.
     pub effective_samples: f64,

@@ -601,6 +601,49 @@ fn stone(state: &SamplerState, k: usize) -> (f64, f64) {
     (m + mean.ln(), (var * tau / n).sqrt() / mean)
 }
 
+/// Rank-normalised split R-hat (Vehtari, Gelman, Simpson, Carpenter &
+/// Bürkner 2021, Bayesian Analysis 16, 667): the larger of the split R-hat
+/// of the normal scores of the pooled ranks (the bulk) and of the same for
+/// |x - median| (folded: sensitive to differences of scale and in the
+/// tails, which the plain split R-hat of means misses).
+pub fn rank_normalized_r_hat(runs: &[Vec<f64>]) -> f64 {
+    let scores = |runs: &[Vec<f64>]| -> Vec<Vec<f64>> {
+        let mut all: Vec<(f64, usize, usize)> =
+            runs.iter().enumerate().flat_map(|(r, v)| v.iter().enumerate().map(move |(i, &x)| (x, r, i))).collect();
+        all.sort_by(|a, b| a.0.total_cmp(&b.0));
+        let n = all.len() as f64;
+        let mut out: Vec<Vec<f64>> = runs.iter().map(|v| vec![0.0; v.len()]).collect();
+        for (rank, &(_, r, i)) in all.iter().enumerate() {
+            // Blom's plotting position, then the standard normal quantile.
+            out[r][i] = normal_quantile((rank as f64 + 1.0 - 0.375) / (n + 0.25));
+        }
+        out
+    };
+    let mut pooled: Vec<f64> = runs.iter().flatten().copied().collect();
+    if pooled.len() < 8 {
+        return f64::NAN;
+    }
+    pooled.sort_by(f64::total_cmp);
+    let median = pooled[pooled.len() / 2];
+    let folded: Vec<Vec<f64>> = runs.iter().map(|v| v.iter().map(|x| (x - median).abs()).collect()).collect();
+    split_r_hat(&scores(runs)).max(split_r_hat(&scores(&folded)))
+}
+
+/// The standard normal quantile, by bisection on the cumulative
+/// distribution (ample for rank normalisation).
+fn normal_quantile(p: f64) -> f64 {
+    let (mut lo, mut hi) = (-12.0, 12.0);
+    for _ in 0..80 {
+        let mid = 0.5 * (lo + hi);
+        if crate::perturber::sensitivity::normal_cdf(mid) < p {
+            lo = mid;
+        } else {
+            hi = mid;
+        }
+    }
+    0.5 * (lo + hi)
+}
+
 /// ln evidence by thermodynamic integration, ln Z = integral over beta in
 /// [0, 1] of <ln L>_beta. Between finite rungs the rule is the trapezoid in
 /// ln(beta) applied to beta <ln L>_beta (exact where <ln L> ~ -d/(2 beta),
