@@ -277,3 +277,89 @@ fn false_alarm_probabilities_are_uniform_on_linear_null_data() {
     );
     assert!(d < 0.252, "false-alarm probabilities are not uniform on nulls: KS {d}");
 }
+
+#[test]
+fn nonlinear_weights_hold_in_the_linear_regime_and_collapse_beyond_it() {
+    // Importance weights of the full model against the kernel at points
+    // around the truth: near 1 for a modest perturber (the kernel is the
+    // model to first order in its mass), collapsing for a huge one whose
+    // signal is so strong that the second-order terms are many sigma. Then
+    // MCMC steps on the full model (what `infer` runs when the weights
+    // collapse) raise the full model's likelihood of the ensemble.
+    use latens::posterior::sampler::{SamplerSettings, SamplerState, Target, run};
+    use latens::posterior::{
+        NonlinearLikelihood, NonlinearPosterior, PerturberPosterior, PerturberPrior, PerturberSample,
+        effective_sample_size, importance_log_weights,
+    };
+    use rand::SeedableRng;
+    use rand_distr::{Distribution, StandardNormal};
+    let s = scenario();
+    for (mass, a, linear) in [(20.0, 75.0, true), (3000.0, 40.0, false)] {
+        let p = perturber(mass, a, 25.0, 200.0);
+        let obs = simulate_survey(&survey(21, true), &initial(&s, vec![p]), &s.model, &s.ephemeris, &s.sites).unwrap();
+        let settings =
+            ReferenceSettings { epoch_tdb_days: Some(T0), reject_chi2: 1e12, ..ReferenceSettings::default() };
+        let fit = fit_reference_orbit(&obs, &s.sites, &s.model, &s.ephemeris, &settings, None).unwrap();
+        let geometry = observing_geometry(&obs, &s.sites, &s.ephemeris).unwrap();
+        let kernel = LinearKernel::build(&fit, &obs, geometry.clone(), &s.model, &s.ephemeris).unwrap();
+        let prior = PerturberPrior {
+            mass_earth: (0.01, 1e5),
+            distance_au: (5.0, 500.0),
+            max_eccentricity: 0.6,
+            min_separation_au: 2.0,
+        };
+        let posterior = PerturberPosterior::new(&kernel, prior);
+        let full = NonlinearLikelihood::new(&fit, &kernel, &obs, &geometry, &s.model, &s.ephemeris).unwrap();
+        let truth = PerturberSample {
+            gm_au3_per_day2: p.gm_au3_per_day2,
+            position_au: p.position_au,
+            velocity_au_per_day: p.velocity_au_per_day,
+        }
+        .to_params();
+        let mut rng = rand::rngs::StdRng::seed_from_u64(5);
+        let points: Vec<(Vec<f64>, f64)> = (0..24)
+            .map(|_| {
+                let x: Vec<f64> = truth
+                    .iter()
+                    .enumerate()
+                    .map(|(i, v)| {
+                        let z: f64 = StandardNormal.sample(&mut rng);
+                        v + z * if i == 0 { 0.01 } else { 1e-4 * v.abs().max(1e-3) }
+                    })
+                    .collect();
+                let ll = posterior.log_likelihood(&x).unwrap();
+                (x, ll)
+            })
+            .collect();
+        let w = importance_log_weights(&points, &full);
+        let share = effective_sample_size(&w) / points.len() as f64;
+        eprintln!("{mass} Earth masses at {a} au: effective share of the importance weights {share:.3}");
+        if linear {
+            assert!(share > 0.8, "{share}");
+        } else {
+            assert!(share < 0.3, "{share}");
+            let target = NonlinearPosterior { linear: &posterior, likelihood: &full };
+            let settings = SamplerSettings {
+                n_walkers: 24,
+                n_temperatures: 1,
+                n_steps: 30,
+                burn_in: 15,
+                thin: 1,
+                adapt: false,
+                seed: 3,
+                ..SamplerSettings::default()
+            };
+            let start: Vec<Vec<f64>> = points.iter().map(|(x, _)| x.clone()).collect();
+            let mean_full =
+                |xs: &[Vec<f64>]| xs.iter().map(|x| target.log_likelihood(x).unwrap()).sum::<f64>() / xs.len() as f64;
+            let before = mean_full(&start);
+            let state = SamplerState::new(&target, &settings, 0, &[start]).unwrap();
+            let done = run(&target, &settings, vec![state], None, &std::sync::atomic::AtomicBool::new(false), &|_| {})
+                .unwrap();
+            let after: Vec<Vec<f64>> = done[0].posterior_samples(25).into_iter().map(|s| s.0).collect();
+            let after = mean_full(&after);
+            eprintln!("  full-model ln L of the ensemble: {before:.1} before, {after:.1} after 30 steps");
+            assert!(after > before, "{before} -> {after}");
+        }
+    }
+}
