@@ -188,6 +188,15 @@ pub struct InferArgs {
     /// Largest perturber eccentricity the prior allows.
     #[arg(long, value_name = "E", default_value_t = 0.6)]
     pub max_eccentricity: f64,
+    /// Prior width of the known planets' GM offsets, as a multiple of their published uncertainties.
+    #[arg(long, value_name = "X", default_value_t = 1000.0)]
+    pub gm_prior_inflation: f64,
+    /// Prior width of each non-gravitational component at 1 au, au/day^2 (scaled by 1/r^2).
+    #[arg(long, value_name = "A", default_value_t = 1e-8)]
+    pub nongrav_prior: f64,
+    /// Prior width of each systematic astrometric offset, arcsec.
+    #[arg(long, value_name = "ARCSEC", default_value_t = 0.2)]
+    pub offset_prior: f64,
     /// Continue an interrupted run from DIR/checkpoint.json (DIR becomes the output directory).
     #[arg(long, value_name = "DIR")]
     pub resume: Option<PathBuf>,

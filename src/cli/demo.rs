@@ -91,6 +91,7 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
     };
     let search_dir = out.join("search");
     let s = &scenario.search;
+    let impostor_priors = crate::posterior::impostors::ImpostorPriors::default();
     let summary = super::infer::run(&InferArgs {
         input: input.clone(),
         search_epoch: s.epoch.clone(),
@@ -107,6 +108,9 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
         temperatures: 16,
         runs: 2,
         max_eccentricity: s.max_eccentricity,
+        gm_prior_inflation: impostor_priors.gm_inflation,
+        nongrav_prior: impostor_priors.nongrav_au_per_day2,
+        offset_prior: impostor_priors.offset_arcsec,
         resume: None,
     })?;
     let truth_check = truth_against_region(&sim.truth, &search_dir);
