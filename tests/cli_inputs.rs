@@ -270,3 +270,34 @@ fn ades_psv_is_read_like_the_csv() {
     let err = latens::io::observations::read_observations(&bad, &sites, 1).unwrap_err().to_string();
     assert!(err.contains("bad.psv:1") && err.contains("rmsDec"), "{err}");
 }
+
+#[test]
+fn bad_scenarios_and_bad_infer_options_name_what_is_wrong() {
+    // A scenario with a misspelt key, and one with an impossible value:
+    // exit 2, the file and the key named, nothing written.
+    let case = Case::new("scenario");
+    let good = std::fs::read_to_string(concat!(env!("CARGO_MANIFEST_DIR"), "/scenarios/demo.toml")).unwrap();
+    for (name, text, needle) in [
+        ("typo.toml", good.replace("sigma_arcsec", "sigma_arcsecs"), "sigma_arcsecs"),
+        ("ecc.toml", good.replacen("e = 0.12", "e = 1.3", 1), "tracked.e"),
+    ] {
+        let path = case.file(name, text.as_bytes());
+        let out = latens().arg("simulate").arg(&path).arg("--out").arg(case.dir.join("out")).output().unwrap();
+        let err = String::from_utf8_lossy(&out.stderr);
+        assert_eq!(out.status.code(), Some(2), "{name}: {err}");
+        assert!(err.contains(name) && err.contains(needle), "{name}: {err}");
+        assert!(case.nothing_written(), "{name}: something was written");
+    }
+    // A prior width of zero is refused before any work.
+    let obs = case.file("obs.csv", format!("{HEADER}{}\n", good_rows()).as_bytes());
+    let out = latens()
+        .args(["infer", "--obs"])
+        .arg(&obs)
+        .args(["--nongrav-prior", "0", "--out"])
+        .arg(case.dir.join("out"))
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("--nongrav-prior"));
+    assert!(case.nothing_written());
+}

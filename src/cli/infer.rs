@@ -70,6 +70,18 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
             args.nulls
         )));
     }
+    for (v, name) in [
+        (args.gm_prior_inflation, "--gm-prior-inflation"),
+        (args.nongrav_prior, "--nongrav-prior"),
+        (args.offset_prior, "--offset-prior"),
+        (args.max_eccentricity, "--max-eccentricity"),
+    ] {
+        if !(v.is_finite() && v > 0.0) || (name == "--max-eccentricity" && v >= 1.0) {
+            return Err(CliError::bad_input(anyhow::anyhow!(
+                "{name} must be positive (and below 1 for an eccentricity), got {v}"
+            )));
+        }
+    }
     let model = force_model(&known);
     let ephemeris = load_ephemeris(&args.input.ephemeris, &model, &observations)?;
     let search_epoch = match &args.search_epoch {

@@ -186,15 +186,6 @@ pub(super) fn run(args: &InferArgs, out: &Path, input: &Inputs) -> Result<Outcom
     let mut files = Vec::new();
 
     // The impostors first: they are cheap and do not need a perturber.
-    for (v, name) in [
-        (args.gm_prior_inflation, "--gm-prior-inflation"),
-        (args.nongrav_prior, "--nongrav-prior"),
-        (args.offset_prior, "--offset-prior"),
-    ] {
-        if !(v.is_finite() && v > 0.0) {
-            return Err(CliError::bad_input(anyhow::anyhow!("{name} must be positive, got {v}")));
-        }
-    }
     let priors = ImpostorPriors {
         gm_inflation: args.gm_prior_inflation,
         nongrav_au_per_day2: args.nongrav_prior,
