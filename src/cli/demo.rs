@@ -17,7 +17,6 @@ use crate::io::observations::{SiteTable, read_observations};
 use crate::io::scenario::parse;
 use crate::reference::{ReferenceSettings, fit_reference_orbit};
 use crate::time::{epoch_from_tdb_days, utc_iso_from_epoch};
-use crate::units::RAD_PER_DEG;
 use crate::vec3::Vec3;
 
 /// The demo scenario, as shipped in `scenarios/demo.toml`.
@@ -191,8 +190,7 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
 /// regions (the demo knows the truth; a user would not).
 fn truth_against_region(truth: &crate::io::results::TruthFile, search_dir: &Path) -> Option<String> {
     let place = truth.perturber.as_ref()?.at_search_epoch.as_ref()?;
-    let (a, d) = (place.ra_deg * RAD_PER_DEG, place.dec_deg * RAD_PER_DEG);
-    let dir = Vec3::new(d.cos() * a.cos(), d.cos() * a.sin(), d.sin());
+    let dir = crate::frames::vector_from_radec_deg(place.ra_deg, place.dec_deg);
     let inside = |name: &str| {
         std::fs::read_to_string(search_dir.join(name))
             .ok()

@@ -8,10 +8,10 @@ use std::time::Instant;
 
 use super::CliError;
 use super::args::InferArgs;
-use crate::astrometry::{ObservingGeometry, astrometric_direction, sun_barycentric_velocity};
+use crate::astrometry::{ObservingGeometry, astrometric_direction};
 use crate::dynamics::ForceModel;
 use crate::dynamics::kepler::elements_from_state;
-use crate::ephemeris::{Body, Ephemeris};
+use crate::ephemeris::Ephemeris;
 use crate::frames::{angular_separation, ecliptic_from_icrf};
 use crate::io::observations::Observation;
 use crate::io::results::{
@@ -101,16 +101,7 @@ pub(crate) struct SearchGeometry {
 
 impl SearchGeometry {
     pub fn new(wide: &dyn Ephemeris, epoch: f64) -> Result<Self, CliError> {
-        let earth = wide.heliocentric_position_au(Body::Earth, epoch).map_err(CliError::failed)?;
-        let vsun = sun_barycentric_velocity(wide, epoch).unwrap_or(Vec3::ZERO);
-        Ok(SearchGeometry {
-            geometry: ObservingGeometry {
-                t_tdb_days: epoch,
-                observer_au: earth,
-                sun_barycentric_velocity_au_per_day: vsun,
-            },
-            epoch,
-        })
+        Ok(SearchGeometry { geometry: super::search::geometry_at(wide, epoch)?, epoch })
     }
 
     /// Geocentric astrometric direction, distance, heliocentric distance and
@@ -133,8 +124,8 @@ impl SearchGeometry {
         )
         .ok()?;
         let (dir, dist, helio, elong) = self.place_at(&orbit, self.epoch, &self.geometry);
-        let ra = dir.y.atan2(dir.x).rem_euclid(std::f64::consts::TAU);
-        let dec = dir.z.clamp(-1.0, 1.0).asin();
+        let place = crate::frames::radec_from_vector(dir);
+        let (ra, dec) = (place.ra_rad, place.dec_rad);
         let deg = |x: f64| x / RAD_PER_DEG;
         Some(DerivedSample {
             sample: *s,
@@ -440,8 +431,8 @@ pub(super) fn run(args: &InferArgs, out: &Path, input: &Inputs) -> Result<Outcom
         e: interval(&col(&|d| d.e)),
         inc_deg: interval(&col(&|d| d.inc_deg)),
         sky_radius_deg: interval(&radius),
-        mean_ra_deg: mean_dir.y.atan2(mean_dir.x).rem_euclid(std::f64::consts::TAU) / RAD_PER_DEG,
-        mean_dec_deg: mean_dir.z.clamp(-1.0, 1.0).asin() / RAD_PER_DEG,
+        mean_ra_deg: crate::frames::radec_from_vector(mean_dir).ra_rad / RAD_PER_DEG,
+        mean_dec_deg: crate::frames::radec_from_vector(mean_dir).dec_rad / RAD_PER_DEG,
         prior: PriorFile {
             mass_earth_log_uniform: [prior.mass_earth.0, prior.mass_earth.1],
             heliocentric_distance_au_log_uniform: [prior.distance_au.0, prior.distance_au.1],

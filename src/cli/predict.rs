@@ -71,12 +71,7 @@ fn read_samples(path: &Path, epoch: f64) -> Result<Vec<Sample>, CliError> {
             .map_err(|e| bad(format!("{}:{line}: elements: {e}", path.display())))?;
         let orbit = KeplerOrbit::from_state(GM_SUN_AU3_PER_DAY2, icrf_from_ecliptic(r), icrf_from_ecliptic(vel), epoch)
             .ok_or_else(|| bad(format!("{}:{line}: the orbit is not bound", path.display())))?;
-        let (ra, dec) = (v[7] * RAD_PER_DEG, v[8] * RAD_PER_DEG);
-        out.push(Sample {
-            mass_earth: v[0],
-            orbit,
-            direction: Vec3::new(dec.cos() * ra.cos(), dec.cos() * ra.sin(), dec.sin()),
-        });
+        out.push(Sample { mass_earth: v[0], orbit, direction: crate::frames::vector_from_radec_deg(v[7], v[8]) });
     }
     if out.is_empty() {
         return Err(bad(format!("{}: no samples", path.display())));

@@ -73,10 +73,9 @@ pub(super) fn run(
     let directions: Vec<Vec3> = samples.iter().map(|s| s.direction).collect();
     let map = SkyMap::from_directions(&directions);
     let r50 = map.credible_leaves(0.5);
-    let r90 = map.credible_leaves(0.9);
-    debug_assert_eq!(r90, map.modes(0.9).region);
-    let (area50, area90) = (map.area_deg2(&r50), map.area_deg2(&r90));
     let found = map.modes(0.9);
+    let r90 = found.region.clone();
+    let (area50, area90) = (map.area_deg2(&r50), map.area_deg2(&r90));
     let comp = found.mode_of_leaf.clone();
     let n_modes = found.probability.len();
     let in50: std::collections::HashSet<usize> = r50.iter().copied().collect();
@@ -332,19 +331,17 @@ fn build_chart(
         let l = &map.leaves[i];
         let v = cdshealpix::nested::vertices(l.order, l.ipix);
         let (clon, clat) = cdshealpix::nested::center(l.order, l.ipix);
-        let u = |(lon, lat): (f64, f64)| Vec3::new(lat.cos() * lon.cos(), lat.cos() * lon.sin(), lat.sin());
+        let u = skymap::unit_from_lon_lat;
         SkyCell { corners: v.iter().map(|&p| u(p)).collect(), centre: u((clon, clat)), layer }
     };
     let mut cells: Vec<SkyCell> = Vec::new();
     // The zone within 45 deg of the Sun, at order 5.
     let order = 5u8;
     for ipix in 0..cdshealpix::nested::n_hash(order) {
-        let (lon, lat) = cdshealpix::nested::center(order, ipix);
-        let c = Vec3::new(lat.cos() * lon.cos(), lat.cos() * lon.sin(), lat.sin());
+        let c = skymap::unit_from_lon_lat(cdshealpix::nested::center(order, ipix));
         if angular_separation(c, sun).to_degrees() < SUN_DEG {
             let v = cdshealpix::nested::vertices(order, ipix);
-            let corners =
-                v.iter().map(|&(lo, la)| Vec3::new(la.cos() * lo.cos(), la.cos() * lo.sin(), la.sin())).collect();
+            let corners = v.iter().map(|&p| skymap::unit_from_lon_lat(p)).collect();
             cells.push(SkyCell { corners, centre: c, layer: 2 });
         }
     }
@@ -357,10 +354,7 @@ fn build_chart(
         })
         .collect();
     let galactic_plane: Vec<Vec3> = (0..=720).map(|k| icrs_from_galactic_deg(k as f64 * 0.5, 0.0)).collect();
-    let unit = |ra: f64, dec: f64| {
-        let (a, d) = (ra.to_radians(), dec.to_radians());
-        Vec3::new(d.cos() * a.cos(), d.cos() * a.sin(), d.sin())
-    };
+    let unit = crate::frames::vector_from_radec_deg;
     let marks = modes
         .iter()
         .filter(|m| m.probability >= 0.01)
@@ -378,8 +372,8 @@ fn build_chart(
             .iter()
             .zip(comp)
             .find(|(i, _)| {
-                let (lon, lat) = cdshealpix::nested::center(map.leaves[**i].order, map.leaves[**i].ipix);
-                let c = Vec3::new(lat.cos() * lon.cos(), lat.cos() * lon.sin(), lat.sin());
+                let c =
+                    skymap::unit_from_lon_lat(cdshealpix::nested::center(map.leaves[**i].order, map.leaves[**i].ipix));
                 angular_separation(c, centre).to_degrees() < 1e-9 + (m.area90_deg2.sqrt())
             })
             .map(|(_, &c)| c);
@@ -389,8 +383,8 @@ fn build_chart(
                 continue;
             }
             let l = &map.leaves[i];
-            for (lon, lat) in cdshealpix::nested::vertices(l.order, l.ipix) {
-                let v = Vec3::new(lat.cos() * lon.cos(), lat.cos() * lon.sin(), lat.sin());
+            for p in cdshealpix::nested::vertices(l.order, l.ipix) {
+                let v = skymap::unit_from_lon_lat(p);
                 if let Some((x, y)) = tangent(centre, v) {
                     reach = reach.max(x.abs()).max(y.abs());
                 }

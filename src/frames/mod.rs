@@ -18,6 +18,7 @@ mod sky;
 
 pub use sky::{
     EclipticLonLat, RaDec, angular_separation, angular_separation_radec, radec_from_vector, vector_from_radec,
+    vector_from_radec_deg,
 };
 
 use std::sync::LazyLock;

@@ -32,6 +32,11 @@ pub fn vector_from_radec(d: RaDec) -> Vec3 {
     Vec3::new(cd * ca, cd * sa, sd)
 }
 
+/// The unit vector of a direction given in degrees.
+pub fn vector_from_radec_deg(ra_deg: f64, dec_deg: f64) -> Vec3 {
+    vector_from_radec(RaDec { ra_rad: ra_deg.to_radians(), dec_rad: dec_deg.to_radians() })
+}
+
 /// The angle between two vectors, radians, in [0, pi].
 ///
 /// `atan2(|a x b|, a . b)` is accurate everywhere; `acos(a . b)` loses half its

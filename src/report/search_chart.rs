@@ -60,8 +60,7 @@ pub struct SearchChart {
 /// Hammer-Aitoff projection of a direction, RA 180 deg in the centre, RA
 /// increasing to the left: x in [-2 sqrt 2, 2 sqrt 2], y in [-sqrt 2, sqrt 2].
 pub fn hammer(d: Vec3) -> (f64, f64) {
-    let ra = d.y.atan2(d.x).rem_euclid(std::f64::consts::TAU);
-    let dec = d.z.clamp(-1.0, 1.0).asin();
+    let (ra, dec) = ra_dec(d);
     hammer_ra_dec(ra, dec)
 }
 
@@ -73,7 +72,7 @@ fn hammer_ra_dec(ra: f64, dec: f64) -> (f64, f64) {
 }
 
 fn ra_dec(d: Vec3) -> (f64, f64) {
-    (d.y.atan2(d.x).rem_euclid(std::f64::consts::TAU), d.z.clamp(-1.0, 1.0).asin())
+    crate::skymap::lon_lat(d)
 }
 
 /// A polygon's projected corners, unwrapped in RA around its centre (kept
@@ -357,7 +356,7 @@ fn draw_zoom<DB: DrawingBackend>(z: &ZoomPanel, area: &DrawingArea<DB, Shift>) -
         let pts: Vec<(f64, f64)> = (0..=60)
             .filter_map(|k| {
                 let dec = dc - 2.0 * h + 4.0 * h * k as f64 / 60.0;
-                let d = unit(ra, dec.clamp(-89.999, 89.999));
+                let d = crate::frames::vector_from_radec_deg(ra, dec.clamp(-89.999, 89.999));
                 tangent(z.centre, d)
             })
             .filter(|p| p.0.abs() <= h && p.1.abs() <= h)
@@ -379,7 +378,12 @@ fn draw_zoom<DB: DrawingBackend>(z: &ZoomPanel, area: &DrawingArea<DB, Shift>) -
     while dec <= dc + 2.0 * h {
         if dec.abs() < 90.0 {
             let pts: Vec<(f64, f64)> = (0..=60)
-                .filter_map(|k| tangent(z.centre, unit(rc - reach + 2.0 * reach * k as f64 / 60.0, dec)))
+                .filter_map(|k| {
+                    tangent(
+                        z.centre,
+                        crate::frames::vector_from_radec_deg(rc - reach + 2.0 * reach * k as f64 / 60.0, dec),
+                    )
+                })
                 .filter(|p| p.0.abs() <= h && p.1.abs() <= h)
                 .collect();
             if pts.len() > 1 {
@@ -414,11 +418,6 @@ fn draw_zoom<DB: DrawingBackend>(z: &ZoomPanel, area: &DrawingArea<DB, Shift>) -
     ))
     .map_err(e)?;
     Ok(())
-}
-
-fn unit(ra_deg: f64, dec_deg: f64) -> Vec3 {
-    let (a, d) = (ra_deg.to_radians(), dec_deg.to_radians());
-    Vec3::new(d.cos() * a.cos(), d.cos() * a.sin(), d.sin())
 }
 
 fn nice_step(x: f64) -> f64 {

@@ -62,9 +62,15 @@ impl Leaf {
     }
 }
 
-/// Longitude and latitude (radians) of a unit vector.
+/// Longitude and latitude (radians) of a direction, as HEALPix takes them.
 pub fn lon_lat(d: Vec3) -> (f64, f64) {
-    (d.y.atan2(d.x).rem_euclid(std::f64::consts::TAU), d.z.clamp(-1.0, 1.0).asin())
+    let p = crate::frames::radec_from_vector(d);
+    (p.ra_rad, p.dec_rad)
+}
+
+/// The unit vector of a HEALPix (longitude, latitude) pair, radians.
+pub fn unit_from_lon_lat((lon, lat): (f64, f64)) -> Vec3 {
+    crate::frames::vector_from_radec(crate::frames::RaDec { ra_rad: lon, dec_rad: lat })
 }
 
 /// The multi-order probability map of a set of equally weighted directions.
