@@ -140,6 +140,7 @@ fn jacobi_constant_is_kept_in_the_circular_restricted_three_body_problem() {
         folded: vec![],
         known: vec![latens::dynamics::KnownBody { body: Body::Jupiter, gm_au3_per_day2: mu_p }],
         relativity: false,
+        tracked_gm_au3_per_day2: 0.0,
     };
     let init = InitialState {
         t0_tdb_days: 0.0,

@@ -192,7 +192,9 @@ fn injected_perturbers_are_detected_and_located() {
             position_au: best.hypothesis.position_au,
             velocity_au_per_day: best.hypothesis.velocity_au_per_day,
         };
-        let refined = latens::perturber::refine::refine(&fit, &obs, &geometry, &s.model, &s.ephemeris, start).unwrap();
+        let refined =
+            latens::perturber::refine::refine(&fit, &obs, &geometry, &s.model, &s.ephemeris, start, (1.0, 1000.0))
+                .unwrap();
         let gm_earth = EARTH_MASS_SOLAR * GM_SUN_AU3_PER_DAY2;
         eprintln!(
             "  refined: delta chi2 {:.1}, mass {:.1} +/- {:.1} Earth masses, all 13: {} ({})",

@@ -139,6 +139,15 @@ pub struct InputArgs {
     /// `builtin` (VSOP87A, no file needed) or a JPL SPK file (types 2 and 3).
     #[arg(long, value_name = "builtin|FILE", default_value = "builtin")]
     pub ephemeris: String,
+    /// The tracked body's own mass: a planet's name (its GM is used, e.g.
+    /// `uranus`) or a number of Earth masses; 0 for a small body.
+    #[arg(long, value_name = "NAME|EARTH_MASSES", default_value = "0")]
+    pub tracked_mass: String,
+    /// What the tracked body is: planet, dwarf-planet, small-body or comet
+    /// (decides which alternative explanations are possible). Default: from
+    /// --tracked-mass (a named planet is a planet, otherwise a small body).
+    #[arg(long, value_name = "KIND")]
+    pub kind: Option<String>,
 }
 
 #[derive(Debug, clap::Args)]
@@ -191,15 +200,27 @@ pub struct InferArgs {
     /// Prior width of the known planets' GM offsets, as a multiple of their published uncertainties.
     #[arg(long, value_name = "X", default_value_t = 1000.0)]
     pub gm_prior_inflation: f64,
-    /// Prior width of each non-gravitational component at 1 au, au/day^2 (scaled by 1/r^2).
-    #[arg(long, value_name = "A", default_value_t = 1e-8)]
-    pub nongrav_prior: f64,
+    /// Prior width of each non-gravitational component at 1 au, au/day^2
+    /// (scaled by 1/r^2). Default from --kind: none for planets and dwarf
+    /// planets (nothing outgasses or recoils measurably), 1e-13 for small
+    /// bodies (thermal recoil), 1e-8 for comets (outgassing).
+    #[arg(long, value_name = "A")]
+    pub nongrav_prior: Option<f64>,
     /// Prior width of each systematic astrometric offset, arcsec.
     #[arg(long, value_name = "ARCSEC", default_value_t = 0.2)]
     pub offset_prior: f64,
     /// Continue an interrupted run from DIR/checkpoint.json (DIR becomes the output directory).
     #[arg(long, value_name = "DIR")]
     pub resume: Option<PathBuf>,
+    /// Set aside observations whose residual exceeds this many sigma (in the
+    /// two coordinates together) against the best model, the perturber
+    /// included when one is detected; `off` keeps every observation.
+    #[arg(long, value_name = "SIGMA|off", default_value = "10")]
+    pub reject_sigma: String,
+    /// Observations to leave out by hand: line numbers of the observation
+    /// file, comma-separated (ranges as A-B).
+    #[arg(long, value_name = "LINES")]
+    pub exclude: Option<String>,
 }
 
 #[derive(Debug, clap::Args)]

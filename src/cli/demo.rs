@@ -87,6 +87,8 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
         sites: Some(sim.sites_path.clone()),
         known: scenario.model.known.clone(),
         ephemeris: "builtin".into(),
+        tracked_mass: "0".into(),
+        kind: None,
     };
     let search_dir = out.join("search");
     let s = &scenario.search;
@@ -108,9 +110,11 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
         runs: 2,
         max_eccentricity: s.max_eccentricity,
         gm_prior_inflation: impostor_priors.gm_inflation,
-        nongrav_prior: impostor_priors.nongrav_au_per_day2,
+        nongrav_prior: None,
         offset_prior: impostor_priors.offset_arcsec,
         resume: None,
+        reject_sigma: "10".into(),
+        exclude: None,
     })?;
     let truth_check = truth_against_region(&sim.truth, &search_dir);
 

@@ -9,7 +9,7 @@ use anyhow::Context;
 
 use super::CliError;
 use super::args::InferArgs;
-use super::residuals::{ResidualProducts, force_model, load_ephemeris, orbit_file, parse_known, read_inputs};
+use super::residuals::{ResidualProducts, load_ephemeris, model_from_input, orbit_file, read_inputs};
 use crate::astrometry::{ObservingGeometry, astrometric_direction, sun_barycentric_velocity};
 use crate::dynamics::Perturber;
 use crate::dynamics::kepler::elements_from_state;
@@ -31,14 +31,15 @@ use crate::vec3::Vec3;
 /// two-sided 3-sigma Gaussian tail (common practice).
 pub const DETECTION_FAP: f64 = 0.0027;
 
-/// The null fit of `infer` sets aside only gross blunders (chi-square above
-/// 100 in the two coordinates, 10 sigma): a perturber's signal makes
-/// residuals of several sigma over whole seasons, and the usual 5-sigma
-/// rejection of `latens residuals` would set aside the very observations
-/// that carry it (measured on the demo: 68 of 520 at 5 sigma, which moved
-/// the posterior 20 deg away from the truth).
+/// The null fit of `infer` sets nothing aside: a perturber's signal makes
+/// residuals of many sigma over whole seasons, and any threshold against
+/// the null model sets aside the very observations that carry it (measured:
+/// 68 of 520 demo observations at 5 sigma, which moved the posterior 20 deg
+/// from the truth; 107 of 728 at 10 sigma on a 90-year planetary arc).
+/// Outliers are judged afterwards against the best model, the perturber
+/// included (`--reject-sigma`), and the search runs again without them.
 const INFER_REFERENCE_SETTINGS: ReferenceSettings =
-    ReferenceSettings { epoch_tdb_days: None, reject_chi2: 100.0, readmit_chi2: 64.0, max_rounds: 10 };
+    ReferenceSettings { epoch_tdb_days: None, reject_chi2: f64::INFINITY, readmit_chi2: f64::INFINITY, max_rounds: 10 };
 
 /// Solar elongations below this get a safety warning, degrees.
 pub(super) const SUN_WARNING_DEG: f64 = 45.0;
@@ -58,7 +59,7 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
     let out_dir = args.resume.clone().unwrap_or_else(|| args.out.clone());
     let out = out_dir.as_path();
     let (observations, sites) = read_inputs(&args.input.obs, args.input.sites.as_ref())?;
-    let known = parse_known(&args.input.known).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+    let (model, tracked) = model_from_input(&args.input)?;
     let mass = parse_range(&args.mass_earth, "--mass-earth")?;
     let distance = parse_range(&args.distance_au, "--distance-au")?;
     // The false-alarm probability cannot go below 1/(nulls + 1): enough
@@ -72,7 +73,7 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
     }
     for (v, name) in [
         (args.gm_prior_inflation, "--gm-prior-inflation"),
-        (args.nongrav_prior, "--nongrav-prior"),
+        (args.nongrav_prior.unwrap_or(1.0), "--nongrav-prior"),
         (args.offset_prior, "--offset-prior"),
         (args.max_eccentricity, "--max-eccentricity"),
     ] {
@@ -82,7 +83,6 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
             )));
         }
     }
-    let model = force_model(&known);
     let ephemeris = load_ephemeris(&args.input.ephemeris, &model, &observations)?;
     let search_epoch = match &args.search_epoch {
         Some(text) => tdb_days_from_j2000(
@@ -100,17 +100,13 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
         wide.check_covered(b, search_epoch).map_err(|e| CliError::bad_input(anyhow::anyhow!("--search-epoch: {e}")))?;
     }
 
-    eprintln!("Fitting the reference orbit (no perturber) to {} observations...", observations.len());
-    let null = fit_reference_orbit(&observations, &sites, &model, ephemeris.as_ref(), &INFER_REFERENCE_SETTINGS, None)
-        .map_err(CliError::failed)?;
-    let geometry = observing_geometry(&observations, &sites, ephemeris.as_ref()).map_err(CliError::failed)?;
-    let kernel = LinearKernel::build(&null, &observations, geometry.clone(), &model, ephemeris.as_ref())
-        .map_err(CliError::failed)?;
     if args.directions < 12 || args.distances < 2 {
         return Err(CliError::bad_input(anyhow::anyhow!(
             "--directions must be at least 12 and --distances at least 2"
         )));
     }
+    let reject_sigma = parse_reject_sigma(&args.reject_sigma)?;
+    let (observations, excluded_by_hand) = exclude_by_hand(observations, args.exclude.as_deref())?;
     let settings = SearchSettings {
         mass_earth: mass,
         distance_au: distance,
@@ -120,20 +116,46 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
         n_distances: args.distances,
         ..SearchSettings::default()
     };
-    let n_total = crate::perturber::search::hypotheses(&settings, kernel.central_gm()).len();
-    let bar = indicatif::ProgressBar::new(n_total as u64);
-    bar.set_style(
-        indicatif::ProgressStyle::with_template("searching {bar:40} {pos}/{len} hypotheses ({eta} left)")
-            .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar()),
-    );
-    let result = grid_search(&kernel, &settings, &|n| bar.set_position(n as u64));
-    bar.finish_and_clear();
+    let mut stage = search_stage(observations, &sites, &model, ephemeris.as_ref(), &settings)?;
+    // Outliers are judged against the best model: with the perturber when
+    // one is detected (in the strong regime the largest residuals are the
+    // signal), else against the null model. Those set aside, the whole
+    // search runs again without them.
+    let mut set_aside = Vec::new();
+    let judged_against = if stage.detected() && stage.refined.is_some() {
+        "the full model with the refined perturber"
+    } else {
+        "the null model (no perturber)"
+    };
+    if let Some(limit) = reject_sigma {
+        let chi2 = stage.chi2_per_observation(&model, ephemeris.as_ref())?;
+        let keep: Vec<bool> = chi2.iter().map(|&c| c <= limit * limit).collect();
+        if keep.iter().any(|k| !k) {
+            set_aside =
+                stage.observations.iter().zip(&keep).filter(|(_, k)| !**k).map(|(o, _)| o.source.clone()).collect();
+            eprintln!(
+                "Setting aside {} observation(s) beyond {limit} sigma against {judged_against}; searching again...",
+                set_aside.len()
+            );
+            let rest: Vec<Observation> =
+                stage.observations.iter().zip(&keep).filter(|(_, k)| **k).map(|(o, _)| o.clone()).collect();
+            stage = search_stage(rest, &sites, &model, ephemeris.as_ref(), &settings)?;
+        }
+    }
+    let SearchStage { observations, null, geometry, kernel, result, refined, centred, basins, rounds } = stage;
 
     let fap = result.false_alarm_probability();
     let largest_null = result.null_maxima.iter().copied().fold(0.0, f64::max);
     let mut warnings = null.warnings.clone();
-    let described: Vec<PerturberFile> = result
-        .basins
+    if !set_aside.is_empty() {
+        warnings.push(format!(
+            "{} observation(s) set aside beyond {} sigma against {judged_against}: {}",
+            set_aside.len(),
+            reject_sigma.unwrap_or(f64::NAN),
+            set_aside.join(", ")
+        ));
+    }
+    let described: Vec<PerturberFile> = basins
         .iter()
         .map(|b| {
             describe(
@@ -158,8 +180,9 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
                 d.solar_elongation_deg
             ));
         }
-        // Only worth saying for a solution that stands out from the noise.
-        if d.linearisation_error_fraction > 0.05 && result.false_alarm_probability() < 0.05 {
+        // Only worth saying for a solution that stands out from the noise
+        // and that the recentred kernel did not take over.
+        if d.linearisation_error_fraction > 0.05 && fap < DETECTION_FAP && centred.is_none() {
             warnings.push(format!(
                 "basin {}: the linear kernel differs from the full model by {:.0}% of the signal; treat its figures with caution",
                 k + 1,
@@ -170,31 +193,23 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
     // The detection statistic is the grid's best drop (the null maxima are
     // grid maxima); the basins carry their continuously refined drops.
     let best_delta = result.grid_best_delta_chi2;
-    // Refine the best solution on the full nonlinear model.
-    let refined = match result.best() {
-        Some(b) if b.gm_au3_per_day2 > 0.0 => {
-            eprintln!("Refining the best solution on the full nonlinear model...");
-            let start = Perturber {
-                gm_au3_per_day2: b.gm_au3_per_day2,
-                position_au: b.hypothesis.position_au,
-                velocity_au_per_day: b.hypothesis.velocity_au_per_day,
-            };
-            match crate::perturber::refine::refine(&null, &observations, &geometry, &model, ephemeris.as_ref(), start) {
-                Ok(r) => Some(refined_file(&r, &null)),
-                Err(e) => {
-                    warnings.push(format!("the nonlinear refinement failed ({e}); the grid solution stands"));
-                    None
-                }
-            }
-        }
-        _ => None,
-    };
+    let refined_summary = refined.as_ref().map(|r| refined_file(r, &null));
+    let nonlinear_stage = centred.as_ref().map(|c| crate::io::results::NonlinearStageFile {
+        rounds,
+        chi2_at_centre: c.chi2_at_centre,
+        delta_chi2_at_centre: null.chi2 - c.chi2_at_centre,
+        note: "the linear kernel recentred on the refined full-model solution (residuals of the full model plus the \
+               kernel's signal of that solution), so the linear model is exact at the centre; the search and the \
+               posterior ran on it"
+            .into(),
+    });
     let detected = fap < DETECTION_FAP && best_delta > 0.0;
     // A signal that repeats with the year points at a systematic error tied
     // to the Earth's motion (a catalogue or reduction error), not at a
     // planet, whose pull changes slowly.
-    let annual = annual_share(&null, &observations, best_delta);
-    let yearly = annual > ANNUAL_SUSPICION;
+    let (annual, annual_chi2) = annual_share(&null, &observations, best_delta);
+    // Said only when the sinusoid itself is significant, not on noise.
+    let yearly = annual > ANNUAL_SUSPICION && annual_chi2 > ANNUAL_MIN_CHI2;
     if yearly {
         warnings.push(format!(
             "a one-year sinusoid accounts for {:.0}% of the residuals' excess: check the astrometry for systematic errors before believing in a planet",
@@ -227,21 +242,26 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
         out,
         &super::posterior::Inputs {
             null: &null,
-            kernel: &kernel,
+            null_kernel: &kernel,
+            kernel: centred.as_ref().map_or(&kernel, |c| &c.kernel),
+            delta_chi2_offset: centred.as_ref().map_or(0.0, |c| c.delta_chi2_offset),
+            tracked: &tracked,
             observations: &observations,
             geometry: &geometry,
             model: &model,
             ephemeris: ephemeris.as_ref(),
             wide: wide.as_ref(),
             search_epoch,
-            basins: &result.basins,
+            basins: &basins,
             mass_earth: mass,
             distance_au: distance,
             min_separation_au: settings.min_separation_au,
         },
     )?;
     warnings.extend(stage.warnings.iter().cloned());
-    let search_products = if stage.samples.is_empty() {
+    // A non-detection gives upper limits, not a place to look.
+    let upper_limits = if detected { Vec::new() } else { upper_limits(&stage.samples, distance) };
+    let search_products = if stage.samples.is_empty() || !detected {
         None
     } else {
         let geometry_now = super::posterior::SearchGeometry::new(wide.as_ref(), search_epoch)?;
@@ -259,11 +279,19 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
     let mut verdict = verdict;
     if let Some(ex) = &stage.explanation
         && detected
-        && ex.best != "an unseen perturber"
+        && stage.evidence.is_some()
+        && ex.best != super::posterior::PERTURBER
     {
-        let lead =
-            if yearly { "; the best-supported explanation is" } else { "; but the data favour another explanation:" };
-        verdict.push_str(&format!("{lead} {} ({})", ex.best, ex.strength));
+        if ex.best == "undecided" {
+            verdict.push_str(&format!("; which explanation is best is undecided: {}", ex.text));
+        } else {
+            let lead = if yearly {
+                "; the best-supported explanation is"
+            } else {
+                "; but the data favour another explanation:"
+            };
+            verdict.push_str(&format!("{lead} {} ({})", ex.best, ex.strength));
+        }
     }
 
     let summary = InferSummary {
@@ -284,7 +312,7 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
         },
         null_model: NullModelFile { chi2: null.chi2, dof: null.dof, orbit: orbit_file(&null) },
         best_fit: described.first().map(clone_perturber),
-        refined_best_fit: refined,
+        refined_best_fit: refined_summary,
         basins: described.iter().map(clone_perturber).collect(),
         detection: DetectionFile {
             delta_chi2: best_delta,
@@ -306,6 +334,23 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
         explanation: stage.explanation,
         diagnostics: stage.diagnostics,
         sky: search_products.as_ref().map(|s| s.sky.clone()),
+        tracked: crate::io::results::TrackedFile {
+            kind: tracked.kind.name().into(),
+            mass_earth: tracked.mass_earth(),
+            gm_au3_per_day2: tracked.gm_au3_per_day2,
+            named: tracked.named.map(|b| b.name().to_string()),
+            nongrav_prior_au_per_day2: args
+                .nongrav_prior
+                .unwrap_or(crate::posterior::impostors::nongrav_prior_for(tracked.kind)),
+        },
+        outliers: crate::io::results::OutlierFile {
+            threshold_sigma: reject_sigma,
+            judged_against: judged_against.into(),
+            excluded_by_hand,
+            set_aside,
+        },
+        nonlinear_stage,
+        upper_limits: upper_limits.clone(),
         warnings: warnings.clone(),
     };
     let json = serde_json::to_string_pretty(&summary).map_err(|e| CliError::failed(anyhow::anyhow!(e)))? + "\n";
@@ -340,13 +385,26 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
             d.solar_elongation_deg
         );
     }
-    if described.len() > 1 {
+    if described.len() > 1 && detected {
         let _ = writeln!(
             text,
             "  Several basins fit almost equally well: mass, distance and direction are not all pinned down by these data."
         );
     }
     text.push_str(&stage.text);
+    if !upper_limits.is_empty() {
+        let _ = writeln!(
+            text,
+            "No perturber detected, so no search region: these data exclude, at 95% posterior probability, perturbers heavier than"
+        );
+        for u in &upper_limits {
+            let _ = writeln!(
+                text,
+                "  {:>7.1} Earth masses at {:.0}-{:.0} au from the Sun ({} samples)",
+                u.mass_earth_95, u.distance_au[0], u.distance_au[1], u.n_samples
+            );
+        }
+    }
     if let Some(s) = &search_products {
         text.push_str(&s.text);
     }
@@ -530,11 +588,15 @@ fn linearisation_error(
 /// Share of the residuals' excess chi-square that a one-year sinusoid
 /// explains, above which a detection is called suspicious.
 const ANNUAL_SUSPICION: f64 = 0.5;
+/// ... provided the sinusoid's own chi-square drop (4 parameters: sine and
+/// cosine in two coordinates) is significant: 20 is its 5e-4 tail
+/// (scipy.stats.chi2.sf(20, 4) = 4.99e-4).
+const ANNUAL_MIN_CHI2: f64 = 20.0;
 
 /// The share of the null residuals' excess chi-square (over its degrees of
 /// freedom, or over the best solution's drop if larger) that a constant plus
 /// a one-year sinusoid in each coordinate removes.
-fn annual_share(null: &ReferenceFit, observations: &[Observation], best_delta: f64) -> f64 {
+fn annual_share(null: &ReferenceFit, observations: &[Observation], best_delta: f64) -> (f64, f64) {
     let mut removed = 0.0;
     for coordinate in 0..2 {
         // Weighted least squares of r = a + b sin(wt) + c cos(wt).
@@ -566,7 +628,7 @@ fn annual_share(null: &ReferenceFit, observations: &[Observation], best_delta: f
         removed += (all - constant).max(0.0);
     }
     let excess = (null.chi2 - null.dof as f64).max(best_delta).max(1e-9);
-    removed / excess
+    (removed / excess, removed)
 }
 
 /// Solves a 3x3 linear system by Cramer's rule (None when singular).
@@ -665,4 +727,288 @@ fn write_outputs(
     write_atomically(&out.join("null_fit.json"), null_products.fit_json.as_bytes())?;
     write_atomically(&out.join("summary.json"), json.as_bytes())?;
     Ok(())
+}
+
+/// `--reject-sigma`: a positive number of sigma, or `off`.
+fn parse_reject_sigma(text: &str) -> Result<Option<f64>, CliError> {
+    if text.trim().eq_ignore_ascii_case("off") {
+        return Ok(None);
+    }
+    match text.trim().parse::<f64>() {
+        Ok(v) if v.is_finite() && v >= 3.0 => Ok(Some(v)),
+        _ => Err(CliError::bad_input(anyhow::anyhow!(
+            "--reject-sigma: expected a number of sigma of at least 3, or `off`, got `{text}`"
+        ))),
+    }
+}
+
+/// Leaves out the observations on the lines `--exclude` names (line
+/// numbers of the observation file, `A-B` for a range); every named line
+/// must hold an observation.
+fn exclude_by_hand(
+    observations: Vec<Observation>,
+    spec: Option<&str>,
+) -> Result<(Vec<Observation>, Vec<String>), CliError> {
+    let Some(spec) = spec else { return Ok((observations, Vec::new())) };
+    let bad =
+        |t: &str| CliError::bad_input(anyhow::anyhow!("--exclude: expected line numbers like 12,40-45, got `{t}`"));
+    let mut lines = Vec::new();
+    for part in spec.split(',').map(str::trim).filter(|p| !p.is_empty()) {
+        let (a, b) = match part.split_once('-') {
+            Some((a, b)) => {
+                (a.trim().parse::<usize>().map_err(|_| bad(part))?, b.trim().parse::<usize>().map_err(|_| bad(part))?)
+            }
+            None => {
+                let a = part.parse::<usize>().map_err(|_| bad(part))?;
+                (a, a)
+            }
+        };
+        if a == 0 || b < a {
+            return Err(bad(part));
+        }
+        lines.extend(a..=b);
+    }
+    let line_of = |o: &Observation| o.source.rsplit_once(':').and_then(|(_, l)| l.parse::<usize>().ok());
+    for l in &lines {
+        if !observations.iter().any(|o| line_of(o) == Some(*l)) {
+            return Err(CliError::bad_input(anyhow::anyhow!("--exclude: line {l} holds no observation")));
+        }
+    }
+    let (out, kept): (Vec<Observation>, Vec<Observation>) =
+        observations.into_iter().partition(|o| line_of(o).is_some_and(|l| lines.contains(&l)));
+    if kept.len() < 3 {
+        return Err(CliError::bad_input(anyhow::anyhow!("--exclude leaves fewer than 3 observations")));
+    }
+    Ok((kept, out.into_iter().map(|o| o.source).collect()))
+}
+
+/// Rounds of refine-and-recentre at most.
+const MAX_RECENTRE_ROUNDS: usize = 3;
+
+/// The search on one set of observations: the null fit, the kernel, the
+/// grid, the refinement on the full model and, for a detection, the kernel
+/// recentred on the refined solution with the basins found on it.
+struct SearchStage {
+    observations: Vec<Observation>,
+    null: ReferenceFit,
+    geometry: Vec<ObservingGeometry>,
+    /// The kernel about the null orbit (detection, alternatives).
+    kernel: LinearKernel,
+    result: crate::perturber::SearchResult,
+    refined: Option<crate::perturber::refine::Refinement>,
+    centred: Option<crate::perturber::refine::Recentred>,
+    /// The basins the posterior starts from, drops against the null model.
+    basins: Vec<Scored>,
+    rounds: usize,
+}
+
+impl SearchStage {
+    fn detected(&self) -> bool {
+        self.result.false_alarm_probability() < DETECTION_FAP && self.result.grid_best_delta_chi2 > 0.0
+    }
+
+    /// Each observation's chi-square (both coordinates) against the best
+    /// model: the refined perturber's full model for a detection, else the
+    /// null model.
+    fn chi2_per_observation(
+        &self,
+        model: &crate::dynamics::ForceModel,
+        ephemeris: &dyn Ephemeris,
+    ) -> Result<Vec<f64>, CliError> {
+        let pairs: Vec<(f64, f64)> = match (&self.refined, self.detected()) {
+            (Some(r), true) => {
+                let mut m = OrbitModel::new(
+                    &self.observations,
+                    self.geometry.clone(),
+                    self.null.epoch_tdb_days,
+                    model,
+                    ephemeris,
+                )
+                .map_err(CliError::failed)?;
+                m.perturbers = vec![r.perturber];
+                m.predict(&r.tracked_state, false).map_err(CliError::failed)?;
+                let pred = m.predict(&r.tracked_state, false).map_err(CliError::failed)?;
+                self.observations
+                    .iter()
+                    .zip(&pred)
+                    .map(|(o, p)| {
+                        crate::reference::residual_arcsec_between(
+                            &crate::frames::RaDec { ra_rad: o.ra_rad, dec_rad: o.dec_rad },
+                            &p.radec,
+                        )
+                    })
+                    .collect()
+            }
+            _ => self.null.residuals.iter().map(|r| (r.ra_arcsec, r.dec_arcsec)).collect(),
+        };
+        Ok(self
+            .observations
+            .iter()
+            .zip(pairs)
+            .map(|(o, r)| {
+                let (a, b) = whiten(o, r);
+                a * a + b * b
+            })
+            .collect())
+    }
+}
+
+fn search_stage(
+    observations: Vec<Observation>,
+    sites: &crate::io::observations::SiteTable,
+    model: &crate::dynamics::ForceModel,
+    ephemeris: &dyn Ephemeris,
+    settings: &SearchSettings,
+) -> Result<SearchStage, CliError> {
+    use crate::perturber::refine::{recentre, refine};
+    eprintln!("Fitting the reference orbit (no perturber) to {} observations...", observations.len());
+    let null = fit_reference_orbit(&observations, sites, model, ephemeris, &INFER_REFERENCE_SETTINGS, None)
+        .map_err(CliError::failed)?;
+    let geometry = observing_geometry(&observations, sites, ephemeris).map_err(CliError::failed)?;
+    let kernel =
+        LinearKernel::build(&null, &observations, geometry.clone(), model, ephemeris).map_err(CliError::failed)?;
+    let n_total = crate::perturber::search::hypotheses(settings, kernel.central_gm()).len();
+    let bar = indicatif::ProgressBar::new(n_total as u64);
+    bar.set_style(
+        indicatif::ProgressStyle::with_template("searching {bar:40} {pos}/{len} hypotheses ({eta} left)")
+            .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar()),
+    );
+    let result = grid_search(&kernel, settings, &|n| bar.set_position(n as u64));
+    bar.finish_and_clear();
+    let mut stage = SearchStage {
+        observations,
+        null,
+        geometry,
+        kernel,
+        basins: result.basins.clone(),
+        result,
+        refined: None,
+        centred: None,
+        rounds: 0,
+    };
+    let Some(best) = stage.result.best().copied().filter(|b| b.gm_au3_per_day2 > 0.0) else {
+        return Ok(stage);
+    };
+    let refine_from = |s: &Scored, stage: &SearchStage| {
+        let start = Perturber {
+            gm_au3_per_day2: s.gm_au3_per_day2,
+            position_au: s.hypothesis.position_au,
+            velocity_au_per_day: s.hypothesis.velocity_au_per_day,
+        };
+        refine(&stage.null, &stage.observations, &stage.geometry, model, ephemeris, start, settings.distance_au)
+    };
+    eprintln!("Refining the best solution on the full nonlinear model...");
+    let mut current = match refine_from(&best, &stage) {
+        Ok(r) => r,
+        Err(e) => {
+            stage.null.warnings.push(format!("the nonlinear refinement failed ({e}); the grid solution stands"));
+            return Ok(stage);
+        }
+    };
+    if !stage.detected() {
+        stage.refined = Some(current);
+        return Ok(stage);
+    }
+    // Follow the data into the nonlinear regime: recentre the kernel on the
+    // refined solution, search again on it, and refine again when another
+    // place scores better there; every basin of the final search is kept
+    // for the posterior.
+    let gm_earth = crate::units::EARTH_MASS_SOLAR * crate::units::GM_SUN_AU3_PER_DAY2;
+    let gm_max = settings.mass_earth.1 * gm_earth;
+    let quiet = SearchSettings { n_null: 0, ..settings.clone() };
+    for round in 1..=MAX_RECENTRE_ROUNDS {
+        eprintln!("Recentring the linear kernel on the refined solution (round {round}) and searching again...");
+        let centred = recentre(
+            &stage.kernel,
+            stage.null.epoch_tdb_days,
+            &current.tracked_state,
+            &current.perturber,
+            &stage.observations,
+            &stage.geometry,
+            model,
+            ephemeris,
+        )
+        .map_err(CliError::failed)?;
+        let again = grid_search(&centred.kernel, &quiet, &|_| {});
+        let centre = crate::perturber::Hypothesis {
+            position_au: current.perturber.position_au,
+            velocity_au_per_day: current.perturber.velocity_au_per_day,
+        };
+        let mut scratch = vec![0.0; centred.kernel.n_residuals()];
+        let mut basins: Vec<Scored> =
+            crate::perturber::search::score(&centred.kernel, &centre, gm_max, settings.min_separation_au, &mut scratch)
+                .into_iter()
+                .chain(again.basins.iter().copied())
+                .map(|s| Scored { delta_chi2: s.delta_chi2 + centred.delta_chi2_offset, ..s })
+                .collect();
+        basins.sort_by(|a, b| b.delta_chi2.total_cmp(&a.delta_chi2));
+        let centre_delta = stage.null.chi2 - current.chi2;
+        // A better place elsewhere on the recentred kernel: refine it.
+        let challenger = basins.iter().find(|b| {
+            let apart = b.hypothesis.position_au.unit().dot(centre.position_au.unit()) < 1f64.to_radians().cos()
+                || (b.hypothesis.position_au.norm() / centre.position_au.norm()).ln().abs() > 0.1;
+            apart && b.delta_chi2 > centre_delta + 1.0
+        });
+        let moved = match challenger.copied() {
+            Some(c) if round < MAX_RECENTRE_ROUNDS => match refine_from(&c, &stage) {
+                Ok(r) if r.chi2 < current.chi2 - 0.5 => {
+                    current = r;
+                    true
+                }
+                _ => false,
+            },
+            _ => false,
+        };
+        stage.rounds = round;
+        if !moved {
+            // Keep distinct basins within the usual window of the best.
+            let best = basins.first().map_or(0.0, |b| b.delta_chi2);
+            let mut kept: Vec<Scored> = Vec::new();
+            for b in basins {
+                let far = kept.iter().all(|k| {
+                    k.hypothesis.position_au.unit().dot(b.hypothesis.position_au.unit())
+                        < settings.basin_separation_deg.to_radians().cos()
+                        || (k.hypothesis.position_au.norm() / b.hypothesis.position_au.norm()).ln().abs() > 2f64.ln()
+                });
+                if b.delta_chi2 >= best - settings.basin_delta_chi2 && far && kept.len() < settings.max_basins {
+                    kept.push(b);
+                }
+            }
+            stage.basins = kept;
+            stage.centred = Some(centred);
+            break;
+        }
+    }
+    stage.refined = Some(current);
+    Ok(stage)
+}
+
+/// 95% upper limits on the mass, per band of heliocentric distance, from
+/// the posterior samples of a non-detection (log-spaced bands over the
+/// prior's range; bands with fewer than 50 samples are left out).
+fn upper_limits(
+    samples: &[super::posterior::DerivedSample],
+    distance_au: (f64, f64),
+) -> Vec<crate::io::results::UpperLimitFile> {
+    let bands = 6;
+    let ratio = (distance_au.1 / distance_au.0).powf(1.0 / bands as f64);
+    (0..bands)
+        .filter_map(|b| {
+            let lo = distance_au.0 * ratio.powi(b);
+            let hi = lo * ratio;
+            let masses: Vec<f64> = samples
+                .iter()
+                .filter(|s| {
+                    let d = s.sample.position_au.norm();
+                    d >= lo && d < hi
+                })
+                .map(|s| s.sample.mass_earth())
+                .collect();
+            (masses.len() >= 50).then(|| crate::io::results::UpperLimitFile {
+                distance_au: [lo, hi],
+                mass_earth_95: crate::posterior::quantiles(&masses, &[0.95])[0],
+                n_samples: masses.len(),
+            })
+        })
+        .collect()
 }

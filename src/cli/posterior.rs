@@ -46,7 +46,15 @@ const CHECKED: usize = 400;
 /// Everything the stage reads.
 pub(super) struct Inputs<'a> {
     pub null: &'a ReferenceFit,
+    /// The kernel about the null orbit (the alternatives are weighed on it).
+    pub null_kernel: &'a LinearKernel,
+    /// The kernel the posterior samples: the null one, or the one
+    /// recentred on the refined solution when the signal is strong.
     pub kernel: &'a LinearKernel,
+    /// |y_null|^2 - |y'|^2 of that kernel (0 for the null kernel).
+    pub delta_chi2_offset: f64,
+    /// What the tracked body is (decides the alternatives' priors).
+    pub tracked: &'a crate::dynamics::TrackedBody,
     pub observations: &'a [Observation],
     pub geometry: &'a [ObservingGeometry],
     pub model: &'a ForceModel,
@@ -179,18 +187,19 @@ pub(super) fn run(args: &InferArgs, out: &Path, input: &Inputs) -> Result<Outcom
     // The impostors first: they are cheap and do not need a perturber.
     let priors = ImpostorPriors {
         gm_inflation: args.gm_prior_inflation,
-        nongrav_au_per_day2: args.nongrav_prior,
+        nongrav_au_per_day2: args.nongrav_prior.unwrap_or(impostors::nongrav_prior_for(input.tracked.kind)),
         offset_arcsec: args.offset_prior,
     };
-    let mut models = vec![
-        impostors::nongravitational_model(input.kernel, &priors),
-        impostors::offset_model(input.kernel, input.observations, &priors),
-    ];
-    match impostors::gm_model(input.kernel, input.model, input.ephemeris, &priors) {
+    let mut models = vec![impostors::offset_model(input.null_kernel, input.observations, &priors)];
+    if priors.nongrav_au_per_day2 > 0.0 {
+        models.insert(0, impostors::nongravitational_model(input.null_kernel, &priors));
+    }
+    match impostors::gm_model(input.null_kernel, input.model, input.ephemeris, &priors) {
         Some(m) => models.insert(0, m),
         None => warnings.push("the known-planet mass alternative could not be weighed (no planet with a published GM uncertainty, or the ephemeris does not cover the arc)".into()),
     }
-    let compared: Vec<impostors::Comparison> = models.iter().map(|m| impostors::compare(input.kernel, m)).collect();
+    let compared: Vec<impostors::Comparison> =
+        models.iter().map(|m| impostors::compare(input.null_kernel, m)).collect();
     let impostor_files: Vec<ImpostorFile> = compared
         .iter()
         .map(|c| ImpostorFile {
@@ -364,8 +373,12 @@ pub(super) fn run(args: &InferArgs, out: &Path, input: &Inputs) -> Result<Outcom
         .collect();
 
     // Evidence.
+    // A recentred kernel's likelihood is relative to its own residuals y';
+    // against the null model it is higher by (|y|^2 - |y'|^2) / 2.
+    let shift = 0.5 * input.delta_chi2_offset;
     let (ln_z, ln_z_err) = sampler::combined_evidence(&states, sampler::thermodynamic_evidence);
     let (ss_z, ss_err) = sampler::combined_evidence(&states, sampler::stepping_stone_evidence);
+    let (ln_z, ss_z) = (ln_z + shift, ss_z + shift);
     let evidence = (n_t >= 2).then(|| EvidenceFile {
         ln_bayes_factor: ln_z,
         ln_bayes_factor_error: ln_z_err,
@@ -562,28 +575,67 @@ fn nonlinear_steps(
 
 /// Names the best-supported explanation, by log10 Bayes factor against no
 /// extra effect, and how strongly it beats the runner-up.
+/// The name of the perturber explanation in the verdict.
+pub(super) const PERTURBER: &str = "an unseen perturber";
+
+/// The best-supported explanation among those weighed. One rule: a margin
+/// counts (on the Kass & Raftery 1995 scale) only beyond twice the error
+/// of the evidences it compares; inside that the verdict is "undecided".
+/// Without a posterior the perturber was not weighed, and the text says
+/// so instead of ranking the others above it.
 fn explain(perturber: Option<(f64, f64)>, impostors: &[ImpostorFile]) -> ExplanationFile {
-    let mut options: Vec<(String, f64)> = vec![("no extra effect (noise alone)".into(), 0.0)];
-    if let Some((b, _)) = perturber {
-        options.push(("an unseen perturber".into(), b));
+    let mut options: Vec<(String, f64, f64)> = vec![("no extra effect (noise alone)".into(), 0.0, 0.0)];
+    if let Some((b, err)) = perturber {
+        options.push((PERTURBER.into(), b, err));
     }
-    options.extend(impostors.iter().map(|i| (i.name.clone(), i.log10_bayes_factor)));
+    options.extend(impostors.iter().map(|i| (i.name.clone(), i.log10_bayes_factor, 0.0)));
     options.sort_by(|a, b| b.1.total_cmp(&a.1));
     let (best, runner) = (&options[0], &options[1.min(options.len() - 1)]);
     let margin = best.1 - runner.1;
-    let strength = impostors::strength(margin);
-    let mut text = format!(
-        "best supported: {} (log10 Bayes factor {:.1} against no extra effect); over the runner-up, {}, by {:.1} in log10: {} (Kass & Raftery 1995)",
-        best.0, best.1, runner.0, margin, strength
-    );
-    if let Some((_, err)) = perturber
-        && (best.0 == "an unseen perturber" || runner.0 == "an unseen perturber")
-        && margin < 2.0 * err
-    {
-        let _ = write!(text, "; the margin is within the evidence's error ({err:.1})");
+    let error = best.2.hypot(runner.2);
+    // Nothing stands out from noise alone (not even "substantial", 0.5 in
+    // log10, beyond twice its error): no extra effect is needed.
+    let none_needed = best.1 < 0.5 + 2.0 * best.2;
+    let undecided = !none_needed && margin <= 2.0 * error;
+    let strength = if none_needed {
+        "none needed"
+    } else if undecided {
+        "undecided"
+    } else {
+        impostors::strength(margin)
+    };
+    let mut text = if none_needed {
+        format!(
+            "no extra effect is needed: nothing weighed beats noise alone by a meaningful margin (the best, {}, by {:.1} in log10 Bayes factor)",
+            best.0, best.1
+        )
+    } else if undecided {
+        format!(
+            "undecided between {} and {}: the margin, {:.1} in log10 Bayes factor, is within twice the evidence's error ({:.1}); \
+             more or better data, or a longer posterior run (--posterior-steps), are needed to tell them apart",
+            best.0, runner.0, margin, error
+        )
+    } else {
+        format!(
+            "best supported: {} (log10 Bayes factor {:.1} against no extra effect); over the runner-up, {}, by {:.1} in log10 \
+             (error {:.1}): {} (Kass & Raftery 1995)",
+            best.0, best.1, runner.0, margin, error, strength
+        )
+    };
+    if perturber.is_none() {
+        let _ = write!(
+            text,
+            "; the perturber itself was not weighed (no posterior was run), so this ranks only the alternatives"
+        );
     }
     ExplanationFile {
-        best: best.0.clone(),
+        best: if none_needed {
+            "no extra effect (noise alone)".into()
+        } else if undecided {
+            "undecided".into()
+        } else {
+            best.0.clone()
+        },
         runner_up: runner.0.clone(),
         log10_margin: margin,
         strength: strength.into(),

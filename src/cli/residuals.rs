@@ -64,6 +64,25 @@ pub(super) fn force_model(known: &[Body]) -> ForceModel {
     model
 }
 
+/// The force model and the tracked body from `--known`, `--tracked-mass`
+/// and `--kind`. A tracked planet cannot also be a known body.
+pub(super) fn model_from_input(
+    input: &super::args::InputArgs,
+) -> Result<(ForceModel, crate::dynamics::TrackedBody), CliError> {
+    let known = parse_known(&input.known).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+    let tracked = crate::dynamics::TrackedBody::parse(&input.tracked_mass, input.kind.as_deref())
+        .map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+    if let Some(b) = tracked.named
+        && known.contains(&b)
+    {
+        return Err(CliError::bad_input(anyhow::anyhow!(
+            "--tracked-mass {b}: {b} is also in --known; the tracked body cannot pull on itself (leave it out of --known)"
+        )));
+    }
+    let model = force_model(&known).with_tracked_gm(tracked.gm_au3_per_day2);
+    Ok((model, tracked))
+}
+
 /// The ephemeris: the embedded VSOP87A tabulated over the observed span, or
 /// an SPK file. Every observation must lie inside its coverage.
 pub(super) fn load_ephemeris(
@@ -128,8 +147,7 @@ fn input_error(e: InputError) -> CliError {
 
 pub(super) fn run(args: &ResidualsArgs) -> Result<(), CliError> {
     let (observations, sites) = read_inputs(&args.input.obs, args.input.sites.as_ref())?;
-    let known = parse_known(&args.input.known).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
-    let model = force_model(&known);
+    let (model, _tracked) = model_from_input(&args.input)?;
     let ephemeris = load_ephemeris(&args.input.ephemeris, &model, &observations)?;
     let epoch = match &args.epoch {
         Some(text) => Some(tdb_days_from_j2000(

@@ -7,7 +7,7 @@ use anyhow::Context;
 
 use super::CliError;
 use super::args::{SensitivityArgs, SensitivityCommand};
-use super::residuals::{force_model, load_ephemeris, parse_known, read_inputs};
+use super::residuals::{load_ephemeris, read_inputs};
 use crate::io::write_atomically;
 use crate::perturber::search::SearchSettings;
 use crate::perturber::sensitivity::{Cell, SensitivitySettings, compute_cells, contour};
@@ -52,8 +52,7 @@ pub(super) fn run(args: &SensitivityArgs) -> Result<(), CliError> {
         }
         None => None,
     };
-    let known = parse_known(&input.known).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
-    let model = force_model(&known);
+    let (model, _tracked) = super::residuals::model_from_input(input)?;
     let (observations, sites, ephemeris) = match &args.orbit {
         None => {
             let (observations, sites) = read_inputs(&input.obs, input.sites.as_ref())?;

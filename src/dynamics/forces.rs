@@ -1,7 +1,7 @@
 //! The heliocentric force model and its variational equations.
 //!
-//! Propagated bodies: the tracked body (massless, index 0) and zero or more
-//! perturbers (massive, indices 1..). Known bodies (planets) are not
+//! Propagated bodies: the tracked body (index 0, massless unless its GM is
+//! given) and zero or more perturbers (massive, indices 1..). Known bodies (planets) are not
 //! integrated: their heliocentric positions come from an ephemeris. In
 //! heliocentric coordinates the acceleration of propagated body i is
 //!
@@ -71,6 +71,13 @@ pub struct ForceModel {
     pub known: Vec<KnownBody>,
     /// Whether to add the 1PN solar relativistic term.
     pub relativity: bool,
+    /// GM of the tracked body itself (0 for a massless test body). A planet's
+    /// own mass matters at the precision of real data: in the two-body term
+    /// it is -(mu_sun + mu_tracked) f(r), and it pulls on the perturbers
+    /// (directly and through the Sun's reflex). Leaving Uranus's GM out
+    /// moves its fitted orbit by about 3" over a century (mean motion and
+    /// distance no longer obey Kepler's third law with the right GM).
+    pub tracked_gm_au3_per_day2: f64,
 }
 
 impl ForceModel {
@@ -81,6 +88,7 @@ impl ForceModel {
             folded: Vec::new(),
             known: Vec::new(),
             relativity: false,
+            tracked_gm_au3_per_day2: 0.0,
         }
     }
 
@@ -91,6 +99,7 @@ impl ForceModel {
             folded: Vec::new(),
             known: bodies.iter().map(|&b| KnownBody { body: b, gm_au3_per_day2: b.gm_au3_per_day2() }).collect(),
             relativity: false,
+            tracked_gm_au3_per_day2: 0.0,
         }
     }
 
@@ -166,6 +175,18 @@ impl ForceModel {
         Ok((p / m, v / m))
     }
 
+    /// The same model with the tracked body's own GM (au^3/day^2).
+    pub fn with_tracked_gm(mut self, gm_au3_per_day2: f64) -> Self {
+        self.tracked_gm_au3_per_day2 = gm_au3_per_day2;
+        self
+    }
+
+    /// GM of the two-body problem of the tracked body about the central
+    /// mass: what Kepler's third law uses for it.
+    pub fn tracked_two_body_gm_au3_per_day2(&self) -> f64 {
+        self.central_gm_au3_per_day2() + self.tracked_gm_au3_per_day2
+    }
+
     /// The same model with the 1PN solar term switched on or off.
     pub fn with_relativity(mut self, on: bool) -> Self {
         self.relativity = on;
@@ -217,7 +238,7 @@ pub(crate) type NodeCache = HashMap<(u64, u64), Vec<Vec3>>;
 pub(crate) struct GravitySystem<'a> {
     model: &'a ForceModel,
     ephemeris: &'a dyn Ephemeris,
-    /// GM of each propagated body (0 for the tracked body).
+    /// GM of each propagated body (the tracked body first).
     masses: Vec<f64>,
     /// Number of parameters with variational equations (0 for none).
     n_params: usize,
@@ -234,7 +255,7 @@ pub(crate) struct GravitySystem<'a> {
 }
 
 impl<'a> GravitySystem<'a> {
-    /// `masses[0]` must be 0 (the tracked body). With `partials`, parameters are
+    /// `masses[0]` is the tracked body's GM (0 for a test body). With `partials`, parameters are
     /// the tracked body's initial state (6), then per perturber its initial
     /// state (6) and GM (1).
     pub(crate) fn new(

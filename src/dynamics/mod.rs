@@ -7,14 +7,17 @@
 //!   term) and its variational equations.
 //! - [`integrator`]: the 15th-order Gauss-Radau integrator with dense output.
 //! - [`propagate`]: "states (and partials) of these bodies at these epochs".
+//! - [`tracked`]: what the tracked body is (its own GM and its kind).
 
 pub mod forces;
 pub mod integrator;
 pub mod kepler;
 pub mod propagate;
+pub mod tracked;
 
 pub use forces::{ForceModel, KnownBody};
 pub use propagate::{InitialState, Perturber, PropagationSettings, PropagationStats, Propagator, Trajectory};
+pub use tracked::{BodyKind, TrackedBody};
 
 use crate::ephemeris::EphemerisError;
 

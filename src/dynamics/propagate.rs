@@ -202,7 +202,7 @@ impl<'a> Propagator<'a> {
 
     fn run(&mut self, initial: &InitialState, epochs: &[f64], replay: bool) -> Result<Trajectory, PlanOutcome> {
         let t0 = initial.t0_tdb_days;
-        let mut masses = vec![0.0];
+        let mut masses = vec![self.model.tracked_gm_au3_per_day2];
         masses.extend(initial.perturbers.iter().map(|p| p.gm_au3_per_day2));
         let settings = self.settings;
         let model = self.model;

@@ -92,7 +92,56 @@ pub struct InferSummary {
     pub diagnostics: Option<DiagnosticsFile>,
     /// The search products: credible areas and modes (absent without a posterior).
     pub sky: Option<SkyFile>,
+    /// What the tracked body is and which observations were left out.
+    pub tracked: TrackedFile,
+    pub outliers: OutlierFile,
+    /// How the linear model was brought to the data in the nonlinear regime.
+    pub nonlinear_stage: Option<NonlinearStageFile>,
+    /// For a non-detection: 95% upper limits on the mass by distance band
+    /// (heliocentric, at the reference epoch); empty for a detection.
+    pub upper_limits: Vec<UpperLimitFile>,
     pub warnings: Vec<String>,
+}
+
+#[derive(Debug, Serialize, Clone)]
+pub struct UpperLimitFile {
+    pub distance_au: [f64; 2],
+    pub mass_earth_95: f64,
+    pub n_samples: usize,
+}
+
+#[derive(Debug, Serialize, Clone)]
+pub struct TrackedFile {
+    pub kind: String,
+    pub mass_earth: f64,
+    pub gm_au3_per_day2: f64,
+    /// The planet whose GM was used, when given by name.
+    pub named: Option<String>,
+    /// Width of the non-gravitational prior at 1 au (au/day^2; 0: not offered).
+    pub nongrav_prior_au_per_day2: f64,
+}
+
+#[derive(Debug, Serialize, Clone)]
+pub struct OutlierFile {
+    /// The threshold in sigma (both coordinates together), absent when off.
+    pub threshold_sigma: Option<f64>,
+    /// The model the observations were judged against.
+    pub judged_against: String,
+    /// Observations left out by hand (file:line).
+    pub excluded_by_hand: Vec<String>,
+    /// Observations set aside by the threshold (file:line).
+    pub set_aside: Vec<String>,
+}
+
+#[derive(Debug, Serialize, Clone)]
+pub struct NonlinearStageFile {
+    /// Rounds of refine-and-recentre done.
+    pub rounds: usize,
+    /// The full model's chi-square at the centre of the final kernel.
+    pub chi2_at_centre: f64,
+    /// Chi-square drop of the centre against the null model.
+    pub delta_chi2_at_centre: f64,
+    pub note: String,
 }
 
 #[derive(Debug, Serialize, Clone)]

@@ -250,8 +250,10 @@ pub fn grid_search(
     order.sort_by(|&a, &b| scored[b].delta_chi2.total_cmp(&scored[a].delta_chi2));
     let grid_best = order.first().map_or(0.0, |&i| scored[i].delta_chi2);
     let seeds = distinct(order.iter().map(|&i| scored[i]), 10.0, 1.5, f64::INFINITY, 24);
-    let mut refined: Vec<Scored> =
-        seeds.par_iter().map(|s| refine_in_kernel(kernel, s, gm_max, settings.min_separation_au)).collect();
+    let mut refined: Vec<Scored> = seeds
+        .par_iter()
+        .map(|s| refine_in_kernel(kernel, s, gm_max, settings.min_separation_au, settings.distance_au))
+        .collect();
     refined.sort_by(|a, b| b.delta_chi2.total_cmp(&a.delta_chi2));
     let basins = distinct(
         refined.into_iter(),
@@ -333,6 +335,8 @@ struct KernelCost<'k> {
     v0: f64,
     gm_max: f64,
     min_sep: f64,
+    /// The searched heliocentric distance range (au): a hard bound.
+    distance_au: (f64, f64),
 }
 
 impl CostFunction for KernelCost<'_> {
@@ -344,6 +348,10 @@ impl CostFunction for KernelCost<'_> {
             position_au: Vec3::new(p[0], p[1], p[2]) * self.r0,
             velocity_au_per_day: Vec3::new(p[3], p[4], p[5]) * self.v0,
         };
+        let d = h.position_au.norm();
+        if !(self.distance_au.0..=self.distance_au.1).contains(&d) {
+            return Ok(0.0);
+        }
         let mut scratch = vec![0.0; self.kernel.n_residuals()];
         Ok(score(self.kernel, &h, self.gm_max, self.min_sep, &mut scratch).map_or(0.0, |s| -s.delta_chi2))
     }
@@ -351,7 +359,13 @@ impl CostFunction for KernelCost<'_> {
 
 /// Improves a grid cell by Nelder-Mead (argmin) on its 6-dimensional state
 /// through the kernel; keeps the cell when nothing better is found.
-fn refine_in_kernel(kernel: &LinearKernel, start: &Scored, gm_max: f64, min_sep: f64) -> Scored {
+fn refine_in_kernel(
+    kernel: &LinearKernel,
+    start: &Scored,
+    gm_max: f64,
+    min_sep: f64,
+    distance_au: (f64, f64),
+) -> Scored {
     let (r, v) = (start.hypothesis.position_au, start.hypothesis.velocity_au_per_day);
     let (r0, v0) = (r.norm(), v.norm());
     let p0 = vec![r.x / r0, r.y / r0, r.z / r0, v.x / v0, v.y / v0, v.z / v0];
@@ -361,7 +375,7 @@ fn refine_in_kernel(kernel: &LinearKernel, start: &Scored, gm_max: f64, min_sep:
         p[i] += if i < 3 { 0.04 } else { 0.08 };
         simplex.push(p);
     }
-    let cost = KernelCost { kernel, r0, v0, gm_max, min_sep };
+    let cost = KernelCost { kernel, r0, v0, gm_max, min_sep, distance_au };
     let Ok(solver) = NelderMead::new(simplex).with_sd_tolerance(1e-4) else {
         return *start;
     };
@@ -376,8 +390,9 @@ fn refine_in_kernel(kernel: &LinearKernel, start: &Scored, gm_max: f64, min_sep:
         velocity_au_per_day: Vec3::new(best[3], best[4], best[5]) * v0,
     };
     let mut scratch = vec![0.0; kernel.n_residuals()];
+    let inside = (distance_au.0..=distance_au.1).contains(&h.position_au.norm());
     match score(kernel, &h, gm_max, min_sep, &mut scratch) {
-        Some(s) if s.delta_chi2 > start.delta_chi2 => s,
+        Some(s) if inside && s.delta_chi2 > start.delta_chi2 => s,
         _ => *start,
     }
 }

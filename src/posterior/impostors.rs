@@ -35,7 +35,8 @@ pub struct ImpostorPriors {
     /// Multiplies the published GM uncertainties.
     pub gm_inflation: f64,
     /// Standard deviation of each non-gravitational component at 1 au,
-    /// au/day^2.
+    /// au/day^2; 0 when the tracked body cannot have one (the model is then
+    /// not offered).
     pub nongrav_au_per_day2: f64,
     /// Standard deviation of each systematic offset, arcsec.
     pub offset_arcsec: f64,
@@ -51,6 +52,27 @@ impl Default for ImpostorPriors {
     /// catalogues; common practice).
     fn default() -> Self {
         ImpostorPriors { gm_inflation: 1000.0, nongrav_au_per_day2: 1e-8, offset_arcsec: 0.2 }
+    }
+}
+
+/// The width of the non-gravitational prior for a kind of tracked body,
+/// au/day^2 at 1 au (0: not a possible explanation).
+///
+/// - Planets and dwarf planets: 0. Thermal recoil scales as 1/(diameter)
+///   and is about 1e-14 au/day^2 at 1 au for a 1 km body (Farnocchia et al.
+///   2013, Icarus 224, 1, their A2 values for near-Earth asteroids; from
+///   memory): below 1e-17 for bodies of hundreds of km, and a further
+///   factor r^-2 smaller at their distances. Nothing outgasses there.
+/// - Small bodies: 1e-13, covering the thermal recoil of sub-km bodies
+///   (same source) with room to spare.
+/// - Comets: 1e-8, the order of fitted A1 and A2 of active comets
+///   (Marsden, Sekanina & Yeomans 1973, AJ 78, 211; from memory).
+pub fn nongrav_prior_for(kind: crate::dynamics::BodyKind) -> f64 {
+    use crate::dynamics::BodyKind;
+    match kind {
+        BodyKind::Planet | BodyKind::DwarfPlanet => 0.0,
+        BodyKind::SmallBody => 1e-13,
+        BodyKind::Comet => 1e-8,
     }
 }
 

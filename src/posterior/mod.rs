@@ -40,6 +40,12 @@ pub struct NonlinearLikelihood<'a> {
     base: Vec<crate::reference::Prediction>,
     emission: Vec<f64>,
     models: Vec<Mutex<OrbitModel<'a>>>,
+    /// The null model's whitened, projected residuals.
+    null_residuals: Vec<f64>,
+    /// (|y_null|^2 - |y'|^2) / 2, with y' the kernel's residuals: zero for
+    /// the null kernel, the constant that puts a recentred kernel's
+    /// likelihood on the same footing otherwise.
+    offset: f64,
 }
 
 impl<'a> NonlinearLikelihood<'a> {
@@ -63,7 +69,21 @@ impl<'a> NonlinearLikelihood<'a> {
         for _ in 1..rayon::current_num_threads() {
             models.push(Mutex::new(make()?));
         }
-        Ok(NonlinearLikelihood { kernel, observations, state: null.state, base, emission, models })
+        let mut null_residuals = vec![0.0; 2 * observations.len()];
+        crate::reference::whitened_residuals(observations, &base, &kernel.used, &mut null_residuals);
+        kernel.project(&mut null_residuals);
+        let y0: f64 = null_residuals.iter().map(|x| x * x).sum();
+        let y1: f64 = kernel.residuals.iter().map(|x| x * x).sum();
+        Ok(NonlinearLikelihood {
+            kernel,
+            observations,
+            state: null.state,
+            base,
+            emission,
+            models,
+            null_residuals,
+            offset: 0.5 * (y0 - y1),
+        })
     }
 
     /// ln L (the chi-square drop over 2) of a sample; `None` when the
@@ -91,8 +111,9 @@ impl<'a> NonlinearLikelihood<'a> {
             signal[2 * k + 1] = w2;
         }
         self.kernel.project(&mut signal);
-        let (sy, ss) = self.kernel.signal_products(&signal);
-        Some(sy - 0.5 * ss)
+        let ss: f64 = signal.iter().map(|x| x * x).sum();
+        let sy: f64 = signal.iter().zip(&self.null_residuals).map(|(a, b)| a * b).sum();
+        Some(sy - 0.5 * ss - self.offset)
     }
 }
 

@@ -333,7 +333,7 @@ fn preliminary_orbit(
             }
         }
     }
-    let mu = force_model.central_gm_au3_per_day2();
+    let mu = force_model.tracked_two_body_gm_au3_per_day2();
     let mut scored: Vec<(f64, Vec<f64>, String)> = Vec::new();
     for &(i, j, k) in &triplets {
         for c in gauss_candidates([line(i), line(j), line(k)], mu) {
