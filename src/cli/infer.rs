@@ -782,6 +782,10 @@ fn exclude_by_hand(
     Ok((kept, out.into_iter().map(|o| o.source).collect()))
 }
 
+/// Chi-square drop above which a detection counts as strong enough to
+/// recentre the kernel on its refined solution.
+const STRONG_DELTA_CHI2: f64 = 500.0;
+
 /// Rounds of refine-and-recentre at most.
 const MAX_RECENTRE_ROUNDS: usize = 3;
 
@@ -905,7 +909,25 @@ fn search_stage(
             return Ok(stage);
         }
     };
-    if !stage.detected() {
+    // Recentre only in the strong regime, where the linear kernel's error
+    // at the best solution changes the chi-square by more than 1
+    // (error share f: about f^2 times the drop) and the drop is large
+    // enough (above STRONG_DELTA_CHI2) for a refined solution to be
+    // trusted as the centre; weak detections keep the null kernel and its
+    // broad posterior.
+    let strong = stage.detected() && best.delta_chi2 > STRONG_DELTA_CHI2 && {
+        let (_, f) = linearisation_error(
+            &best,
+            &stage.null,
+            &stage.kernel,
+            &stage.observations,
+            &stage.geometry,
+            model,
+            ephemeris,
+        )?;
+        f * f * best.delta_chi2 > 1.0
+    };
+    if !strong {
         stage.refined = Some(current);
         return Ok(stage);
     }

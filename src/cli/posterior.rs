@@ -379,13 +379,31 @@ pub(super) fn run(args: &InferArgs, out: &Path, input: &Inputs) -> Result<Outcom
     let (ln_z, ln_z_err) = sampler::combined_evidence(&states, sampler::thermodynamic_evidence);
     let (ss_z, ss_err) = sampler::combined_evidence(&states, sampler::stepping_stone_evidence);
     let (ln_z, ss_z) = (ln_z + shift, ss_z + shift);
+    // Two estimates of the same number: thermodynamic integration (whose
+    // discretisation error grows with the signal) and stepping stones over
+    // the whole ladder. When they agree within three combined errors the
+    // tighter one is reported; when they do not, the thermodynamic value
+    // with its error widened to cover the disagreement.
+    let diff = (ln_z - ss_z).abs();
+    let consistent = diff <= 3.0 * ln_z_err.hypot(ss_err);
+    let (z, z_err, chosen) = if consistent && ss_err.is_finite() && ss_err < ln_z_err {
+        (ss_z, ss_err, "stepping stones over the whole ladder")
+    } else if consistent {
+        (ln_z, ln_z_err, "thermodynamic integration")
+    } else {
+        (
+            ln_z,
+            ln_z_err.max(diff),
+            "thermodynamic integration, its error widened to its disagreement with stepping stones",
+        )
+    };
     let evidence = (n_t >= 2).then(|| EvidenceFile {
-        ln_bayes_factor: ln_z,
-        ln_bayes_factor_error: ln_z_err,
-        log10_bayes_factor: ln_z / std::f64::consts::LN_10,
-        log10_bayes_factor_error: ln_z_err / std::f64::consts::LN_10,
+        ln_bayes_factor: z,
+        ln_bayes_factor_error: z_err,
+        log10_bayes_factor: z / std::f64::consts::LN_10,
+        log10_bayes_factor_error: z_err / std::f64::consts::LN_10,
         method: format!(
-            "thermodynamic integration over {n_t} rungs (trapezoid in ln beta; stepping stone to the prior), mean of {} runs, the linear kernel's likelihood; stepping stones over the whole ladder give ln B = {ss_z:.2} +- {ss_err:.2}",
+            "{chosen}, mean of {} runs over {n_t} rungs, the linear kernel's likelihood; thermodynamic integration (trapezoid in ln beta; stepping stone to the prior) gives ln B = {ln_z:.2} +- {ln_z_err:.2}, stepping stones over the whole ladder ln B = {ss_z:.2} +- {ss_err:.2}",
             args.runs
         ),
     });
