@@ -301,3 +301,33 @@ fn bad_scenarios_and_bad_infer_options_name_what_is_wrong() {
     assert!(String::from_utf8_lossy(&out.stderr).contains("--nongrav-prior"));
     assert!(case.nothing_written());
 }
+
+#[test]
+fn bad_tracked_body_and_outlier_options_are_refused_before_any_work() {
+    let contents = format!("{HEADER}{}\n", good_rows());
+    expect_bad("tracked-mass", &contents, &["--tracked-mass", "vulcan"], &["!--tracked-mass", "!vulcan"]);
+    expect_bad("kind", &contents, &["--kind", "asteroidish"], &["!--kind", "!asteroidish"]);
+    // A tracked planet cannot also pull on itself as a known body.
+    expect_bad("self", &contents, &["--tracked-mass", "jupiter", "--known", "jupiter,saturn"], &["!--known"]);
+    let case = Case::new("infer-outliers");
+    let obs = case.file("obs.csv", contents.as_bytes());
+    for (extra, needle) in [
+        (["--reject-sigma", "1"], "--reject-sigma"),
+        (["--reject-sigma", "lots"], "--reject-sigma"),
+        (["--exclude", "99"], "line 99 of"),
+        (["--exclude", "3-2"], "--exclude"),
+    ] {
+        let out = latens()
+            .args(["infer", "--obs"])
+            .arg(&obs)
+            .args(extra)
+            .arg("--out")
+            .arg(case.dir.join("out"))
+            .output()
+            .unwrap();
+        let err = String::from_utf8_lossy(&out.stderr);
+        assert_eq!(out.status.code(), Some(2), "{extra:?}: {err}");
+        assert!(err.contains(needle), "{extra:?}: {err}");
+        assert!(case.nothing_written(), "{extra:?}: something was written");
+    }
+}

@@ -73,6 +73,7 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
     }
     for (v, name) in [
         (args.gm_prior_inflation, "--gm-prior-inflation"),
+        // Checked only when given; its default follows --kind.
         (args.nongrav_prior.unwrap_or(1.0), "--nongrav-prior"),
         (args.offset_prior, "--offset-prior"),
         (args.max_eccentricity, "--max-eccentricity"),
@@ -771,7 +772,8 @@ fn exclude_by_hand(
     let line_of = |o: &Observation| o.source.rsplit_once(':').and_then(|(_, l)| l.parse::<usize>().ok());
     for l in &lines {
         if !observations.iter().any(|o| line_of(o) == Some(*l)) {
-            return Err(CliError::bad_input(anyhow::anyhow!("--exclude: line {l} holds no observation")));
+            let file = observations.first().and_then(|o| o.source.rsplit_once(':')).map_or("", |(f, _)| f);
+            return Err(CliError::bad_input(anyhow::anyhow!("--exclude: line {l} of {file} holds no observation")));
         }
     }
     let (out, kept): (Vec<Observation>, Vec<Observation>) =
@@ -819,7 +821,9 @@ impl SearchStage {
         model: &crate::dynamics::ForceModel,
         ephemeris: &dyn Ephemeris,
     ) -> Result<Vec<f64>, CliError> {
-        let pairs: Vec<(f64, f64)> = match (&self.refined, self.detected()) {
+        let n = self.observations.len();
+        let mut w = vec![0.0; 2 * n];
+        match (&self.refined, self.detected()) {
             (Some(r), true) => {
                 let mut m = OrbitModel::new(
                     &self.observations,
@@ -832,28 +836,15 @@ impl SearchStage {
                 m.perturbers = vec![r.perturber];
                 m.predict(&r.tracked_state, false).map_err(CliError::failed)?;
                 let pred = m.predict(&r.tracked_state, false).map_err(CliError::failed)?;
-                self.observations
-                    .iter()
-                    .zip(&pred)
-                    .map(|(o, p)| {
-                        crate::reference::residual_arcsec_between(
-                            &crate::frames::RaDec { ra_rad: o.ra_rad, dec_rad: o.dec_rad },
-                            &p.radec,
-                        )
-                    })
-                    .collect()
+                crate::reference::whitened_residuals(&self.observations, &pred, &vec![true; n], &mut w);
             }
-            _ => self.null.residuals.iter().map(|r| (r.ra_arcsec, r.dec_arcsec)).collect(),
-        };
-        Ok(self
-            .observations
-            .iter()
-            .zip(pairs)
-            .map(|(o, r)| {
-                let (a, b) = whiten(o, r);
-                a * a + b * b
-            })
-            .collect())
+            _ => {
+                for (k, (o, r)) in self.observations.iter().zip(&self.null.residuals).enumerate() {
+                    (w[2 * k], w[2 * k + 1]) = whiten(o, (r.ra_arcsec, r.dec_arcsec));
+                }
+            }
+        }
+        Ok(w.chunks(2).map(|p| p[0] * p[0] + p[1] * p[1]).collect())
     }
 }
 
@@ -983,19 +974,14 @@ fn search_stage(
         };
         stage.rounds = round;
         if !moved {
-            // Keep distinct basins within the usual window of the best.
-            let best = basins.first().map_or(0.0, |b| b.delta_chi2);
-            let mut kept: Vec<Scored> = Vec::new();
-            for b in basins {
-                let far = kept.iter().all(|k| {
-                    k.hypothesis.position_au.unit().dot(b.hypothesis.position_au.unit())
-                        < settings.basin_separation_deg.to_radians().cos()
-                        || (k.hypothesis.position_au.norm() / b.hypothesis.position_au.norm()).ln().abs() > 2f64.ln()
-                });
-                if b.delta_chi2 >= best - settings.basin_delta_chi2 && far && kept.len() < settings.max_basins {
-                    kept.push(b);
-                }
-            }
+            // Distinct basins within the usual window of the best, as the grid keeps them.
+            let kept = crate::perturber::search::distinct(
+                basins.into_iter(),
+                settings.basin_separation_deg,
+                2.0,
+                settings.basin_delta_chi2,
+                settings.max_basins,
+            );
             stage.basins = kept;
             stage.centred = Some(centred);
             break;

@@ -300,7 +300,7 @@ pub fn grid_search(
 /// From candidates sorted best first, those distinct from every earlier kept
 /// one (directions more than `sep_deg` apart, or distances more than a
 /// factor `ratio` apart), within `window` of the best, at most `max`.
-fn distinct(
+pub fn distinct(
     candidates: impl Iterator<Item = Scored>,
     sep_deg: f64,
     ratio: f64,

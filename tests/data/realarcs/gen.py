@@ -125,8 +125,8 @@ def de405_astrometric(target, jd_tt):
 
 def utc_text_from_tt(jd_tt):
     jd_utc = jd_tt - 42.184 / DAY_S
-    t = ts.tt_jd(jd_utc)  # calendar conversion only
-    # Build the calendar date of jd_utc directly (Julian day to Gregorian).
+    # The Gregorian calendar date of jd_utc (Meeus, Astronomical Algorithms,
+    # ch. 7; from memory, checked by the round trip through jd_tt_from_text).
     z = jd_utc + 0.5
     zi = int(np.floor(z))
     frac = z - zi
@@ -143,11 +143,12 @@ def utc_text_from_tt(jd_tt):
     hh = int(secs // 3600)
     mm = int((secs - 3600 * hh) // 60)
     ss = secs - 3600 * hh - 60 * mm
-    del t
     return f"{year:04d}-{month:02d}-{day:02d}T{hh:02d}:{mm:02d}:{ss:09.6f}Z", jd_utc
 
 
 def jd_tt_from_text(text):
+    """Julian day (TT) of an ISO UTC text before 1972 (Fliegel & Van
+    Flandern 1968 day number; common practice)."""
     y, mo, rest = text.split("-", 2)
     d, hms = rest.split("T")
     hh, mm, ss = hms.rstrip("Z").split(":")
