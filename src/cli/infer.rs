@@ -173,7 +173,8 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
         })
         .collect::<Result<_, _>>()?;
     for (k, d) in described.iter().enumerate() {
-        if d.solar_elongation_deg < SUN_WARNING_DEG {
+        // Only a detection sends anyone to the telescope.
+        if d.solar_elongation_deg < SUN_WARNING_DEG && fap < DETECTION_FAP {
             warnings.push(format!(
                 "basin {} lies {:.0} deg from the Sun at the search epoch: pointing a telescope near the Sun can destroy eyes \
                  and instruments; observe it only with proper solar safeguards, after sunset, or wait for it to move away",

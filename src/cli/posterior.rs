@@ -622,11 +622,17 @@ fn explain(perturber: Option<(f64, f64)>, impostors: &[ImpostorFile]) -> Explana
     } else {
         impostors::strength(margin)
     };
+    let noise_first = options.iter().position(|o| o.1 == 0.0 && o.2 == 0.0 && o.0.starts_with("no extra effect"));
     let mut text = if none_needed {
-        format!(
-            "no extra effect is needed: nothing weighed beats noise alone by a meaningful margin (the best, {}, by {:.1} in log10 Bayes factor)",
-            best.0, best.1
-        )
+        // Name the strongest alternative, not noise itself.
+        let rival = options.iter().enumerate().find(|(k, _)| Some(*k) != noise_first).map(|(_, o)| o);
+        match rival {
+            Some(r) => format!(
+                "no extra effect is needed: nothing weighed beats noise alone by a meaningful margin (the strongest, {}, by {:.1} in log10 Bayes factor)",
+                r.0, r.1
+            ),
+            None => "no extra effect is needed: nothing weighed beats noise alone".to_string(),
+        }
     } else if undecided {
         format!(
             "undecided between {} and {}: the margin, {:.1} in log10 Bayes factor, is within twice the evidence's error ({:.1}); \
