@@ -469,7 +469,7 @@ pub(super) fn run(args: &InferArgs, out: &Path, input: &Inputs) -> Result<Outcom
             heliocentric_distance_au_log_uniform: [prior.distance_au.0, prior.distance_au.1],
             max_eccentricity: prior.max_eccentricity,
             min_separation_au: prior.min_separation_au,
-            description: "mass log-uniform; position isotropic with log-uniform heliocentric distance; velocity uniform over bound orbits with e <= max_eccentricity; orbits passing within min_separation_au of the tracked body excluded".into(),
+            description: "mass log-uniform; position isotropic with log-uniform heliocentric distance; eccentricity uniform on [0, max_eccentricity], the velocity given e spread as in a uniform ball of bound velocities; orbits passing within min_separation_au of the tracked body excluded".into(),
         },
     };
     let diagnostics = DiagnosticsFile {

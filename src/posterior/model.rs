@@ -8,10 +8,16 @@
 //! - mass log-uniform on [m_min, m_max];
 //! - position isotropic with a log-uniform heliocentric distance on
 //!   [d_min, d_max]: density 1 / (4 pi r^3 ln(d_max/d_min));
-//! - velocity uniform over the bound velocities whose two-body orbit about
-//!   the Sun has eccentricity at most e_max: density
-//!   1 / (F(e_max) 4/3 pi v_esc(r)^3), where F is the share of the escape
-//!   ball with e <= e_max (the same at every r, computed once by quadrature);
+//! - velocity: eccentricity of the two-body orbit about the Sun uniform on
+//!   [0, e_max], and given e, the velocity spread as in a uniform ball of
+//!   bound velocities (true anomaly f with density proportional to
+//!   1/sqrt(1 + e cos f), the orbit plane's roll about r uniform). In
+//!   velocity space that is the density 1 / (pi e_max e K(e) v_c(r)^3),
+//!   v_c = sqrt(GM/r), K(e) = integral over f of (1 + e cos f)^(-1/2)
+//!   (derivation in docs/method.md). A uniform ball alone would give
+//!   e the density ~ e K(e) (near zero at e = 0), a prior against the
+//!   near-circular orbits planets have, which pushed real-data posteriors
+//!   along the mass-distance ridge to eccentric far orbits;
 //! - hypotheses passing within `min_separation_au` of the tracked body are
 //!   excluded (the linear kernel does not hold there); the prior is not
 //!   renormalised for that small volume.
@@ -48,33 +54,73 @@ pub struct PerturberPrior {
     pub min_separation_au: f64,
 }
 
-/// Share of the ball |v| < v_esc whose orbits have e <= e_max (independent
-/// of r, as e depends only on |v|/v_circ and the angle between r and v):
-/// e^2 = 1 - (2 - u^2) u^2 sin^2(psi), u = |v|/v_circ. Midpoint quadrature
-/// in (u, cos psi), exact to about 1e-5.
-pub fn bound_share(e_max: f64) -> f64 {
-    const N: usize = 1200;
-    let umax = 2f64.sqrt();
-    let (mut inside, mut all) = (0.0, 0.0);
-    for i in 0..N {
-        let u = (i as f64 + 0.5) / N as f64 * umax;
-        for j in 0..N {
-            let c = -1.0 + (j as f64 + 0.5) / N as f64 * 2.0;
-            let e2 = 1.0 - (2.0 - u * u) * u * u * (1.0 - c * c);
-            all += u * u;
-            if e2 <= e_max * e_max {
-                inside += u * u;
-            }
-        }
+/// K(e) = integral over f in [0, 2 pi) of (1 + e cos f)^(-1/2) for
+/// 0 <= e < 1: 4/sqrt(1+e) times the complete elliptic integral of the
+/// first kind with parameter m = 2e/(1+e), computed by the
+/// arithmetic-geometric mean, K(m) = pi / (2 AGM(1, sqrt(1-m))) (Abramowitz
+/// & Stegun 17.6), so K(e) = 2 pi / (sqrt(1+e) AGM(1, sqrt((1-e)/(1+e)))).
+pub fn anomaly_integral(e: f64) -> f64 {
+    let (mut a, mut g) = (1.0f64, ((1.0 - e) / (1.0 + e)).sqrt());
+    while (a - g).abs() > 1e-15 * a {
+        let next = 0.5 * (a + g);
+        g = (a * g).sqrt();
+        a = next;
     }
-    inside / all
+    2.0 * std::f64::consts::PI / ((1.0 + e).sqrt() * a)
+}
+
+/// Smallest eccentricity the velocity density is evaluated at: the density
+/// grows as 1/e toward circular orbits (integrably); the floor keeps a
+/// walker started on an exactly circular grid orbit from sitting on an
+/// unbounded density, and changes the prior's total by less than 1e-4.
+const E_FLOOR: f64 = 1e-4;
+
+/// ln of the prior density of the velocity `v` (au/day) at heliocentric
+/// position `r` (au), per (au/day)^3: -infinity outside the bound orbits
+/// with e <= e_max.
+pub fn velocity_log_density(r: Vec3, v: Vec3, gm_sun: f64, e_max: f64) -> f64 {
+    let rn = r.norm();
+    if v.norm_squared() >= 2.0 * gm_sun / rn {
+        return f64::NEG_INFINITY;
+    }
+    let h = r.cross(v);
+    let e = (v.cross(h) / gm_sun - r / rn).norm();
+    if e > e_max {
+        return f64::NEG_INFINITY;
+    }
+    let e = e.max(E_FLOOR);
+    let v_c = (gm_sun / rn).sqrt();
+    -(std::f64::consts::PI * e_max * e * anomaly_integral(e) * v_c.powi(3)).ln()
+}
+
+/// A velocity (au/day) drawn from the prior at heliocentric position `r`:
+/// e uniform on [0, e_max], the true anomaly by rejection from its
+/// conditional density, the orbit plane's roll about r uniform.
+pub fn draw_velocity(r: Vec3, gm_sun: f64, e_max: f64, rng: &mut impl rand::Rng) -> Vec3 {
+    let e = rng.random::<f64>() * e_max;
+    // f with density proportional to (1 + e cos f)^(-1/2): accept a
+    // uniform f with probability sqrt((1 - e) / (1 + e cos f)).
+    let f = loop {
+        let f = rng.random::<f64>() * std::f64::consts::TAU;
+        if rng.random::<f64>() <= ((1.0 - e) / (1.0 + e * f.cos())).sqrt() {
+            break f;
+        }
+    };
+    // In units of the circular speed: radial e sin f / sqrt(1 + e cos f),
+    // tangential sqrt(1 + e cos f).
+    let q = 1.0 + e * f.cos();
+    let (u_r, u_t) = (e * f.sin() / q.sqrt(), q.sqrt());
+    let dir = r.unit();
+    let t1 = dir.cross(if dir.x.abs() < 0.9 { Vec3::new(1.0, 0.0, 0.0) } else { Vec3::new(0.0, 1.0, 0.0) }).unit();
+    let t2 = dir.cross(t1);
+    let roll = rng.random::<f64>() * std::f64::consts::TAU;
+    (dir * u_r + (t1 * roll.cos() + t2 * roll.sin()) * u_t) * (gm_sun / r.norm()).sqrt()
 }
 
 /// The perturber's posterior for one kernel and prior.
 pub struct PerturberPosterior<'k> {
     pub kernel: &'k LinearKernel,
     pub prior: PerturberPrior,
-    ln_bound_share: f64,
     gm_sun: f64,
 }
 
@@ -105,21 +151,11 @@ impl PerturberSample {
 
 impl<'k> PerturberPosterior<'k> {
     pub fn new(kernel: &'k LinearKernel, prior: PerturberPrior) -> Self {
-        PerturberPosterior {
-            kernel,
-            prior,
-            ln_bound_share: bound_share(prior.max_eccentricity).ln(),
-            gm_sun: kernel.central_gm(),
-        }
+        PerturberPosterior { kernel, prior, gm_sun: kernel.central_gm() }
     }
 
-    fn eccentricity(&self, r: Vec3, v: Vec3) -> f64 {
-        let h = r.cross(v);
-        let e_vec = v.cross(h) / self.gm_sun - r / r.norm();
-        e_vec.norm()
-    }
-
-    /// A draw from the prior (rejection sampling for the velocity).
+    /// A draw from the prior: e uniform, the true anomaly by rejection from
+    /// its conditional density, the orbit plane's roll uniform.
     pub fn draw_prior(&self, rng: &mut impl rand::Rng) -> Vec<f64> {
         let p = &self.prior;
         loop {
@@ -127,21 +163,12 @@ impl<'k> PerturberPosterior<'k> {
             let r = (p.distance_au.0.ln() + rng.random::<f64>() * (p.distance_au.1 / p.distance_au.0).ln()).exp();
             let dir = random_unit(rng);
             let pos = dir * r;
-            let v_esc = (2.0 * self.gm_sun / r).sqrt();
-            for _ in 0..1000 {
-                let v = random_unit(rng) * (v_esc * rng.random::<f64>().cbrt());
-                if self.eccentricity(pos, v) <= p.max_eccentricity {
-                    let x = PerturberSample {
-                        gm_au3_per_day2: ln_m.exp() * gm_earth(),
-                        position_au: pos,
-                        velocity_au_per_day: v,
-                    }
+            let v = draw_velocity(pos, self.gm_sun, p.max_eccentricity, rng);
+            let x =
+                PerturberSample { gm_au3_per_day2: ln_m.exp() * gm_earth(), position_au: pos, velocity_au_per_day: v }
                     .to_params();
-                    if self.log_likelihood(&x).is_some() {
-                        return x;
-                    }
-                    break;
-                }
+            if self.log_likelihood(&x).is_some() {
+                return x;
             }
         }
     }
@@ -235,16 +262,9 @@ impl Target for PerturberPosterior<'_> {
         }
         // Velocity in au/day; the density is per (au/year)^3.
         let v = Vec3::new(x[4], x[5], x[6]) / JULIAN_YEAR_DAYS;
-        let v_esc = (2.0 * self.gm_sun / rn).sqrt();
-        if v.norm() >= v_esc || self.eccentricity(r, v) > p.max_eccentricity {
-            return f64::NEG_INFINITY;
-        }
-        let v_esc_per_year = v_esc * JULIAN_YEAR_DAYS;
-        let four_pi = 4.0 * std::f64::consts::PI;
-        -(m1 - m0).ln()
-            - (four_pi * rn.powi(3) * (p.distance_au.1 / p.distance_au.0).ln()).ln()
-            - self.ln_bound_share
-            - (four_pi / 3.0 * v_esc_per_year.powi(3)).ln()
+        -(m1 - m0).ln() - (4.0 * std::f64::consts::PI * rn.powi(3) * (p.distance_au.1 / p.distance_au.0).ln()).ln()
+            + velocity_log_density(r, v, self.gm_sun, p.max_eccentricity)
+            - 3.0 * JULIAN_YEAR_DAYS.ln()
     }
 
     fn log_likelihood(&self, x: &[f64]) -> Option<f64> {
@@ -266,5 +286,93 @@ impl Target for PerturberPosterior<'_> {
             let m = s.gm_au3_per_day2;
             Some(m * sy - 0.5 * m * m * ss)
         })
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use rand::SeedableRng;
+
+    #[test]
+    fn anomaly_integral_matches_scipy() {
+        // Reference: 4/sqrt(1+e) * scipy.special.ellipk(2e/(1+e)), scipy 1.x,
+        // cross-checked by scipy.integrate.quad of (1 + e cos f)^(-1/2).
+        for (e, k) in
+            [(0.0, 6.283185307179586), (0.3, 6.394779439685456), (0.6, 6.819501255891668), (0.95, 9.259326968719552)]
+        {
+            assert!((anomaly_integral(e) - k).abs() < 1e-12, "{e}: {} vs {k}", anomaly_integral(e));
+        }
+    }
+
+    /// The velocity density integrates to one over the escape ball
+    /// (midpoint quadrature in radial and tangential speed, the roll
+    /// contributing 2 pi u_t), and the eccentricity it implies is uniform.
+    #[test]
+    fn velocity_density_is_normalised_with_uniform_eccentricity() {
+        let gm = GM_SUN_AU3_PER_DAY2;
+        let r = Vec3::new(20.0, -7.0, 3.0);
+        let v_c = (gm / r.norm()).sqrt();
+        let dir = r.unit();
+        let t = dir.cross(Vec3::new(0.0, 0.0, 1.0)).unit();
+        let e_max = 0.6;
+        let n = 1500;
+        let umax = 2f64.sqrt();
+        let (mut total, mut below_03) = (0.0, 0.0);
+        for i in 0..2 * n {
+            let u_r = -umax + (i as f64 + 0.5) / n as f64 * umax;
+            for j in 0..n {
+                let u_t = (j as f64 + 0.5) / n as f64 * umax;
+                let v = (dir * u_r + t * u_t) * v_c;
+                let ld = velocity_log_density(r, v, gm, e_max);
+                if ld.is_finite() {
+                    let w = ld.exp() * 2.0 * std::f64::consts::PI * u_t * v_c.powi(3) * (umax / n as f64).powi(2);
+                    total += w;
+                    let h = r.cross(v);
+                    if (v.cross(h) / gm - dir).norm() < 0.3 {
+                        below_03 += w;
+                    }
+                }
+            }
+        }
+        assert!((total - 1.0).abs() < 5e-3, "total {total}");
+        assert!((below_03 - 0.5).abs() < 5e-3, "share below e = 0.3: {below_03}");
+    }
+
+    /// Draws have uniform eccentricity and the radial-speed distribution the
+    /// density gives (compared by importance weights on the uniform ball).
+    #[test]
+    fn draws_follow_the_density() {
+        let gm = GM_SUN_AU3_PER_DAY2;
+        let r = Vec3::new(-3.0, 40.0, 11.0);
+        let e_max = 0.6;
+        let mut rng = rand::rngs::StdRng::seed_from_u64(7);
+        let n = 40_000;
+        let (mut e_sum, mut radial_sum) = (0.0, 0.0);
+        for _ in 0..n {
+            let v = draw_velocity(r, gm, e_max, &mut rng);
+            assert!(velocity_log_density(r, v, gm, e_max).is_finite());
+            let h = r.cross(v);
+            e_sum += (v.cross(h) / gm - r.unit()).norm();
+            radial_sum += (v.dot(r.unit()) / (gm / r.norm()).sqrt()).abs();
+        }
+        // Uniform e on [0, 0.6]: mean 0.3, sd 0.6/sqrt(12) per draw.
+        let sd = 0.6 / 12f64.sqrt() / (n as f64).sqrt();
+        assert!((e_sum / n as f64 - 0.3).abs() < 4.0 * sd, "mean e {}", e_sum / n as f64);
+        // The same mean |u_r| by weighting uniform draws in the ball.
+        let v_esc = (2.0 * gm / r.norm()).sqrt();
+        let ball = 4.0 / 3.0 * std::f64::consts::PI * v_esc.powi(3);
+        let (mut w_sum, mut wr_sum) = (0.0, 0.0);
+        for _ in 0..400_000 {
+            let v = random_unit(&mut rng) * (v_esc * rng.random::<f64>().cbrt());
+            let ld = velocity_log_density(r, v, gm, e_max);
+            if ld.is_finite() {
+                let w = ld.exp() * ball;
+                w_sum += w;
+                wr_sum += w * (v.dot(r.unit()) / (gm / r.norm()).sqrt()).abs();
+            }
+        }
+        let (a, b) = (radial_sum / n as f64, wr_sum / w_sum);
+        assert!((a - b).abs() < 0.01 * a.max(b) + 2e-3, "mean |u_r|: draws {a}, weighted ball {b}");
     }
 }
