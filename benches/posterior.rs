@@ -91,7 +91,7 @@ fn main() {
         seed: 1,
         ..SamplerSettings::default()
     };
-    let start = posterior.starting_walkers(&grid.basins, &settings.initial_betas(), settings.n_walkers, 1);
+    let start = posterior.starting_walkers(&grid.basins, &settings.initial_betas(), settings.n_walkers, 1, false);
     let state = SamplerState::new(&posterior, &settings, 0, &start).expect("start");
     let t = Instant::now();
     let states = run(&posterior, &settings, vec![state], None, &AtomicBool::new(false), &|_| {}).expect("run");

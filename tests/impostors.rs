@@ -98,7 +98,7 @@ fn weigh(
         seed: 4,
         ..SamplerSettings::default()
     };
-    let start = posterior.starting_walkers(&grid.basins, &settings.initial_betas(), 32, 4);
+    let start = posterior.starting_walkers(&grid.basins, &settings.initial_betas(), 32, 4, false);
     let state = SamplerState::new(&posterior, &settings, 0, &start).unwrap();
     let states = run(&posterior, &settings, vec![state], None, &AtomicBool::new(false), &|_| {}).unwrap();
     let (z, err) = combined_evidence(&states, thermodynamic_evidence);

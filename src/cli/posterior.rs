@@ -247,6 +247,7 @@ pub(super) fn run(args: &InferArgs, out: &Path, input: &Inputs) -> Result<Outcom
         thin: 4,
         adapt: true,
         stretch_scale: 2.0,
+        mode_hop: 0.1,
         seed: args.seed,
     };
     settings
@@ -275,8 +276,13 @@ pub(super) fn run(args: &InferArgs, out: &Path, input: &Inputs) -> Result<Outcom
         let betas = settings.initial_betas();
         (0..args.runs as u64)
             .map(|r| {
-                let start =
-                    posterior.starting_walkers(input.basins, &betas, settings.n_walkers, args.seed.wrapping_add(r));
+                let start = posterior.starting_walkers(
+                    input.basins,
+                    &betas,
+                    settings.n_walkers,
+                    args.seed.wrapping_add(r),
+                    r % 2 == 1,
+                );
                 SamplerState::new(&posterior, &settings, r, &start)
             })
             .collect::<Result<Vec<_>, _>>()
@@ -570,6 +576,7 @@ fn nonlinear_steps(
         thin: 2,
         adapt: false,
         stretch_scale: 2.0,
+        mode_hop: 0.1,
         seed: seed ^ 0x6e6c,
     };
     let mut order: Vec<usize> = (0..checked.len()).filter(|&i| log_w[i].is_finite()).collect();

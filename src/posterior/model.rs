@@ -175,21 +175,26 @@ impl<'k> PerturberPosterior<'k> {
 
     /// Starting walkers for every rung: the cold rungs start in the grid's
     /// basins, shared out in proportion to their weight (half in proportion
-    /// to the basin's likelihood, half evenly, so every basin is explored),
-    /// scattered a little; a rung at inverse temperature beta draws each
-    /// walker from the prior with probability 1 - beta^(1/4) instead.
+    /// to the basin's likelihood, half evenly, so every basin is explored;
+    /// with `evenly`, all evenly), scattered a little; a rung at inverse
+    /// temperature beta draws each walker from the prior with probability
+    /// 1 - beta^(1/4) instead. Runs started with the two different shares
+    /// let the split R-hat see modes whose weights have not settled: runs
+    /// started alike can agree while both are wrong.
     pub fn starting_walkers(
         &self,
         basins: &[Scored],
         betas: &[f64],
         n_walkers: usize,
         seed: u64,
+        evenly: bool,
     ) -> Vec<Vec<Vec<f64>>> {
         let mut rng = rand::rngs::StdRng::seed_from_u64(seed ^ 0x5eed_57a7);
         let best = basins.iter().map(|b| b.delta_chi2).fold(f64::NEG_INFINITY, f64::max);
         let lik: Vec<f64> = basins.iter().map(|b| (0.5 * (b.delta_chi2 - best)).exp()).collect();
         let total: f64 = lik.iter().sum();
-        let weights: Vec<f64> = lik.iter().map(|l| 0.5 * l / total + 0.5 / basins.len() as f64).collect();
+        let share = if evenly { 0.0 } else { 0.5 };
+        let weights: Vec<f64> = lik.iter().map(|l| share * l / total + (1.0 - share) / basins.len() as f64).collect();
         betas
             .iter()
             .map(|&beta| {

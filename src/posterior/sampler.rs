@@ -3,7 +3,8 @@
 //! Each temperature holds an ensemble of walkers moved by the stretch move of
 //! Goodman & Weare (2010, Comm. App. Math. Comp. Sci. 5, 65), in the
 //! two-halves form that lets one half be updated in parallel (Foreman-Mackey
-//! et al. 2013, PASP 125, 306). Neighbouring temperatures exchange walkers
+//! et al. 2013, PASP 125, 306), with a share of mode-hopping
+//! differential-evolution moves (see [`SamplerSettings::mode_hop`]). Neighbouring temperatures exchange walkers
 //! (parallel tempering); during burn-in the ladder adapts so that the
 //! exchange rates between neighbours become equal (after Vousden, Farr &
 //! Mandel 2016, MNRAS 455, 1919; here the hottest finite temperature stays
@@ -58,6 +59,14 @@ pub struct SamplerSettings {
     pub adapt: bool,
     /// Scale a of the stretch move's g(z) ~ 1/sqrt(z) on [1/a, a].
     pub stretch_scale: f64,
+    /// Share of the moves that are mode hops instead of stretches: the
+    /// differential-evolution move with gamma = 1 (ter Braak 2006, Stat.
+    /// Comput. 16, 239), y = x + (x_j - x_k) for two walkers j, k of the
+    /// other half; when j and k sit in different modes it carries x from
+    /// one mode to the other in one step, so the modes' weights settle even
+    /// where no stretch or exchange bridges them.
+    #[serde(default)]
+    pub mode_hop: f64,
     pub seed: u64,
 }
 
@@ -72,6 +81,7 @@ impl Default for SamplerSettings {
             thin: 4,
             adapt: true,
             stretch_scale: 2.0,
+            mode_hop: 0.1,
             seed: 1,
         }
     }
@@ -299,11 +309,31 @@ pub fn advance(mut s: SamplerState, target: &dyn Target, settings: &SamplerSetti
             for w in mine.clone() {
                 let c = other.start + rng.random_range(0..half);
                 let r: f64 = rng.random();
-                let z = ((a - 1.0) * r + 1.0).powi(2) / a;
                 let u: f64 = rng.random();
-                let (xw, xc) = (s.walker(t, w), s.walker(t, c));
-                let y: Vec<f64> = (0..d).map(|i| xc[i] + z * (xw[i] - xc[i])).collect();
-                proposals.push(Proposal { t, w, z, u, y });
+                let xw = s.walker(t, w);
+                if settings.mode_hop > 0.0 && rng.random::<f64>() < settings.mode_hop {
+                    // Mode hop: y = x + (x_c - x_k), with a small jitter
+                    // (1e-4 of the difference, symmetric) so that the move
+                    // is not confined to a lattice. The proposal is
+                    // symmetric: z = 1 leaves the Jacobian term at zero.
+                    let mut k = other.start + rng.random_range(0..half - 1);
+                    if k >= c {
+                        k += 1;
+                    }
+                    let (xc, xk) = (s.walker(t, c), s.walker(t, k));
+                    let y: Vec<f64> = (0..d)
+                        .map(|i| {
+                            let jitter = 1e-4 * (2.0 * rng.random::<f64>() - 1.0);
+                            xw[i] + (xc[i] - xk[i]) * (1.0 + jitter)
+                        })
+                        .collect();
+                    proposals.push(Proposal { t, w, z: 1.0, u, y });
+                } else {
+                    let z = ((a - 1.0) * r + 1.0).powi(2) / a;
+                    let xc = s.walker(t, c);
+                    let y: Vec<f64> = (0..d).map(|i| xc[i] + z * (xw[i] - xc[i])).collect();
+                    proposals.push(Proposal { t, w, z, u, y });
+                }
             }
         }
         let evals: Vec<(f64, f64)> = proposals.par_iter().map(|p| evaluate(target, &p.y)).collect();

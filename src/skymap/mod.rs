@@ -1,14 +1,32 @@
 //! Search products on the sky: the posterior's HEALPix probability map,
 //! its credible regions as IVOA MOCs, and their connected modes.
 //!
-//! The map is an adaptive multi-order histogram in the NESTED scheme: every
-//! pixel holding more than [`SPLIT_COUNT`] samples splits into its four
-//! children, down to [`MAX_ORDER`], and never coarser than [`MIN_ORDER`]; the
-//! leaves tile the whole sky, so a compact posterior and a wide one are both
-//! resolved. A leaf's probability is its share of the samples; its density
+//! The map is a kernel density estimate of the samples' directions on the
+//! sphere, stored as a multi-order map in the NESTED scheme. Each sample
+//! spreads its unit of probability with a von Mises-Fisher kernel
+//! exp(kappa (cos theta - 1)), kappa = 1/h^2, over the pixels within 3 h of
+//! it, at the order whose pixels are about h/2 across; h is adaptive, the
+//! angle to the sample's k-th nearest neighbour, k = ceil(sqrt(n)/2)
+//! (a balloon-type adaptive kernel, Loftsgaarden & Quesenberry 1965, with
+//! the kernel of Fisher 1953). A pixel splits while a finer contribution
+//! lies inside it, and never stays coarser than [`MIN_ORDER`]; the leaves
+//! tile the whole sky. A leaf's probability is the sum of what falls in it
+//! (a coarser contribution shared evenly among its children); its density
 //! that over its area (4 pi / (12 4^order) sr, Gorski et al. 2005, ApJ 622,
 //! 759). HEALPix indexing and MOCs come from the CDS crates cdshealpix and
 //! moc.
+//!
+//! Why smoothed, not a histogram: with a few thousand samples spread over
+//! hundreds of square degrees, a histogram's highest-count pixels are partly
+//! the lucky ones, and pixels with no sample get no probability at all, so
+//! its highest-density regions were too small: on 64 seeded injections
+//! through `latens infer` they held the truth 18 times at 50% and 48 at 90%
+//! (expected 32 and 58); the samples themselves, judged by a smooth density,
+//! held it at close to the nominal rates (tests/injections.rs). The
+//! bandwidth rule was chosen on seeded vMF clouds (tests/skymap.rs): with
+//! 400 and 3000 samples the true distribution holds 0.485 and 0.489 of
+//! itself inside the 50% region, 0.926 and 0.910 inside the 90% region
+//! (half that bandwidth: 0.435 at 50% with 400 samples).
 //!
 //! The credible region at level p is the highest-density set: leaves taken
 //! by decreasing density until their probability reaches p.
@@ -23,13 +41,15 @@ use moc::moc::range::RangeMOC;
 use moc::moc::{CellMOCIterator, RangeMOCIntoIterator, RangeMOCIterator};
 use moc::qty::Hpx;
 
+use rayon::prelude::*;
+
 use crate::vec3::Vec3;
 
 /// Orders of the adaptive map.
 pub const MIN_ORDER: u8 = 3;
 pub const MAX_ORDER: u8 = 12;
-/// A pixel with more samples than this splits.
-pub const SPLIT_COUNT: usize = 32;
+/// Kernel radius in bandwidths: the kernel is cut at exp(-4.5) of its peak.
+const KERNEL_REACH: f64 = 3.0;
 
 /// Square degrees per steradian.
 pub const DEG2_PER_SR: f64 = (180.0 / std::f64::consts::PI) * (180.0 / std::f64::consts::PI);
@@ -91,12 +111,51 @@ impl SkyMap {
                 nested::hash(MAX_ORDER, lon, lat)
             })
             .collect();
-        let mut sorted = sample_hash.clone();
-        sorted.sort_unstable();
-        let n = sorted.len().max(1) as f64;
+        let n = directions.len().max(1) as f64;
+        let h = bandwidths(directions);
+        // Each sample's kernel, spread over the pixels of its cone.
+        let spread: Vec<Vec<((u8, u64), f64)>> = directions
+            .par_iter()
+            .zip(h.par_iter())
+            .map(|(&d, &h)| {
+                let order = order_for(h / 2.0);
+                let (lon, lat) = lon_lat(d);
+                let reach = (KERNEL_REACH * h).min(std::f64::consts::PI);
+                let kappa = 1.0 / (h * h);
+                let mut cells: Vec<((u8, u64), f64)> = nested::cone_coverage_approx(order, lon, lat, reach)
+                    .flat_iter()
+                    .map(|p| {
+                        let c = unit_from_lon_lat(nested::center(order, p));
+                        ((order, p), (kappa * (c.dot(d).clamp(-1.0, 1.0) - 1.0)).exp())
+                    })
+                    .collect();
+                let own = nested::hash(order, lon, lat);
+                if !cells.iter().any(|(k, _)| k.1 == own) {
+                    cells.push(((order, own), 1.0));
+                }
+                let total: f64 = cells.iter().map(|c| c.1).sum();
+                for c in &mut cells {
+                    c.1 /= total * n;
+                }
+                cells
+            })
+            .collect();
+        let mut contribution: HashMap<(u8, u64), f64> = HashMap::new();
+        for (key, w) in spread.into_iter().flatten() {
+            *contribution.entry(key).or_insert(0.0) += w;
+        }
+        // Every proper ancestor of a contribution: those nodes split.
+        let mut splits: std::collections::HashSet<(u8, u64)> = std::collections::HashSet::new();
+        for &(o, p) in contribution.keys() {
+            for up in 1..=o {
+                if !splits.insert((o - up, p >> (2 * up))) {
+                    break;
+                }
+            }
+        }
         let mut leaves = Vec::new();
         for base in 0..12u64 {
-            split(0, base, &sorted, n, &mut leaves);
+            split(0, base, 0.0, &contribution, &splits, &mut leaves);
         }
         SkyMap { leaves, sample_hash }
     }
@@ -249,18 +308,57 @@ pub struct Modes {
     pub sample_mode: Vec<Option<usize>>,
 }
 
-fn split(order: u8, ipix: u64, sorted: &[u64], n: f64, out: &mut Vec<Leaf>) {
-    let shift = 2 * (MAX_ORDER - order) as u32;
-    let lo = sorted.partition_point(|&h| (h >> shift) < ipix);
-    let hi = sorted.partition_point(|&h| (h >> shift) <= ipix);
-    let count = hi - lo;
-    if order < MIN_ORDER || (count > SPLIT_COUNT && order < MAX_ORDER) {
+/// Descends the tree: `inherited` is the probability a coarser
+/// contribution puts on this pixel.
+fn split(
+    order: u8,
+    ipix: u64,
+    inherited: f64,
+    contribution: &HashMap<(u8, u64), f64>,
+    splits: &std::collections::HashSet<(u8, u64)>,
+    out: &mut Vec<Leaf>,
+) {
+    let here = inherited + contribution.get(&(order, ipix)).copied().unwrap_or(0.0);
+    if order < MAX_ORDER && (order < MIN_ORDER || splits.contains(&(order, ipix))) {
         for c in 0..4 {
-            split(order + 1, 4 * ipix + c, &sorted[lo..hi], n, out);
+            split(order + 1, 4 * ipix + c, here / 4.0, contribution, splits, out);
         }
     } else {
-        out.push(Leaf { order, ipix, probability: count as f64 / n });
+        out.push(Leaf { order, ipix, probability: here });
     }
+}
+
+/// The coarsest order whose pixels are at most `size` radians across
+/// (the square root of the pixel area), within [MIN_ORDER, MAX_ORDER].
+fn order_for(size: f64) -> u8 {
+    (MIN_ORDER..MAX_ORDER).find(|&o| pixel_area_sr(o).sqrt() <= size).unwrap_or(MAX_ORDER)
+}
+
+/// Each sample's kernel bandwidth: the angle to its k-th nearest
+/// neighbour, k = ceil(sqrt(n)/2) (at least 3), among at most 8000
+/// reference samples (every m-th, k scaled down with them); never below two
+/// pixels of the finest order.
+fn bandwidths(directions: &[Vec3]) -> Vec<f64> {
+    let n = directions.len();
+    if n < 2 {
+        return vec![0.1; n];
+    }
+    let stride = n.div_ceil(8000);
+    let reference: Vec<Vec3> = directions.iter().step_by(stride).copied().collect();
+    let k = ((n as f64).sqrt() / 2.0).ceil() as usize;
+    let k = (k / stride).max(3).min(reference.len() - 1);
+    let floor = 2.0 * pixel_area_sr(MAX_ORDER).sqrt();
+    directions
+        .par_iter()
+        .map(|d| {
+            let mut dots: Vec<f64> = reference.iter().map(|r| r.dot(*d)).collect();
+            // The k-th largest dot product besides the sample itself (its
+            // own dot, 1, is among the largest when it is a reference).
+            let idx = dots.len() - 1 - k;
+            let (_, kth, _) = dots.select_nth_unstable_by(idx, f64::total_cmp);
+            kth.clamp(-1.0, 1.0).acos().max(floor)
+        })
+        .collect()
 }
 
 /// A MOC as IVOA FITS bytes.
