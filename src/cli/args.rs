@@ -194,7 +194,7 @@ pub struct InferArgs {
     /// Independent sampler runs (for the split R-hat; at least 2 to check convergence).
     #[arg(long, value_name = "N", default_value_t = 2)]
     pub runs: usize,
-    /// Largest perturber eccentricity the prior allows.
+    /// Largest perturber eccentricity the prior allows (eccentricity uniform from 0 to it).
     #[arg(long, value_name = "E", default_value_t = 0.6)]
     pub max_eccentricity: f64,
     /// Prior width of the known planets' GM offsets, as a multiple of their published uncertainties.
