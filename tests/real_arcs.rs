@@ -51,43 +51,99 @@ fn unit(ra: f64, dec: f64) -> latens::vec3::Vec3 {
     latens::vec3::Vec3::new(d.cos() * a.cos(), d.cos() * a.sin(), d.sin())
 }
 
-/// Neptune's GM in Earth masses (Latens's DE440 constants).
-fn neptune_mass_earth() -> f64 {
-    latens::ephemeris::Body::Neptune.gm_au3_per_day2()
-        / (latens::units::EARTH_MASS_SOLAR * latens::units::GM_SUN_AU3_PER_DAY2)
+/// What a hidden-planet case must show.
+struct Expect {
+    /// Largest allowed angle between the best place and the truth (deg);
+    /// none for a weak detection, whose best place means little.
+    best_within_deg: Option<f64>,
+    /// Largest allowed relative mass error of the refined best fit.
+    mass_within: Option<f64>,
+    /// The refined fit as good as the noise (chi2 below 1.2 dof).
+    strong: bool,
 }
 
-#[test]
-fn neptune_from_ninety_years_of_uranus() {
-    let truth = read_rows("realarcs/truth.csv").into_iter().find(|r| r["case"] == "uranus_1930_2020").unwrap();
-    let dir = temp_dir("uranus");
+/// Runs one real arc with its hidden planet and checks the common bar:
+/// detected; the truth inside the 90% region the command wrote and inside
+/// the posterior's 95% mass interval; the best place near the truth; no
+/// alternative explanation preferred; nothing set aside.
+fn hidden_planet(case: &str, known: &str, tracked: &str, hidden: latens::ephemeris::Body, expect: Expect) {
+    let truth = read_rows("realarcs/truth.csv").into_iter().find(|r| r["case"] == case).unwrap();
+    let dir = temp_dir(case);
     let v = infer(
-        "uranus_1930_2020.csv",
-        &["--known", "jupiter,saturn", "--tracked-mass", "uranus", "--search-epoch", &truth["search_epoch_utc"]],
+        &format!("{case}.csv"),
+        &["--known", known, "--tracked-mass", tracked, "--search-epoch", &truth["search_epoch_utc"]],
         &dir,
     );
-    assert_eq!(v["detection"]["detected"], true, "{}", v["detection"]);
-    assert_eq!(v["tracked"]["kind"], "planet");
+    assert_eq!(v["detection"]["detected"], true, "{case}: {}", v["detection"]);
+    // No non-gravitational alternative is offered for a planet or a dwarf
+    // planet, and no other alternative beats the perturber.
     assert_eq!(v["tracked"]["nongrav_prior_au_per_day2"], 0.0);
+    assert!(!v["impostors"].as_array().unwrap().iter().any(|i| i["name"].as_str().unwrap().contains("non-grav")));
+    assert_eq!(v["explanation"]["best"], "an unseen perturber", "{case}: {}", v["explanation"]);
     // Nothing set aside: against the model with the perturber these data are clean.
-    assert_eq!(v["outliers"]["set_aside"].as_array().unwrap().len(), 0, "{}", v["outliers"]);
-    // The strong regime: the kernel was recentred on the refined solution,
-    // and the refined fit is as good as the noise (chi2 near its dof).
-    let stage = &v["nonlinear_stage"];
-    let dof = v["null_model"]["dof"].as_f64().unwrap();
-    assert!(stage["chi2_at_centre"].as_f64().unwrap() < 1.2 * dof, "{stage}");
-    let mass = v["refined_best_fit"]["mass_earth"].as_f64().unwrap();
-    assert!((mass / neptune_mass_earth() - 1.0).abs() < 0.2, "mass {mass}");
+    assert_eq!(v["outliers"]["set_aside"].as_array().unwrap().len(), 0, "{case}: {}", v["outliers"]);
+    if expect.strong {
+        // The kernel was recentred on the refined solution, and the
+        // refined fit is as good as the noise.
+        let stage = &v["nonlinear_stage"];
+        let dof = v["null_model"]["dof"].as_f64().unwrap();
+        assert!(stage["chi2_at_centre"].as_f64().unwrap() < 1.2 * dof, "{case}: {stage}");
+    }
+    let hidden_mass = hidden.gm_au3_per_day2() / (latens::units::EARTH_MASS_SOLAR * latens::units::GM_SUN_AU3_PER_DAY2);
+    let best = if v["refined_best_fit"].is_object() { &v["refined_best_fit"] } else { &v["best_fit"] };
+    let mass = best["mass_earth"].as_f64().unwrap();
+    if let Some(tol) = expect.mass_within {
+        assert!((mass / hidden_mass - 1.0).abs() < tol, "{case}: mass {mass} against {hidden_mass}");
+    }
+    // The central 95% mass interval (summary.json). Measured: on the
+    // Neptune arc Uranus's 14.54 Earth masses sits at the 4th percentile
+    // (posterior 15.8 +- 0.8), just outside the 90% interval.
+    let m = &v["posterior"]["mass_earth"];
+    let (lo, hi) = (m["lo95"].as_f64().unwrap(), m["hi95"].as_f64().unwrap());
+    assert!(lo <= hidden_mass && hidden_mass <= hi, "{case}: {hidden_mass} outside the 95% mass interval {lo}-{hi}");
     // The truth in the 90% region (the MOC the command wrote).
     let d = unit(num(&truth, "ra_deg"), num(&truth, "dec_deg"));
     let moc = std::fs::read_to_string(dir.join("region90.json")).unwrap();
-    assert!(latens::skymap::moc_json_contains(&moc, d).unwrap(), "Neptune outside the 90% region");
-    // The best place within 2 deg (measured 1.2; the target for arcs with
-    // delta chi2 in the thousands is 0.5 deg, not yet reached).
-    let b = &v["basins"][0];
+    assert!(latens::skymap::moc_json_contains(&moc, d).unwrap(), "{case}: the hidden planet is outside the 90% region");
+    let b = &v["best_fit"];
     let sep = unit(b["ra_deg"].as_f64().unwrap(), b["dec_deg"].as_f64().unwrap()).dot(d).clamp(-1.0, 1.0).acos();
-    assert!(sep.to_degrees() < 2.0, "best basin {:.2} deg from Neptune", sep.to_degrees());
+    eprintln!("{case}: best place {:.2} deg from the truth, {mass:.2} Earth masses", sep.to_degrees());
+    if let Some(max) = expect.best_within_deg {
+        assert!(sep.to_degrees() < max, "{case}: best place {:.2} deg from the truth", sep.to_degrees());
+    }
     std::fs::remove_dir_all(&dir).unwrap();
+}
+
+/// Modern, precise, Neptune outside the tracked orbit.
+#[test]
+fn neptune_from_ninety_years_of_uranus() {
+    let e = Expect { best_within_deg: Some(2.0), mass_within: Some(0.2), strong: true };
+    hidden_planet("uranus_1930_2020", "jupiter,saturn", "uranus", latens::ephemeris::Body::Neptune, e);
+}
+
+/// The hidden planet inside the tracked orbit: Uranus from Neptune's arc.
+#[test]
+fn uranus_from_neptune_inside_the_tracked_orbit() {
+    let e = Expect { best_within_deg: Some(3.5), mass_within: Some(0.2), strong: true };
+    hidden_planet("neptune_1900_2024", "jupiter,saturn", "neptune", latens::ephemeris::Body::Uranus, e);
+}
+
+/// Before the discovery, at historical precision (10" sightings from 1690,
+/// 2-5" from 1781): the posterior is wide along the mass-distance ridge;
+/// the truth must be inside it, the mass is not held to 20%.
+#[test]
+fn neptune_from_uranus_before_its_discovery() {
+    let e = Expect { best_within_deg: Some(12.0), mass_within: None, strong: false };
+    hidden_planet("uranus_1690_1845", "jupiter,saturn", "uranus", latens::ephemeris::Body::Neptune, e);
+}
+
+/// A dwarf planet, weakly pulled: the alternatives must not beat the
+/// perturber, and the wide region must hold the truth (the best place of so
+/// weak a detection, measured 133 deg off, is not held to anything).
+#[test]
+fn neptune_from_a_dwarf_planet() {
+    let e = Expect { best_within_deg: None, mass_within: None, strong: false };
+    hidden_planet("pluto_1930_2020", "jupiter,saturn,uranus", "pluto", latens::ephemeris::Body::Neptune, e);
 }
 
 #[test]

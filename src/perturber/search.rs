@@ -249,7 +249,7 @@ pub fn grid_search(
     let mut order: Vec<usize> = (0..scored.len()).collect();
     order.sort_by(|&a, &b| scored[b].delta_chi2.total_cmp(&scored[a].delta_chi2));
     let grid_best = order.first().map_or(0.0, |&i| scored[i].delta_chi2);
-    let seeds = distinct(order.iter().map(|&i| scored[i]), 10.0, 1.5, f64::INFINITY, 24);
+    let seeds = distinct(order.iter().map(|&i| scored[i]), 10.0, 1.5, f64::INFINITY, 64);
     let mut refined: Vec<Scored> = seeds
         .par_iter()
         .map(|s| refine_in_kernel(kernel, s, gm_max, settings.min_separation_au, settings.distance_au))
