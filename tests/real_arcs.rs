@@ -4,20 +4,21 @@
 //! left out of the model, the tracked planet's own GM given by name.
 //!
 //! Measured (2026-12-02, default grid, seed 1) on every fixture, for the
-//! record (docs/validation.md carries the table):
+//! record (docs/validation.md carries the table; "level" is the share of
+//! posterior samples denser on the sky than the truth):
 //! - Uranus 1930-2020 at 0.5", Neptune hidden: delta chi2 7.9e5, refined
-//!   fit chi2 1042 for 1114 dof, 15.1 +- 1.0 Earth masses (Neptune 17.15),
-//!   best place 1.2 deg from Neptune, the truth inside the 90% region.
+//!   fit chi2 1042 for 1114 dof, 15.1 Earth masses (posterior 15.9, 68%
+//!   15.0-16.8; Neptune 17.15), best place 1.28 deg from Neptune; 90% region
+//!   5.1 sq deg holding it (level 0.56).
 //! - Neptune 1900-2024 at 0.5", Uranus (inside the tracked orbit) hidden:
-//!   delta chi2 4.8e4, 15.9 Earth masses (Uranus 14.5), 2.8 deg off, inside
-//!   the 90% region.
-//! - Uranus 1690-1845 at 10"-2" (DE405), Neptune hidden: delta chi2 4887,
-//!   20.6 +- 3.2 Earth masses, best place 7.9 deg off; the true Neptune
-//!   scores only 1.9 above the best in chi-square, but the posterior puts
-//!   it outside its 90% region (open: the prior volume along the
-//!   mass-distance ridge; not asserted here).
+//!   delta chi2 4.6e4, 15.9 Earth masses (Uranus 14.54), 2.7 deg off; 90%
+//!   region 18.5 sq deg holding it (level 0.79).
+//! - Uranus 1690-1845 at 10"-2" (DE405), Neptune hidden: delta chi2 4786,
+//!   20.7 Earth masses (posterior 20.4, 68% 18.2-26.3), best place 7.9 deg
+//!   off along the mass-distance ridge; 90% region 239 sq deg holding it
+//!   (level 0.58).
 //! - Pluto 1930-2020 at 0.3", Neptune hidden: a weak detection (delta chi2
-//!   248) with a 1275 sq deg region holding the truth; no non-gravitational
+//!   236), a 1780 sq deg region holding the truth; no non-gravitational
 //!   alternative for a dwarf planet.
 //! - Saturn 1950-2020 at 0.3" with every planet known: no detection.
 
