@@ -214,6 +214,43 @@ fn tempering_finds_both_modes_in_the_right_ratio() {
     assert!((z - exact).abs() < 3.0 * err.max(0.02), "ln Z {z} +- {err} vs {exact}");
 }
 
+/// Without tempering, walkers started evenly in the two modes of the 1 : 3
+/// mixture: stretch moves cannot cross 24 standard deviations (they move
+/// along the line through two walkers, never onto the other one), so the
+/// occupancy stays where it started; the mode hops (ter Braak 2006) carry
+/// walkers across and the share of the lighter mode settles at 1/4.
+#[test]
+fn mode_hops_settle_the_weights_of_separate_modes() {
+    let share = |mode_hop: f64| {
+        let settings = SamplerSettings {
+            n_walkers: 32,
+            n_temperatures: 1,
+            n_steps: 12000,
+            burn_in: 2000,
+            thin: 4,
+            mode_hop,
+            seed: 9,
+            ..SamplerSettings::default()
+        };
+        let mut rng = rand::rngs::StdRng::seed_from_u64(17);
+        let walkers: Vec<Vec<f64>> = (0..settings.n_walkers)
+            .map(|w| {
+                let c = if w % 2 == 0 { -6.0 } else { 6.0 };
+                let n = |rng: &mut rand::rngs::StdRng| 0.3 * Distribution::<f64>::sample(&StandardNormal, rng);
+                vec![c + n(&mut rng), n(&mut rng)]
+            })
+            .collect();
+        let state = SamplerState::new(&Mixture, &settings, 0, &[walkers]).unwrap();
+        let states = run(&Mixture, &settings, vec![state], None, &AtomicBool::new(false), &|_| {}).unwrap();
+        let xs = pooled(&states, settings.burn_in);
+        xs.iter().filter(|x| x[0] < 0.0).count() as f64 / xs.len() as f64
+    };
+    let (without, with) = (share(0.0), share(0.1));
+    eprintln!("share in the lighter mode: {without:.3} without hops, {with:.3} with");
+    assert!((without - 0.5).abs() < 0.02, "without hops {without}");
+    assert!((with - 0.25).abs() < 0.03, "with hops {with}");
+}
+
 /// Gaussian likelihood exp(-|x - mu|^2 / (2 sl^2)) and normalised Gaussian
 /// prior N(0, sp^2 I) in 3 dimensions: Z = (sl^2 / (sl^2 + sp^2))^(3/2)
 /// exp(-|mu|^2 / (2 (sl^2 + sp^2))) (the convolution of two Gaussians).

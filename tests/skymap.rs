@@ -167,9 +167,9 @@ fn moc_files_for_outside_clients() {
 /// With few samples the 50% and 90% regions still hold about that share of
 /// the true distribution: the vMF's own probability inside each region
 /// (its density at the leaf centre times the leaf's area), averaged over
-/// 16 seeded clouds of 400 samples. A histogram of so few samples gave
-/// regions holding too little (its fullest pixels are partly lucky ones,
-/// and empty pixels hold nothing).
+/// 16 seeded clouds of 400 samples. Measured: 0.485 and 0.926; with half
+/// the bandwidth the 50% region held 0.435 (too little: with so few
+/// samples, the densest places of a rough estimate are partly lucky ones).
 #[test]
 fn regions_from_few_samples_hold_their_nominal_share() {
     let mu = Vec3::new(0.3, -0.5, 0.8).unit();

@@ -4,13 +4,14 @@
 //! Goodman & Weare (2010, Comm. App. Math. Comp. Sci. 5, 65), in the
 //! two-halves form that lets one half be updated in parallel (Foreman-Mackey
 //! et al. 2013, PASP 125, 306), with a share of mode-hopping
-//! differential-evolution moves (see [`SamplerSettings::mode_hop`]). Neighbouring temperatures exchange walkers
-//! (parallel tempering); during burn-in the ladder adapts so that the
-//! exchange rates between neighbours become equal (after Vousden, Farr &
-//! Mandel 2016, MNRAS 455, 1919; here the hottest finite temperature stays
-//! fixed and the log-temperature gaps are rescaled to keep it so). The last
-//! rung has inverse temperature 0 and samples the prior, so that the
-//! evidence follows by thermodynamic integration over the ladder.
+//! differential-evolution moves (see [`SamplerSettings::mode_hop`]).
+//! Neighbouring temperatures exchange walkers (parallel tempering); during
+//! burn-in the ladder adapts so that the exchange rates between neighbours
+//! become equal (after Vousden, Farr & Mandel 2016, MNRAS 455, 1919; here
+//! the hottest finite temperature stays fixed and the log-temperature gaps
+//! are rescaled to keep it so). The last rung has inverse temperature 0 and
+//! samples the prior, so that the evidence follows by thermodynamic
+//! integration over the ladder.
 //!
 //! The sampler is written in the same shape as the least-squares solver: a
 //! [`SamplerState`] goes into [`advance`] and comes out one step later; the

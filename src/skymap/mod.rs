@@ -341,6 +341,7 @@ fn order_for(size: f64) -> u8 {
 fn bandwidths(directions: &[Vec3]) -> Vec<f64> {
     let n = directions.len();
     if n < 2 {
+        // No neighbour to measure by: a lone sample gets a 6 deg kernel.
         return vec![0.1; n];
     }
     let stride = n.div_ceil(8000);
