@@ -1,5 +1,6 @@
-//! Recovering a planet from another planet's residuals on real positions:
-//! Neptune from Uranus, with JPL DE421 (PyPI skyfield-data) positions made by
+//! The grid search's linear kernel on real positions, at the library level
+//! (the path a user runs, `latens infer` with refinement and posterior, is
+//! checked on real arcs in tests/real_arcs.rs): Neptune from Uranus, with JPL DE421 (PyPI skyfield-data) positions made by
 //! skyfield (tests/data/astrometry/gen.py), Neptune left out of the model.
 //! The check value is a fact of the trade: the nineteenth-century prediction
 //! of a planet from another's residuals was found within about one degree of
