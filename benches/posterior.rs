@@ -7,7 +7,6 @@
 //!
 //! Run: `cargo bench --bench posterior`.
 
-use std::sync::atomic::AtomicBool;
 use std::time::Instant;
 
 use latens::dynamics::kepler::{Elements, state_from_elements};
@@ -73,7 +72,7 @@ fn main() {
     let geometry = observing_geometry(&obs, &sites, &eph).expect("geometry");
     let kernel = LinearKernel::build(&fit, &obs, geometry, &model, &eph).expect("kernel");
     let search = SearchSettings { n_null: 0, n_directions: 192, n_distances: 12, ..SearchSettings::default() };
-    let grid = grid_search(&kernel, &search, &|_| {});
+    let grid = grid_search(&kernel, &search, &latens::progress::Quiet);
     let prior = PerturberPrior {
         mass_earth: search.mass_earth,
         distance_au: search.distance_au,
@@ -94,7 +93,9 @@ fn main() {
     let start = posterior.starting_walkers(&grid.basins, &settings.initial_betas(), settings.n_walkers, 1, false);
     let state = SamplerState::new(&posterior, &settings, 0, &start).expect("start");
     let t = Instant::now();
-    let states = run(&posterior, &settings, vec![state], None, &AtomicBool::new(false), &|_| {}).expect("run");
+    let states =
+        run(&posterior, &settings, vec![state], None, latens::progress::Stage::Sampling, &latens::progress::Quiet)
+            .expect("run");
     let seconds = t.elapsed().as_secs_f64();
     let evaluations = (settings.n_steps * settings.n_temperatures * settings.n_walkers) as f64;
     let tau = (0..7)

@@ -2,6 +2,8 @@
 
 use std::process::ExitCode;
 
+mod cli;
+
 fn main() -> ExitCode {
-    latens::cli::main_with_args(std::env::args_os())
+    cli::main_with_args(std::env::args_os())
 }

@@ -5,8 +5,6 @@
 //! the data made by the likelihood's own model, a correct sampler and prior
 //! give exact coverage; a bias shows as a rate outside the band.
 
-use std::sync::atomic::AtomicBool;
-
 use latens::dynamics::kepler::{Elements, state_from_elements};
 use latens::dynamics::{ForceModel, InitialState};
 use latens::ephemeris::Vsop87;
@@ -99,7 +97,9 @@ fn campaign(n: usize, seed: u64) -> [usize; 4] {
             .map(|_| (0..32).map(|_| posterior.draw_prior(&mut rng)).collect())
             .collect();
         let state = SamplerState::new(&posterior, &settings, 0, &start).unwrap();
-        let states = run(&posterior, &settings, vec![state], None, &AtomicBool::new(false), &|_| {}).unwrap();
+        let states =
+            run(&posterior, &settings, vec![state], None, latens::progress::Stage::Sampling, &latens::progress::Quiet)
+                .unwrap();
         let samples: Vec<Vec<f64>> = states[0].posterior_samples(settings.burn_in).into_iter().map(|s| s.0).collect();
         assert!(posterior.log_prior(&truth_x).is_finite());
         // Mass: central intervals of ln m.

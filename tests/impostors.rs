@@ -4,8 +4,6 @@
 //! nonlinear model, or from an independent integrator for the
 //! non-gravitational push, which the propagator does not model.)
 
-use std::sync::atomic::AtomicBool;
-
 use latens::astrometry::{ObservingGeometry, astrometric_direction};
 use latens::dynamics::kepler::{Elements, state_from_elements};
 use latens::dynamics::{ForceModel, InitialState};
@@ -82,7 +80,7 @@ fn weigh(
         .collect();
     // The perturber: grid, then the tempered sampler from its basins.
     let search = SearchSettings { n_null: 0, n_directions: 192, n_distances: 12, ..SearchSettings::default() };
-    let grid = grid_search(&kernel, &search, &|_| {});
+    let grid = grid_search(&kernel, &search, &latens::progress::Quiet);
     let prior = PerturberPrior {
         mass_earth: search.mass_earth,
         distance_au: search.distance_au,
@@ -100,7 +98,9 @@ fn weigh(
     };
     let start = posterior.starting_walkers(&grid.basins, &settings.initial_betas(), 32, 4, false);
     let state = SamplerState::new(&posterior, &settings, 0, &start).unwrap();
-    let states = run(&posterior, &settings, vec![state], None, &AtomicBool::new(false), &|_| {}).unwrap();
+    let states =
+        run(&posterior, &settings, vec![state], None, latens::progress::Stage::Sampling, &latens::progress::Quiet)
+            .unwrap();
     let (z, err) = combined_evidence(&states, thermodynamic_evidence);
     let best = grid.best().map_or(0.0, |b| b.delta_chi2);
     eprintln!("perturber: ln Z {z:.1} +- {err:.1}, grid best delta chi2 {best:.1}");

@@ -56,7 +56,7 @@ impl Recovery {
             n_null: 200,
             ..SearchSettings::default()
         };
-        let result = grid_search(&kernel, &settings, &|_| {});
+        let result = grid_search(&kernel, &settings, &latens::progress::Quiet);
         let row = &read_rows("astrometry/neptune_2024.csv")[0];
         let t = tdb_days_from_j2000(parse_utc_iso(&row["epoch_utc"]).unwrap());
         let earth = earth_eph.heliocentric_position_au(Body::Earth, t).unwrap();

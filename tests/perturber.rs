@@ -138,7 +138,7 @@ fn injected_perturbers_are_detected_and_located() {
         let fit = fit_reference_orbit(&obs, &s.sites, &s.model, &s.ephemeris, &settings, None).unwrap();
         let geometry = observing_geometry(&obs, &s.sites, &s.ephemeris).unwrap();
         let kernel = LinearKernel::build(&fit, &obs, geometry, &s.model, &s.ephemeris).unwrap();
-        let result = grid_search(&kernel, &small_search(k as u64), &|_| {});
+        let result = grid_search(&kernel, &small_search(k as u64), &latens::progress::Quiet);
         let truth = latens::perturber::search::score(
             &kernel,
             &latens::perturber::Hypothesis { position_au: p.position_au, velocity_au_per_day: p.velocity_au_per_day },
@@ -220,7 +220,7 @@ fn null_data_sets_are_rarely_detected() {
         let fit = fit_reference_orbit(&obs, &s.sites, &s.model, &s.ephemeris, &settings, None).unwrap();
         let geometry = observing_geometry(&obs, &s.sites, &s.ephemeris).unwrap();
         let kernel = LinearKernel::build(&fit, &obs, geometry, &s.model, &s.ephemeris).unwrap();
-        let result = grid_search(&kernel, &small_search(seed), &|_| {});
+        let result = grid_search(&kernel, &small_search(seed), &latens::progress::Quiet);
         let fap = result.false_alarm_probability();
         faps.push(fap);
         if fap < 0.003 {
@@ -259,7 +259,7 @@ fn false_alarm_probabilities_are_uniform_on_linear_null_data() {
     for trial in 0..40 {
         let y: Vec<f64> = (0..kernel.n_residuals()).map(|_| StandardNormal.sample(&mut rng)).collect();
         let k = kernel.with_residuals(&y);
-        let r = grid_search(&k, &SearchSettings { seed: 1000 + trial, ..search.clone() }, &|_| {});
+        let r = grid_search(&k, &SearchSettings { seed: 1000 + trial, ..search.clone() }, &latens::progress::Quiet);
         faps.push(r.false_alarm_probability());
     }
     faps.sort_by(f64::total_cmp);
@@ -356,8 +356,9 @@ fn nonlinear_weights_hold_in_the_linear_regime_and_collapse_beyond_it() {
                 |xs: &[Vec<f64>]| xs.iter().map(|x| target.log_likelihood(x).unwrap()).sum::<f64>() / xs.len() as f64;
             let before = mean_full(&start);
             let state = SamplerState::new(&target, &settings, 0, &[start]).unwrap();
-            let done = run(&target, &settings, vec![state], None, &std::sync::atomic::AtomicBool::new(false), &|_| {})
-                .unwrap();
+            let done =
+                run(&target, &settings, vec![state], None, latens::progress::Stage::Sampling, &latens::progress::Quiet)
+                    .unwrap();
             let after: Vec<Vec<f64>> = done[0].posterior_samples(25).into_iter().map(|s| s.0).collect();
             let after = mean_full(&after);
             eprintln!("  full-model ln L of the ensemble: {before:.1} before, {after:.1} after 30 steps");

@@ -1,6 +1,39 @@
 //! The tempered ensemble sampler on densities with known answers (seeded).
 
-use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
+
+use latens::progress::{Observer, Stage};
+
+/// An observer that asks to stop once the run has reported `at` steps done,
+/// as a caller's Ctrl-C would; it records what it was told.
+struct StopAt {
+    at: u64,
+    seen: AtomicU64,
+    stop: AtomicBool,
+    begun: AtomicBool,
+}
+
+impl StopAt {
+    fn new(at: u64) -> Self {
+        StopAt { at, seen: AtomicU64::new(0), stop: AtomicBool::new(false), begun: AtomicBool::new(false) }
+    }
+}
+
+impl Observer for StopAt {
+    fn begin(&self, stage: Stage, _total: u64) {
+        assert_eq!(stage, Stage::Sampling);
+        self.begun.store(true, Ordering::SeqCst);
+    }
+    fn advance(&self, done: u64) {
+        self.seen.store(done, Ordering::SeqCst);
+        if done == self.at {
+            self.stop.store(true, Ordering::SeqCst);
+        }
+    }
+    fn stop_requested(&self) -> bool {
+        self.stop.load(Ordering::SeqCst)
+    }
+}
 
 use latens::posterior::sampler::{
     Checkpoint, SamplerSettings, SamplerState, Target, autocorrelation_time, combined_evidence, rank_normalized_r_hat,
@@ -50,7 +83,7 @@ fn sample(
     let states: Vec<SamplerState> = (0..runs)
         .map(|r| SamplerState::new(target, settings, r, &start(target, settings, centre, spread, 100 + r)).unwrap())
         .collect();
-    run(target, settings, states, None, &AtomicBool::new(false), &|_| {}).unwrap()
+    run(target, settings, states, None, latens::progress::Stage::Sampling, &latens::progress::Quiet).unwrap()
 }
 
 fn pooled(states: &[SamplerState], burn_in: usize) -> Vec<Vec<f64>> {
@@ -241,7 +274,9 @@ fn mode_hops_settle_the_weights_of_separate_modes() {
             })
             .collect();
         let state = SamplerState::new(&Mixture, &settings, 0, &[walkers]).unwrap();
-        let states = run(&Mixture, &settings, vec![state], None, &AtomicBool::new(false), &|_| {}).unwrap();
+        let states =
+            run(&Mixture, &settings, vec![state], None, latens::progress::Stage::Sampling, &latens::progress::Quiet)
+                .unwrap();
         let xs = pooled(&states, settings.burn_in);
         xs.iter().filter(|x| x[0] < 0.0).count() as f64 / xs.len() as f64
     };
@@ -298,7 +333,7 @@ fn thermodynamic_integration_matches_an_analytic_evidence() {
         .map(|_| (0..32).map(|_| (0..3).map(|_| normal.sample(&mut rng)).collect()).collect())
         .collect();
     let states: Vec<SamplerState> = (0..2).map(|r| SamplerState::new(&t, &settings, r, &starts).unwrap()).collect();
-    let states = run(&t, &settings, states, None, &AtomicBool::new(false), &|_| {}).unwrap();
+    let states = run(&t, &settings, states, None, latens::progress::Stage::Sampling, &latens::progress::Quiet).unwrap();
     let (z, err) = combined_evidence(&states, thermodynamic_evidence);
     assert!(err < 0.5, "error {err}");
     assert!((z - exact).abs() < 3.0 * err, "ln Z {z} +- {err} vs exact {exact}");
@@ -325,24 +360,24 @@ fn a_resumed_run_repeats_the_uninterrupted_one() {
             })
             .collect()
     };
-    let whole = run(&Mixture, &settings, fresh(), None, &AtomicBool::new(false), &|_| {}).unwrap();
+    let whole =
+        run(&Mixture, &settings, fresh(), None, latens::progress::Stage::Sampling, &latens::progress::Quiet).unwrap();
 
     let dir = std::env::temp_dir().join(format!("latens-checkpoint-{}", std::process::id()));
     std::fs::create_dir_all(&dir).unwrap();
     let path = dir.join("checkpoint.json");
     let cp = Checkpoint { path: &path, every: 50, fingerprint: "mixture".into() };
-    let stop = AtomicBool::new(false);
     // Interrupted at step 130 (as Ctrl-C would), then resumed.
-    let err = run(&Mixture, &settings, fresh(), Some(&cp), &stop, &|step| {
-        if step == 130 {
-            stop.store(true, Ordering::SeqCst);
-        }
-    })
-    .unwrap_err();
+    let observer = StopAt::new(130);
+    let err = run(&Mixture, &settings, fresh(), Some(&cp), Stage::Sampling, &observer).unwrap_err();
+    assert!(observer.begun.load(Ordering::SeqCst));
+    assert_eq!(observer.seen.load(Ordering::SeqCst), 130);
     assert!(err.to_string().contains("step 130"), "{err}");
     let states = cp.load(&settings).unwrap();
     assert_eq!(states[0].step, 130);
-    let resumed = run(&Mixture, &settings, states, Some(&cp), &AtomicBool::new(false), &|_| {}).unwrap();
+    let resumed =
+        run(&Mixture, &settings, states, Some(&cp), latens::progress::Stage::Sampling, &latens::progress::Quiet)
+            .unwrap();
     assert!(resumed == whole, "the resumed run differs from the uninterrupted one");
     // Another problem's checkpoint is refused.
     let other = Checkpoint { path: &path, every: 50, fingerprint: "other".into() };

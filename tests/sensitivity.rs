@@ -76,7 +76,7 @@ fn half_detection_mass_grows_as_distance_cubed_far_out() {
         min_separation_au: 2.0,
     };
     let cells: Vec<(usize, usize)> = (0..5).flat_map(|d| (0..60).map(move |m| (m, d))).collect();
-    let map = compute_cells(&kernel, &settings, 25.0, &cells, &|_| {});
+    let map = compute_cells(&kernel, &settings, 25.0, &cells, &latens::progress::Quiet);
     let c50: Vec<(f64, f64)> =
         contour(&map, 0.5).into_iter().filter_map(|(d, m)| m.map(|m| (d.ln(), m.ln()))).collect();
     assert_eq!(c50.len(), 5, "{c50:?}");
@@ -244,7 +244,8 @@ fn injection_recovery(per_cell: usize) -> (f64, f64, usize) {
     // The map for the base (unperturbed) data, with the search's own threshold.
     let kernel = pipeline(&simulate_survey(&plan(1), &base, &model, &eph, &sites).unwrap());
     let zeros = vec![0.0; kernel.n_residuals()];
-    let mut maxima = latens::perturber::grid_search(&kernel.with_residuals(&zeros), &search, &|_| {}).null_maxima;
+    let mut maxima =
+        latens::perturber::grid_search(&kernel.with_residuals(&zeros), &search, &latens::progress::Quiet).null_maxima;
     maxima.sort_by(f64::total_cmp);
     let threshold = maxima[((1.0 - fap) * maxima.len() as f64).ceil() as usize - 1];
     let settings = SensitivitySettings {
@@ -258,7 +259,7 @@ fn injection_recovery(per_cell: usize) -> (f64, f64, usize) {
         min_separation_au: 2.0,
     };
     let cells: Vec<(usize, usize)> = (0..3).flat_map(|d| (0..25).map(move |m| (m, d))).collect();
-    let map = compute_cells(&kernel, &settings, threshold, &cells, &|_| {});
+    let map = compute_cells(&kernel, &settings, threshold, &cells, &latens::progress::Quiet);
     let gm_earth = EARTH_MASS_SOLAR * GM_SUN_AU3_PER_DAY2;
     let (mut detected, mut expected, mut variance, mut runs) = (0.0, 0.0, 0.0, 0usize);
     for di in 0..3 {
@@ -285,7 +286,9 @@ fn injection_recovery(per_cell: usize) -> (f64, f64, usize) {
                 )
                 .unwrap();
                 let k2 = pipeline(&obs);
-                let found = latens::perturber::grid_search(&k2, &search, &|_| {}).false_alarm_probability() < fap;
+                let found = latens::perturber::grid_search(&k2, &search, &latens::progress::Quiet)
+                    .false_alarm_probability()
+                    < fap;
                 detected += f64::from(u8::from(found));
                 expected += p;
                 variance += p * (1.0 - p);

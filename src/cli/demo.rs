@@ -13,11 +13,11 @@ use std::path::Path;
 use super::CliError;
 use super::args::{DemoArgs, InferArgs, InputArgs, SensitivityArgs};
 use super::residuals::ResidualProducts;
-use crate::io::observations::{SiteTable, read_observations};
-use crate::io::scenario::parse;
-use crate::reference::{ReferenceSettings, fit_reference_orbit};
-use crate::time::{epoch_from_tdb_days, utc_iso_from_epoch};
-use crate::vec3::Vec3;
+use latens::io::observations::{SiteTable, read_observations};
+use latens::io::scenario::parse;
+use latens::reference::{ReferenceSettings, fit_reference_orbit};
+use latens::time::{epoch_from_tdb_days, utc_iso_from_epoch};
+use latens::vec3::Vec3;
 
 /// The demo scenario, as shipped in `scenarios/demo.toml`.
 const SCENARIO: &str = include_str!("../../scenarios/demo.toml");
@@ -66,7 +66,7 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
         &fit,
         &observations,
         &sim.model,
-        crate::ephemeris::Ephemeris::description(&sim.ephemeris),
+        latens::ephemeris::Ephemeris::description(&sim.ephemeris),
     );
     let residual_dir = out.join("residuals");
     products.write(&residual_dir).map_err(CliError::failed)?;
@@ -77,7 +77,7 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
     }
     println!(
         "   the fitted position is {:.0} km from the true one",
-        (recovered - sim.initial.tracked_position_au).norm() * crate::units::AU_KM
+        (recovered - sim.initial.tracked_position_au).norm() * latens::units::AU_KM
     );
 
     // 3. The search, the verdict, the posterior and the search products.
@@ -92,7 +92,7 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
     };
     let search_dir = out.join("search");
     let s = &scenario.search;
-    let impostor_priors = crate::posterior::impostors::ImpostorPriors::default();
+    let impostor_priors = latens::posterior::impostors::ImpostorPriors::default();
     let summary = super::infer::run(&InferArgs {
         input: input.clone(),
         search_epoch: s.epoch.clone(),
@@ -192,13 +192,13 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
 
 /// Says whether the hidden planet's true place lies in the 50% and 90%
 /// regions (the demo knows the truth; a user would not).
-fn truth_against_region(truth: &crate::io::results::TruthFile, search_dir: &Path) -> Option<String> {
+fn truth_against_region(truth: &latens::io::results::TruthFile, search_dir: &Path) -> Option<String> {
     let place = truth.perturber.as_ref()?.at_search_epoch.as_ref()?;
-    let dir = crate::frames::vector_from_radec_deg(place.ra_deg, place.dec_deg);
+    let dir = latens::frames::vector_from_radec_deg(place.ra_deg, place.dec_deg);
     let inside = |name: &str| {
         std::fs::read_to_string(search_dir.join(name))
             .ok()
-            .and_then(|text| crate::skymap::moc_json_contains(&text, dir).ok())
+            .and_then(|text| latens::skymap::moc_json_contains(&text, dir).ok())
     };
     let (in50, in90) = (inside("region50.json")?, inside("region90.json")?);
     let name = &truth.perturber.as_ref()?.name;
@@ -206,8 +206,8 @@ fn truth_against_region(truth: &crate::io::results::TruthFile, search_dir: &Path
         "The hidden planet {name} is really at RA {:.2} deg, Dec {:+.2} deg on {}: {}.",
         place.ra_deg,
         place.dec_deg,
-        utc_iso_from_epoch(epoch_from_tdb_days(crate::time::tdb_days_from_j2000(
-            crate::time::parse_epoch(&place.epoch_utc).unwrap_or_else(|_| epoch_from_tdb_days(0.0))
+        utc_iso_from_epoch(epoch_from_tdb_days(latens::time::tdb_days_from_j2000(
+            latens::time::parse_epoch(&place.epoch_utc).unwrap_or_else(|_| epoch_from_tdb_days(0.0))
         )))
         .get(..10)
         .unwrap_or(""),

@@ -10,22 +10,22 @@ use anyhow::Context;
 use super::CliError;
 use super::args::InferArgs;
 use super::residuals::{ResidualProducts, load_ephemeris, model_from_input, orbit_file, read_inputs};
-use crate::astrometry::{ObservingGeometry, astrometric_direction, sun_barycentric_velocity};
-use crate::dynamics::Perturber;
-use crate::dynamics::kepler::elements_from_state;
-use crate::ephemeris::{Body, Ephemeris, SpkFile, Vsop87};
-use crate::frames::{angular_separation, ecliptic_from_icrf};
-use crate::io::observations::Observation;
-use crate::io::results::{
+use latens::astrometry::{ObservingGeometry, astrometric_direction, sun_barycentric_velocity};
+use latens::dynamics::Perturber;
+use latens::dynamics::kepler::elements_from_state;
+use latens::ephemeris::{Body, Ephemeris, SpkFile, Vsop87};
+use latens::frames::{angular_separation, ecliptic_from_icrf};
+use latens::io::observations::Observation;
+use latens::io::results::{
     DetectionFile, InferSettingsFile, InferSummary, NullModelFile, PerturberFile, SearchStatsFile,
 };
-use crate::io::write_atomically;
-use crate::perturber::{KeplerOrbit, LinearKernel, Scored, SearchSettings, grid_search};
-use crate::reference::{OrbitModel, ReferenceFit, ReferenceSettings, fit_reference_orbit, observing_geometry, whiten};
-use crate::report::residual_chart::ResidualChart;
-use crate::time::{epoch_from_tdb_days, parse_epoch, tdb_days_from_j2000, utc_iso_from_epoch};
-use crate::units::{J2000_JD, RAD_PER_DEG};
-use crate::vec3::Vec3;
+use latens::io::write_atomically;
+use latens::perturber::{KeplerOrbit, LinearKernel, Scored, SearchSettings, grid_search};
+use latens::reference::{OrbitModel, ReferenceFit, ReferenceSettings, fit_reference_orbit, observing_geometry, whiten};
+use latens::time::{epoch_from_tdb_days, parse_epoch, tdb_days_from_j2000, utc_iso_from_epoch};
+use latens::units::{J2000_JD, RAD_PER_DEG};
+use latens::vec3::Vec3;
+use latens_charts::residual_chart::ResidualChart;
 
 /// False-alarm probability below which a perturber counts as detected: the
 /// two-sided 3-sigma Gaussian tail (common practice).
@@ -196,7 +196,7 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
     // grid maxima); the basins carry their continuously refined drops.
     let best_delta = result.grid_best_delta_chi2;
     let refined_summary = refined.as_ref().map(|r| refined_file(r, &null));
-    let nonlinear_stage = centred.as_ref().map(|c| crate::io::results::NonlinearStageFile {
+    let nonlinear_stage = centred.as_ref().map(|c| latens::io::results::NonlinearStageFile {
         rounds,
         chi2_at_centre: c.chi2_at_centre,
         delta_chi2_at_centre: null.chi2 - c.chi2_at_centre,
@@ -336,16 +336,16 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
         explanation: stage.explanation,
         diagnostics: stage.diagnostics,
         sky: search_products.as_ref().map(|s| s.sky.clone()),
-        tracked: crate::io::results::TrackedFile {
+        tracked: latens::io::results::TrackedFile {
             kind: tracked.kind.name().into(),
             mass_earth: tracked.mass_earth(),
             gm_au3_per_day2: tracked.gm_au3_per_day2,
             named: tracked.named.map(|b| b.name().to_string()),
             nongrav_prior_au_per_day2: args
                 .nongrav_prior
-                .unwrap_or(crate::posterior::impostors::nongrav_prior_for(tracked.kind)),
+                .unwrap_or(latens::posterior::impostors::nongrav_prior_for(tracked.kind)),
         },
-        outliers: crate::io::results::OutlierFile {
+        outliers: latens::io::results::OutlierFile {
             threshold_sigma: reject_sigma,
             judged_against: judged_against.into(),
             excluded_by_hand,
@@ -425,17 +425,17 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
     Ok(summary)
 }
 
-fn refined_file(r: &crate::perturber::refine::Refinement, null: &ReferenceFit) -> crate::io::results::RefinedFile {
-    let gm_earth = crate::units::EARTH_MASS_SOLAR * crate::units::GM_SUN_AU3_PER_DAY2;
+fn refined_file(r: &latens::perturber::refine::Refinement, null: &ReferenceFit) -> latens::io::results::RefinedFile {
+    let gm_earth = latens::units::EARTH_MASS_SOLAR * latens::units::GM_SUN_AU3_PER_DAY2;
     let p = &r.perturber;
     let el = elements_from_state(
-        crate::units::GM_SUN_AU3_PER_DAY2,
+        latens::units::GM_SUN_AU3_PER_DAY2,
         ecliptic_from_icrf(p.position_au),
         ecliptic_from_icrf(p.velocity_au_per_day),
     )
     .ok();
     let deg = |x: f64| x / RAD_PER_DEG;
-    crate::io::results::RefinedFile {
+    latens::io::results::RefinedFile {
         chi2: r.chi2,
         delta_chi2: null.chi2 - r.chi2,
         mass_earth: p.gm_au3_per_day2 / gm_earth,
@@ -476,7 +476,7 @@ fn describe(
     kernel: &LinearKernel,
     observations: &[Observation],
     geometry: &[ObservingGeometry],
-    model: &crate::dynamics::ForceModel,
+    model: &latens::dynamics::ForceModel,
     ephemeris: &dyn Ephemeris,
     wide: &dyn Ephemeris,
     search_epoch: f64,
@@ -543,7 +543,7 @@ fn linearisation_error(
     kernel: &LinearKernel,
     observations: &[Observation],
     geometry: &[ObservingGeometry],
-    model: &crate::dynamics::ForceModel,
+    model: &latens::dynamics::ForceModel,
     ephemeris: &dyn Ephemeris,
 ) -> Result<(f64, f64), CliError> {
     let n = observations.len();
@@ -562,7 +562,7 @@ fn linearisation_error(
     let p1 = with.predict(&null.state, false).map_err(CliError::failed)?;
     let mut nonlinear = vec![0.0; 2 * n];
     for k in 0..n {
-        let w = whiten(&observations[k], crate::reference::residual_arcsec_between(&p1[k].radec, &p0[k].radec));
+        let w = whiten(&observations[k], latens::reference::residual_arcsec_between(&p1[k].radec, &p0[k].radec));
         nonlinear[2 * k] = w.0;
         nonlinear[2 * k + 1] = w.1;
     }
@@ -613,7 +613,7 @@ fn annual_share(null: &ReferenceFit, observations: &[Observation], best_delta: f
             } else {
                 (null.residuals[k].dec_arcsec, o.sigma_dec_arcsec)
             };
-            let w = std::f64::consts::TAU * o.t_tdb_days / crate::units::JULIAN_YEAR_DAYS;
+            let w = std::f64::consts::TAU * o.t_tdb_days / latens::units::JULIAN_YEAR_DAYS;
             let x = [1.0 / sigma, w.sin() / sigma, w.cos() / sigma];
             for i in 0..3 {
                 atb[i] += x[i] * r / sigma;
@@ -693,7 +693,8 @@ fn write_outputs(
     null: &ReferenceFit,
     best_delta: f64,
 ) -> anyhow::Result<()> {
-    let years: Vec<f64> = observations.iter().map(|o| 2000.0 + o.t_tdb_days / crate::units::JULIAN_YEAR_DAYS).collect();
+    let years: Vec<f64> =
+        observations.iter().map(|o| 2000.0 + o.t_tdb_days / latens::units::JULIAN_YEAR_DAYS).collect();
     let used: Vec<bool> = null.residuals.iter().map(|r| r.used).collect();
     let sra: Vec<f64> = observations.iter().map(|o| o.sigma_ra_arcsec).collect();
     let sdec: Vec<f64> = observations.iter().map(|o| o.sigma_dec_arcsec).collect();
@@ -801,9 +802,9 @@ struct SearchStage {
     geometry: Vec<ObservingGeometry>,
     /// The kernel about the null orbit (detection, alternatives).
     kernel: LinearKernel,
-    result: crate::perturber::SearchResult,
-    refined: Option<crate::perturber::refine::Refinement>,
-    centred: Option<crate::perturber::refine::Recentred>,
+    result: latens::perturber::SearchResult,
+    refined: Option<latens::perturber::refine::Refinement>,
+    centred: Option<latens::perturber::refine::Recentred>,
     /// The basins the posterior starts from, drops against the null model.
     basins: Vec<Scored>,
     rounds: usize,
@@ -819,7 +820,7 @@ impl SearchStage {
     /// null model.
     fn chi2_per_observation(
         &self,
-        model: &crate::dynamics::ForceModel,
+        model: &latens::dynamics::ForceModel,
         ephemeris: &dyn Ephemeris,
     ) -> Result<Vec<f64>, CliError> {
         let n = self.observations.len();
@@ -837,7 +838,7 @@ impl SearchStage {
                 m.perturbers = vec![r.perturber];
                 m.predict(&r.tracked_state, false).map_err(CliError::failed)?;
                 let pred = m.predict(&r.tracked_state, false).map_err(CliError::failed)?;
-                crate::reference::whitened_residuals(&self.observations, &pred, &vec![true; n], &mut w);
+                latens::reference::whitened_residuals(&self.observations, &pred, &vec![true; n], &mut w);
             }
             _ => {
                 for (k, (o, r)) in self.observations.iter().zip(&self.null.residuals).enumerate() {
@@ -851,26 +852,19 @@ impl SearchStage {
 
 fn search_stage(
     observations: Vec<Observation>,
-    sites: &crate::io::observations::SiteTable,
-    model: &crate::dynamics::ForceModel,
+    sites: &latens::io::observations::SiteTable,
+    model: &latens::dynamics::ForceModel,
     ephemeris: &dyn Ephemeris,
     settings: &SearchSettings,
 ) -> Result<SearchStage, CliError> {
-    use crate::perturber::refine::{recentre, refine};
+    use latens::perturber::refine::{recentre, refine};
     eprintln!("Fitting the reference orbit (no perturber) to {} observations...", observations.len());
     let null = fit_reference_orbit(&observations, sites, model, ephemeris, &INFER_REFERENCE_SETTINGS, None)
         .map_err(CliError::failed)?;
     let geometry = observing_geometry(&observations, sites, ephemeris).map_err(CliError::failed)?;
     let kernel =
         LinearKernel::build(&null, &observations, geometry.clone(), model, ephemeris).map_err(CliError::failed)?;
-    let n_total = crate::perturber::search::hypotheses(settings, kernel.central_gm()).len();
-    let bar = indicatif::ProgressBar::new(n_total as u64);
-    bar.set_style(
-        indicatif::ProgressStyle::with_template("searching {bar:40} {pos}/{len} hypotheses ({eta} left)")
-            .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar()),
-    );
-    let result = grid_search(&kernel, settings, &|n| bar.set_position(n as u64));
-    bar.finish_and_clear();
+    let result = grid_search(&kernel, settings, &crate::cli::progress::Bars::new());
     let mut stage = SearchStage {
         observations,
         null,
@@ -927,7 +921,7 @@ fn search_stage(
     // refined solution, search again on it, and refine again when another
     // place scores better there; every basin of the final search is kept
     // for the posterior.
-    let gm_earth = crate::units::EARTH_MASS_SOLAR * crate::units::GM_SUN_AU3_PER_DAY2;
+    let gm_earth = latens::units::EARTH_MASS_SOLAR * latens::units::GM_SUN_AU3_PER_DAY2;
     let gm_max = settings.mass_earth.1 * gm_earth;
     let quiet = SearchSettings { n_null: 0, ..settings.clone() };
     for round in 1..=MAX_RECENTRE_ROUNDS {
@@ -943,18 +937,23 @@ fn search_stage(
             ephemeris,
         )
         .map_err(CliError::failed)?;
-        let again = grid_search(&centred.kernel, &quiet, &|_| {});
-        let centre = crate::perturber::Hypothesis {
+        let again = grid_search(&centred.kernel, &quiet, &latens::progress::Quiet);
+        let centre = latens::perturber::Hypothesis {
             position_au: current.perturber.position_au,
             velocity_au_per_day: current.perturber.velocity_au_per_day,
         };
         let mut scratch = vec![0.0; centred.kernel.n_residuals()];
-        let mut basins: Vec<Scored> =
-            crate::perturber::search::score(&centred.kernel, &centre, gm_max, settings.min_separation_au, &mut scratch)
-                .into_iter()
-                .chain(again.basins.iter().copied())
-                .map(|s| Scored { delta_chi2: s.delta_chi2 + centred.delta_chi2_offset, ..s })
-                .collect();
+        let mut basins: Vec<Scored> = latens::perturber::search::score(
+            &centred.kernel,
+            &centre,
+            gm_max,
+            settings.min_separation_au,
+            &mut scratch,
+        )
+        .into_iter()
+        .chain(again.basins.iter().copied())
+        .map(|s| Scored { delta_chi2: s.delta_chi2 + centred.delta_chi2_offset, ..s })
+        .collect();
         basins.sort_by(|a, b| b.delta_chi2.total_cmp(&a.delta_chi2));
         let centre_delta = stage.null.chi2 - current.chi2;
         // A better place elsewhere on the recentred kernel: refine it.
@@ -976,7 +975,7 @@ fn search_stage(
         stage.rounds = round;
         if !moved {
             // Distinct basins within the usual window of the best, as the grid keeps them.
-            let kept = crate::perturber::search::distinct(
+            let kept = latens::perturber::search::distinct(
                 basins.into_iter(),
                 settings.basin_separation_deg,
                 2.0,
@@ -998,7 +997,7 @@ fn search_stage(
 fn upper_limits(
     samples: &[super::posterior::DerivedSample],
     distance_au: (f64, f64),
-) -> Vec<crate::io::results::UpperLimitFile> {
+) -> Vec<latens::io::results::UpperLimitFile> {
     let bands = 6;
     let ratio = (distance_au.1 / distance_au.0).powf(1.0 / bands as f64);
     (0..bands)
@@ -1013,9 +1012,9 @@ fn upper_limits(
                 })
                 .map(|s| s.sample.mass_earth())
                 .collect();
-            (masses.len() >= 50).then(|| crate::io::results::UpperLimitFile {
+            (masses.len() >= 50).then(|| latens::io::results::UpperLimitFile {
                 distance_au: [lo, hi],
-                mass_earth_95: crate::posterior::quantiles(&masses, &[0.95])[0],
+                mass_earth_95: latens::posterior::quantiles(&masses, &[0.95])[0],
                 n_samples: masses.len(),
             })
         })

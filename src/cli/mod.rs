@@ -8,6 +8,7 @@ mod demo;
 mod infer;
 mod posterior;
 mod predict;
+mod progress;
 mod residuals;
 mod search;
 mod sensitivity;
@@ -82,4 +83,14 @@ fn is_broken_pipe(error: &anyhow::Error) -> bool {
     error
         .chain()
         .any(|e| e.downcast_ref::<std::io::Error>().is_some_and(|io| io.kind() == std::io::ErrorKind::BrokenPipe))
+}
+
+/// Stop flag raised by Ctrl-C (installed once per process).
+pub fn interrupt_flag() -> &'static std::sync::atomic::AtomicBool {
+    static FLAG: std::sync::atomic::AtomicBool = std::sync::atomic::AtomicBool::new(false);
+    static INSTALLED: std::sync::Once = std::sync::Once::new();
+    INSTALLED.call_once(|| {
+        let _ = ctrlc::set_handler(|| FLAG.store(true, std::sync::atomic::Ordering::SeqCst));
+    });
+    &FLAG
 }

@@ -8,27 +8,28 @@ use std::time::Instant;
 
 use super::CliError;
 use super::args::InferArgs;
-use crate::astrometry::{ObservingGeometry, astrometric_direction};
-use crate::dynamics::ForceModel;
-use crate::dynamics::kepler::elements_from_state;
-use crate::ephemeris::Ephemeris;
-use crate::frames::{angular_separation, ecliptic_from_icrf};
-use crate::io::observations::Observation;
-use crate::io::results::{
+use latens::astrometry::{ObservingGeometry, astrometric_direction};
+use latens::dynamics::ForceModel;
+use latens::dynamics::kepler::elements_from_state;
+use latens::ephemeris::Ephemeris;
+use latens::frames::{angular_separation, ecliptic_from_icrf};
+use latens::io::observations::Observation;
+use latens::io::results::{
     DiagnosticsFile, EstimateFile, EvidenceFile, ExplanationFile, ImpostorFile, IntervalFile, PosteriorFile, PriorFile,
 };
-use crate::io::write_atomically;
-use crate::perturber::{KeplerOrbit, LinearKernel, Scored};
-use crate::posterior::impostors::{self, ImpostorPriors};
-use crate::posterior::sampler::{self, Checkpoint, SamplerError, SamplerSettings, SamplerState};
-use crate::posterior::{
+use latens::io::write_atomically;
+use latens::perturber::{KeplerOrbit, LinearKernel, Scored};
+use latens::posterior::impostors::{self, ImpostorPriors};
+use latens::posterior::sampler::{self, Checkpoint, SamplerError, SamplerSettings, SamplerState};
+use latens::posterior::{
     NonlinearLikelihood, NonlinearPosterior, PerturberPosterior, PerturberPrior, PerturberSample,
     effective_sample_size, importance_log_weights, quantiles, resample,
 };
-use crate::reference::ReferenceFit;
-use crate::report::posterior_chart::{Column, CornerChart, TraceChart, render_png, render_svg};
-use crate::units::RAD_PER_DEG;
-use crate::vec3::Vec3;
+use latens::progress::Stage;
+use latens::reference::ReferenceFit;
+use latens::units::RAD_PER_DEG;
+use latens::vec3::Vec3;
+use latens_charts::posterior_chart::{Column, CornerChart, TraceChart, render_png, render_svg};
 
 /// Parameter names of the sampled vector.
 const PARAMETERS: [&str; 7] =
@@ -54,7 +55,7 @@ pub(super) struct Inputs<'a> {
     /// |y_null|^2 - |y'|^2 of that kernel (0 for the null kernel).
     pub delta_chi2_offset: f64,
     /// What the tracked body is (decides the alternatives' priors).
-    pub tracked: &'a crate::dynamics::TrackedBody,
+    pub tracked: &'a latens::dynamics::TrackedBody,
     pub observations: &'a [Observation],
     pub geometry: &'a [ObservingGeometry],
     pub model: &'a ForceModel,
@@ -126,13 +127,13 @@ impl SearchGeometry {
     pub fn derive(&self, s: &PerturberSample, log_likelihood: f64, t0: f64, gm_sun: f64) -> Option<DerivedSample> {
         let orbit = KeplerOrbit::from_state(gm_sun, s.position_au, s.velocity_au_per_day, t0)?;
         let el = elements_from_state(
-            crate::units::GM_SUN_AU3_PER_DAY2,
+            latens::units::GM_SUN_AU3_PER_DAY2,
             ecliptic_from_icrf(s.position_au),
             ecliptic_from_icrf(s.velocity_au_per_day),
         )
         .ok()?;
         let (dir, dist, helio, elong) = self.place_at(&orbit, self.epoch, &self.geometry);
-        let place = crate::frames::radec_from_vector(dir);
+        let place = latens::frames::radec_from_vector(dir);
         let (ra, dec) = (place.ra_rad, place.dec_rad);
         let deg = |x: f64| x / RAD_PER_DEG;
         Some(DerivedSample {
@@ -251,7 +252,7 @@ pub(super) fn run(args: &InferArgs, out: &Path, input: &Inputs) -> Result<Outcom
         seed: args.seed,
     };
     settings
-        .check(crate::posterior::model::DIM)
+        .check(latens::posterior::model::DIM)
         .map_err(|e| CliError::bad_input(anyhow::anyhow!("posterior sampler: {e}")))?;
     if args.runs == 0 {
         return Err(CliError::bad_input(anyhow::anyhow!("--runs must be at least 1")));
@@ -288,21 +289,14 @@ pub(super) fn run(args: &InferArgs, out: &Path, input: &Inputs) -> Result<Outcom
             .collect::<Result<Vec<_>, _>>()
             .map_err(CliError::failed)?
     };
-    let bar = indicatif::ProgressBar::new(settings.n_steps as u64);
-    bar.set_style(
-        indicatif::ProgressStyle::with_template("sampling the posterior {bar:40} {pos}/{len} steps ({eta} left)")
-            .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar()),
-    );
     std::fs::create_dir_all(out).map_err(|e| CliError::failed(anyhow::anyhow!("creating {}: {e}", out.display())))?;
     let started = Instant::now();
     let start_step = states[0].step;
-    let result = sampler::run(&posterior, &settings, states, Some(&checkpoint), sampler::interrupt_flag(), &|s| {
-        bar.set_position(s as u64)
-    });
-    bar.finish_and_clear();
+    let bars = crate::cli::progress::Bars::interruptible();
+    let result = sampler::run(&posterior, &settings, states, Some(&checkpoint), Stage::Sampling, &bars);
     let states = match result {
         Ok(s) => s,
-        Err(SamplerError::Interrupted { step, of, checkpoint }) => {
+        Err(SamplerError::Interrupted { step, of, checkpoint: Some(checkpoint) }) => {
             return Err(CliError::failed(anyhow::anyhow!(
                 "interrupted at step {step} of {of}; the progress is saved in {checkpoint}: run the same command with --resume {} to finish it",
                 out.display()
@@ -468,8 +462,8 @@ pub(super) fn run(args: &InferArgs, out: &Path, input: &Inputs) -> Result<Outcom
         e: interval(&col(&|d| d.e)),
         inc_deg: interval(&col(&|d| d.inc_deg)),
         sky_radius_deg: interval(&radius),
-        mean_ra_deg: crate::frames::radec_from_vector(mean_dir).ra_rad / RAD_PER_DEG,
-        mean_dec_deg: crate::frames::radec_from_vector(mean_dir).dec_rad / RAD_PER_DEG,
+        mean_ra_deg: latens::frames::radec_from_vector(mean_dir).ra_rad / RAD_PER_DEG,
+        mean_dec_deg: latens::frames::radec_from_vector(mean_dir).dec_rad / RAD_PER_DEG,
         prior: PriorFile {
             mass_earth_log_uniform: [prior.mass_earth.0, prior.mass_earth.1],
             heliocentric_distance_au_log_uniform: [prior.distance_au.0, prior.distance_au.1],
@@ -588,13 +582,9 @@ fn nonlinear_steps(
     }
     let start: Vec<Vec<f64>> = order[..settings.n_walkers].iter().map(|&i| checked[i].0.clone()).collect();
     let state = SamplerState::new(&target, &settings, 0, &[start]).map_err(CliError::failed)?;
-    let bar = indicatif::ProgressBar::new(settings.n_steps as u64);
-    let states =
-        sampler::run(&target, &settings, vec![state], None, &std::sync::atomic::AtomicBool::new(false), &|s| {
-            bar.set_position(s as u64)
-        })
+    let bars = crate::cli::progress::Bars::interruptible();
+    let states = sampler::run(&target, &settings, vec![state], None, Stage::NonlinearSampling, &bars)
         .map_err(CliError::failed)?;
-    bar.finish_and_clear();
     Ok(states[0].posterior_samples(settings.burn_in))
 }
 
@@ -775,12 +765,8 @@ fn unwrap_ra(derived: &[DerivedSample]) -> Vec<f64> {
 /// Writes a chart as PNG (through a temporary file) and SVG.
 pub(super) fn save_chart<P, S>(out: &Path, stem: &str, size: (u32, u32), png: P, svg: S) -> Result<(), CliError>
 where
-    P: FnOnce(
-        &plotters::prelude::DrawingArea<plotters::prelude::BitMapBackend, plotters::coord::Shift>,
-    ) -> Result<(), String>,
-    S: FnOnce(
-        &plotters::prelude::DrawingArea<plotters::prelude::SVGBackend, plotters::coord::Shift>,
-    ) -> Result<(), String>,
+    P: FnOnce(&latens_charts::PngArea<'_>) -> Result<(), String>,
+    S: FnOnce(&latens_charts::SvgArea<'_>) -> Result<(), String>,
 {
     let fail = |e: String| CliError::failed(anyhow::anyhow!("drawing {stem}: {e}"));
     let tmp = out.join(format!(".{stem}.{}.tmp.png", std::process::id()));

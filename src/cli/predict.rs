@@ -13,18 +13,18 @@ use super::CliError;
 use super::args::PredictArgs;
 use super::posterior::SearchGeometry;
 use super::search::geometry_at;
-use crate::dynamics::kepler::{Elements, state_from_elements};
-use crate::ephemeris::{Ephemeris, Vsop87};
-use crate::frames::{angular_separation, icrf_from_ecliptic};
-use crate::io::write_atomically;
-use crate::perturber::KeplerOrbit;
-use crate::posterior::quantiles;
-use crate::report::search_chart::tangent;
-use crate::skymap::observe::{magnitude_range, motion};
-use crate::skymap::{SkyMap, lon_lat};
-use crate::time::{epoch_from_tdb_days, parse_epoch, tdb_days_from_j2000, utc_iso_from_epoch};
-use crate::units::{GM_SUN_AU3_PER_DAY2, J2000_JD, RAD_PER_DEG};
-use crate::vec3::Vec3;
+use latens::dynamics::kepler::{Elements, state_from_elements};
+use latens::ephemeris::{Ephemeris, Vsop87};
+use latens::frames::{angular_separation, icrf_from_ecliptic};
+use latens::io::write_atomically;
+use latens::perturber::KeplerOrbit;
+use latens::posterior::quantiles;
+use latens::skymap::observe::{magnitude_range, motion};
+use latens::skymap::{SkyMap, lon_lat};
+use latens::time::{epoch_from_tdb_days, parse_epoch, tdb_days_from_j2000, utc_iso_from_epoch};
+use latens::units::{GM_SUN_AU3_PER_DAY2, J2000_JD, RAD_PER_DEG};
+use latens::vec3::Vec3;
+use latens_charts::search_chart::tangent;
 
 /// Samples followed per mode.
 const PER_MODE: usize = 400;
@@ -71,7 +71,7 @@ fn read_samples(path: &Path, epoch: f64) -> Result<Vec<Sample>, CliError> {
             .map_err(|e| bad(format!("{}:{line}: elements: {e}", path.display())))?;
         let orbit = KeplerOrbit::from_state(GM_SUN_AU3_PER_DAY2, icrf_from_ecliptic(r), icrf_from_ecliptic(vel), epoch)
             .ok_or_else(|| bad(format!("{}:{line}: the orbit is not bound", path.display())))?;
-        out.push(Sample { mass_earth: v[0], orbit, direction: crate::frames::vector_from_radec_deg(v[7], v[8]) });
+        out.push(Sample { mass_earth: v[0], orbit, direction: latens::frames::vector_from_radec_deg(v[7], v[8]) });
     }
     if out.is_empty() {
         return Err(bad(format!("{}: no samples", path.display())));

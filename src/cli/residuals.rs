@@ -7,17 +7,17 @@ use anyhow::Context;
 
 use super::CliError;
 use super::args::ResidualsArgs;
-use crate::astrometry::observer_ephemeris_bodies;
-use crate::dynamics::ForceModel;
-use crate::ephemeris::{Body, Ephemeris, SpkFile, Tabulated, Vsop87};
-use crate::io::observations::{InputError, Observation, SiteTable, read_observations};
-use crate::io::results::{FitFile, OrbitFile, SolverFile, TrendFile};
-use crate::io::write_atomically;
-use crate::reference::{ReferenceFit, ReferenceSettings, fit_reference_orbit};
-use crate::report::residual_chart::ResidualChart;
-use crate::stats::chi_square_survival;
-use crate::time::{epoch_from_tdb_days, parse_epoch, tdb_days_from_j2000, utc_iso_from_epoch};
-use crate::units::{J2000_JD, JULIAN_YEAR_DAYS, RAD_PER_DEG};
+use latens::astrometry::observer_ephemeris_bodies;
+use latens::dynamics::ForceModel;
+use latens::ephemeris::{Body, Ephemeris, SpkFile, Tabulated, Vsop87};
+use latens::io::observations::{InputError, Observation, SiteTable, read_observations};
+use latens::io::results::{FitFile, OrbitFile, SolverFile, TrendFile};
+use latens::io::write_atomically;
+use latens::reference::{ReferenceFit, ReferenceSettings, fit_reference_orbit};
+use latens::stats::chi_square_survival;
+use latens::time::{epoch_from_tdb_days, parse_epoch, tdb_days_from_j2000, utc_iso_from_epoch};
+use latens::units::{J2000_JD, JULIAN_YEAR_DAYS, RAD_PER_DEG};
+use latens_charts::residual_chart::ResidualChart;
 
 /// The inner planets, folded into the Sun when not listed as known bodies.
 const INNER: [Body; 4] = [Body::Mercury, Body::Venus, Body::EarthMoonBarycenter, Body::Mars];
@@ -59,7 +59,7 @@ pub(super) fn force_model(known: &[Body]) -> ForceModel {
     model.folded = INNER
         .iter()
         .filter(|b| !(known.contains(b) || (lists_earth && **b == Body::EarthMoonBarycenter)))
-        .map(|&b| crate::dynamics::KnownBody { body: b, gm_au3_per_day2: b.gm_au3_per_day2() })
+        .map(|&b| latens::dynamics::KnownBody { body: b, gm_au3_per_day2: b.gm_au3_per_day2() })
         .collect();
     model
 }
@@ -68,9 +68,9 @@ pub(super) fn force_model(known: &[Body]) -> ForceModel {
 /// and `--kind`. A tracked planet cannot also be a known body.
 pub(super) fn model_from_input(
     input: &super::args::InputArgs,
-) -> Result<(ForceModel, crate::dynamics::TrackedBody), CliError> {
+) -> Result<(ForceModel, latens::dynamics::TrackedBody), CliError> {
     let known = parse_known(&input.known).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
-    let tracked = crate::dynamics::TrackedBody::parse(&input.tracked_mass, input.kind.as_deref())
+    let tracked = latens::dynamics::TrackedBody::parse(&input.tracked_mass, input.kind.as_deref())
         .map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
     if let Some(b) = tracked.named
         && known.contains(&b)

@@ -7,21 +7,21 @@ use std::path::Path;
 
 use super::CliError;
 use super::posterior::{DerivedSample, SearchGeometry, save_chart};
-use crate::astrometry::{ObservingGeometry, sun_barycentric_velocity};
-use crate::ephemeris::{Body, Ephemeris};
-use crate::frames::{angular_separation, icrf_from_ecliptic};
-use crate::io::results::{ModeFile, SkyFile};
-use crate::io::write_atomically;
-use crate::perturber::KeplerOrbit;
-use crate::posterior::quantiles;
-use crate::report::search_chart::{SearchChart, SkyCell, ZoomPanel, from_tangent, tangent};
-use crate::skymap::observe::{
+use latens::astrometry::{ObservingGeometry, sun_barycentric_velocity};
+use latens::ephemeris::{Body, Ephemeris};
+use latens::frames::{angular_separation, icrf_from_ecliptic};
+use latens::io::results::{ModeFile, SkyFile};
+use latens::io::write_atomically;
+use latens::perturber::KeplerOrbit;
+use latens::posterior::quantiles;
+use latens::skymap::observe::{
     ALBEDO_RANGE, CROWDED_LATITUDE_DEG, DENSITY_RANGE_G_CM3, galactic_lon_lat_deg, icrs_from_galactic_deg,
     magnitude_range, motion,
 };
-use crate::skymap::{self, DEG2_PER_SR, SkyMap};
-use crate::time::{epoch_from_tdb_days, parse_epoch, tdb_days_from_j2000, utc_iso_from_epoch};
-use crate::vec3::Vec3;
+use latens::skymap::{self, DEG2_PER_SR, SkyMap};
+use latens::time::{epoch_from_tdb_days, parse_epoch, tdb_days_from_j2000, utc_iso_from_epoch};
+use latens::vec3::Vec3;
+use latens_charts::search_chart::{SearchChart, SkyCell, ZoomPanel, from_tangent, tangent};
 
 /// Solar elongation below which a field gets the safety warning, degrees.
 const SUN_DEG: f64 = 45.0;
@@ -354,7 +354,7 @@ fn build_chart(
         })
         .collect();
     let galactic_plane: Vec<Vec3> = (0..=720).map(|k| icrs_from_galactic_deg(k as f64 * 0.5, 0.0)).collect();
-    let unit = crate::frames::vector_from_radec_deg;
+    let unit = latens::frames::vector_from_radec_deg;
     let marks = modes
         .iter()
         .filter(|m| m.probability >= 0.01)

@@ -8,12 +8,12 @@ use anyhow::Context;
 use super::CliError;
 use super::args::{SensitivityArgs, SensitivityCommand};
 use super::residuals::{load_ephemeris, read_inputs};
-use crate::io::write_atomically;
-use crate::perturber::search::SearchSettings;
-use crate::perturber::sensitivity::{Cell, SensitivitySettings, compute_cells, contour};
-use crate::perturber::{LinearKernel, grid_search};
-use crate::reference::{ReferenceSettings, fit_reference_orbit, observing_geometry};
-use crate::report::sensitivity_chart::SensitivityChart;
+use latens::io::write_atomically;
+use latens::perturber::search::SearchSettings;
+use latens::perturber::sensitivity::{Cell, SensitivitySettings, compute_cells, contour};
+use latens::perturber::{LinearKernel, grid_search};
+use latens::reference::{ReferenceSettings, fit_reference_orbit, observing_geometry};
+use latens_charts::sensitivity_chart::SensitivityChart;
 
 const HEADER: &str =
     "mass_earth,distance_au,detection_probability,n_trials,median_delta_chi2,mass_index,distance_index";
@@ -61,16 +61,16 @@ pub(super) fn run(args: &SensitivityArgs) -> Result<(), CliError> {
         }
         Some(orbit_path) => {
             let sites = match &input.sites {
-                Some(p) => crate::io::observations::SiteTable::read(p).map_err(CliError::bad_input)?,
-                None => crate::io::observations::SiteTable::new(),
+                Some(p) => latens::io::observations::SiteTable::read(p).map_err(CliError::bad_input)?,
+                None => latens::io::observations::SiteTable::new(),
             };
             let mut schedule =
-                crate::io::observations::read_schedule(&input.obs, &sites, 3).map_err(CliError::bad_input)?;
+                latens::io::observations::read_schedule(&input.obs, &sites, 3).map_err(CliError::bad_input)?;
             let ephemeris = load_ephemeris(&input.ephemeris, &model, &schedule)?;
             let (t0, state) = read_orbit(orbit_path)?;
             // Positions the planned survey would measure of this orbit (no noise).
             let geometry = observing_geometry(&schedule, &sites, ephemeris.as_ref()).map_err(CliError::failed)?;
-            let mut orbit = crate::reference::OrbitModel::new(&schedule, geometry, t0, &model, ephemeris.as_ref())
+            let mut orbit = latens::reference::OrbitModel::new(&schedule, geometry, t0, &model, ephemeris.as_ref())
                 .map_err(CliError::failed)?;
             orbit.predict(&state, false).map_err(CliError::failed)?;
             let predicted = orbit.predict(&state, false).map_err(CliError::failed)?;
@@ -107,7 +107,7 @@ pub(super) fn run(args: &SensitivityArgs) -> Result<(), CliError> {
         ..SearchSettings::default()
     };
     let zeros = vec![0.0; kernel.n_residuals()];
-    let nulls = grid_search(&kernel.with_residuals(&zeros), &search, &|_| {});
+    let nulls = grid_search(&kernel.with_residuals(&zeros), &search, &latens::progress::Quiet);
     let mut maxima = nulls.null_maxima.clone();
     maxima.sort_by(f64::total_cmp);
     let q = ((1.0 - args.fap) * maxima.len() as f64).ceil() as usize;
@@ -128,19 +128,7 @@ pub(super) fn run(args: &SensitivityArgs) -> Result<(), CliError> {
         Some((k, n)) => all.iter().enumerate().filter(|(i, _)| i % n == k - 1).map(|(_, c)| *c).collect(),
         None => all,
     };
-    let n_dist = {
-        let mut d: Vec<usize> = mine.iter().map(|c| c.1).collect();
-        d.sort();
-        d.dedup();
-        d.len()
-    };
-    let bar = indicatif::ProgressBar::new(n_dist as u64);
-    bar.set_style(
-        indicatif::ProgressStyle::with_template("mapping {bar:40} {pos}/{len} distances ({eta} left)")
-            .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar()),
-    );
-    let cells = compute_cells(&kernel, &settings, threshold, &mine, &|n| bar.set_position(n as u64));
-    bar.finish_and_clear();
+    let cells = compute_cells(&kernel, &settings, threshold, &mine, &crate::cli::progress::Bars::new());
 
     let mut csv = format!(
         "# latens sensitivity: detection threshold delta chi2 {threshold:.4} (false-alarm probability {}), seed {}, grid {}:{}, trials {}\n{HEADER}\n",
@@ -195,7 +183,7 @@ fn read_orbit(path: &Path) -> Result<(f64, [f64; 6]), CliError> {
     for (s, x) in state.iter_mut().zip(arr) {
         *s = x.as_f64().unwrap_or(0.0);
     }
-    Ok((jd - crate::units::J2000_JD, state))
+    Ok((jd - latens::units::J2000_JD, state))
 }
 
 fn write_products(out: &Path, csv: &str, cells: &[Cell], threshold: f64) -> anyhow::Result<()> {

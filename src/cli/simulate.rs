@@ -10,19 +10,19 @@ use std::path::{Path, PathBuf};
 
 use super::CliError;
 use super::residuals::{force_model, parse_known};
-use crate::astrometry::astrometric_direction;
-use crate::dynamics::kepler::{Elements, propagate, state_from_elements};
-use crate::dynamics::{ForceModel, InitialState, Perturber, PropagationSettings, Propagator};
-use crate::ephemeris::{Body, Ephemeris, Tabulated, Vsop87};
-use crate::frames::{angular_separation, icrf_from_ecliptic, radec_from_vector};
-use crate::io::observations::{Observation, Site, SiteTable};
-use crate::io::results::{PlaceFile, TruthBodyFile, TruthFile};
-use crate::io::scenario::{ScenarioFile, read};
-use crate::io::write_atomically;
-use crate::simulate::{SurveyPlan, simulate_survey};
-use crate::time::{epoch_from_tdb_days, parse_epoch, tdb_days_from_j2000, utc_iso_from_epoch};
-use crate::units::{EARTH_MASS_SOLAR, GM_SUN_AU3_PER_DAY2, J2000_JD, RAD_PER_ARCSEC, RAD_PER_DEG};
-use crate::vec3::Vec3;
+use latens::astrometry::astrometric_direction;
+use latens::dynamics::kepler::{Elements, propagate, state_from_elements};
+use latens::dynamics::{ForceModel, InitialState, Perturber, PropagationSettings, Propagator};
+use latens::ephemeris::{Body, Ephemeris, Tabulated, Vsop87};
+use latens::frames::{angular_separation, icrf_from_ecliptic, radec_from_vector};
+use latens::io::observations::{Observation, Site, SiteTable};
+use latens::io::results::{PlaceFile, TruthBodyFile, TruthFile};
+use latens::io::scenario::{ScenarioFile, read};
+use latens::io::write_atomically;
+use latens::simulate::{SurveyPlan, simulate_survey};
+use latens::time::{epoch_from_tdb_days, parse_epoch, tdb_days_from_j2000, utc_iso_from_epoch};
+use latens::units::{EARTH_MASS_SOLAR, GM_SUN_AU3_PER_DAY2, J2000_JD, RAD_PER_ARCSEC, RAD_PER_DEG};
+use latens::vec3::Vec3;
 
 /// Spacing of the track's positions, days (a month).
 pub(super) const TRACK_SPACING_DAYS: f64 = 30.4375;

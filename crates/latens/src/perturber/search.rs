@@ -26,6 +26,7 @@ use rayon::prelude::*;
 
 use super::kernel::{KeplerOrbit, LinearKernel};
 use crate::frames::icrf_from_ecliptic;
+use crate::progress::{Observer, Stage};
 use crate::units::EARTH_MASS_SOLAR;
 use crate::vec3::Vec3;
 
@@ -191,16 +192,14 @@ pub fn score(kernel: &LinearKernel, h: &Hypothesis, gm_max: f64, min_sep: f64, s
 }
 
 /// Runs the grid search, the basin selection and the null simulations.
-/// `progress` is called with the number of hypotheses done.
-pub fn grid_search(
-    kernel: &LinearKernel,
-    settings: &SearchSettings,
-    progress: &(dyn Fn(usize) + Sync),
-) -> SearchResult {
+/// Reports to `observer` as [`Stage::Search`](crate::progress::Stage)
+/// (hypotheses done); it runs to the end whatever the observer asks.
+pub fn grid_search(kernel: &LinearKernel, settings: &SearchSettings, observer: &dyn Observer) -> SearchResult {
     let gm_earth = EARTH_MASS_SOLAR * crate::units::GM_SUN_AU3_PER_DAY2;
     let gm_max = settings.mass_earth.1 * gm_earth;
     let hyps = hypotheses(settings, kernel.central_gm());
     let n_res = kernel.n_residuals();
+    observer.begin(Stage::Search, hyps.len() as u64);
 
     // The signal subspace, from a sample of hypotheses.
     let basis = signal_subspace(kernel, &hyps, settings, gm_max);
@@ -233,10 +232,11 @@ pub fn grid_search(
                 })
                 .collect();
             let n = done.fetch_add(hs.len(), std::sync::atomic::Ordering::Relaxed) + hs.len();
-            progress(n);
+            observer.advance(n as u64);
             out.into_iter()
         })
         .collect();
+    observer.finish();
 
     let n_skipped = results.iter().filter(|r| r.0.is_none()).count();
     let scored: Vec<Scored> = results.iter().filter_map(|r| r.0).collect();

@@ -12,7 +12,7 @@
 use plotters::coord::Shift;
 use plotters::prelude::*;
 
-use crate::vec3::Vec3;
+use latens::vec3::Vec3;
 
 const INK: RGBColor = RGBColor(30, 30, 30);
 const REGION90: RGBColor = RGBColor(250, 196, 120);
@@ -72,7 +72,7 @@ fn hammer_ra_dec(ra: f64, dec: f64) -> (f64, f64) {
 }
 
 fn ra_dec(d: Vec3) -> (f64, f64) {
-    crate::skymap::lon_lat(d)
+    latens::skymap::lon_lat(d)
 }
 
 /// A polygon's projected corners, unwrapped in RA around its centre (kept
@@ -356,7 +356,7 @@ fn draw_zoom<DB: DrawingBackend>(z: &ZoomPanel, area: &DrawingArea<DB, Shift>) -
         let pts: Vec<(f64, f64)> = (0..=60)
             .filter_map(|k| {
                 let dec = dc - 2.0 * h + 4.0 * h * k as f64 / 60.0;
-                let d = crate::frames::vector_from_radec_deg(ra, dec.clamp(-89.999, 89.999));
+                let d = latens::frames::vector_from_radec_deg(ra, dec.clamp(-89.999, 89.999));
                 tangent(z.centre, d)
             })
             .filter(|p| p.0.abs() <= h && p.1.abs() <= h)
@@ -381,7 +381,7 @@ fn draw_zoom<DB: DrawingBackend>(z: &ZoomPanel, area: &DrawingArea<DB, Shift>) -
                 .filter_map(|k| {
                     tangent(
                         z.centre,
-                        crate::frames::vector_from_radec_deg(rc - reach + 2.0 * reach * k as f64 / 60.0, dec),
+                        latens::frames::vector_from_radec_deg(rc - reach + 2.0 * reach * k as f64 / 60.0, dec),
                     )
                 })
                 .filter(|p| p.0.abs() <= h && p.1.abs() <= h)

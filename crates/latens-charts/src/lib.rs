@@ -17,3 +17,8 @@ pub fn register_fonts() {
         let _ = plotters::style::register_font("sans-serif", plotters::style::FontStyle::Bold, dejavu::sans::bold());
     });
 }
+
+/// The drawing area of a PNG chart, as callers of [`posterior_chart::render_png`] see it.
+pub type PngArea<'a> = plotters::prelude::DrawingArea<plotters::prelude::BitMapBackend<'a>, plotters::coord::Shift>;
+/// The drawing area of an SVG chart, as callers of [`posterior_chart::render_svg`] see it.
+pub type SvgArea<'a> = plotters::prelude::DrawingArea<plotters::prelude::SVGBackend<'a>, plotters::coord::Shift>;

@@ -23,8 +23,8 @@
 // Walker arrays are indexed in step with each other, as in the equations.
 #![allow(clippy::needless_range_loop)]
 
+use crate::progress::{Observer, Stage};
 use std::path::Path;
-use std::sync::atomic::{AtomicBool, Ordering};
 
 use rand::rngs::StdRng;
 use rand::{RngExt, SeedableRng};
@@ -166,8 +166,11 @@ pub enum SamplerError {
     Settings(String),
     #[error("a starting walker lies outside the prior or the likelihood's support (temperature {0}, walker {1})")]
     BadStart(usize, usize),
-    #[error("stopped at step {step} of {of}; the checkpoint {checkpoint} resumes it")]
-    Interrupted { step: usize, of: usize, checkpoint: String },
+    #[error("stopped at step {step} of {of}{}", match checkpoint {
+        Some(c) => format!("; the checkpoint {c} resumes it"),
+        None => "; nothing was saved".to_string(),
+    })]
+    Interrupted { step: usize, of: usize, checkpoint: Option<String> },
     #[error("checkpoint {0}: {1}")]
     Checkpoint(String, String),
 }
@@ -492,32 +495,45 @@ impl Checkpoint<'_> {
 }
 
 /// Runs independent states to `settings.n_steps`, one step of each in turn.
-/// Reports progress (steps done by the slowest run), saves a checkpoint
-/// every `checkpoint.every` steps and, when `stop` is raised, saves one and
-/// returns [`SamplerError::Interrupted`].
+/// Reports to `observer` as `stage` (steps done by the slowest run), saves a
+/// checkpoint every `checkpoint.every` steps and, when the observer asks to
+/// stop, saves one and returns [`SamplerError::Interrupted`].
 pub fn run(
+    target: &dyn Target,
+    settings: &SamplerSettings,
+    states: Vec<SamplerState>,
+    checkpoint: Option<&Checkpoint>,
+    stage: Stage,
+    observer: &dyn Observer,
+) -> Result<Vec<SamplerState>, SamplerError> {
+    observer.begin(stage, settings.n_steps as u64);
+    let result = drive(target, settings, states, checkpoint, observer);
+    observer.finish();
+    result
+}
+
+fn drive(
     target: &dyn Target,
     settings: &SamplerSettings,
     mut states: Vec<SamplerState>,
     checkpoint: Option<&Checkpoint>,
-    stop: &AtomicBool,
-    progress: &dyn Fn(usize),
+    observer: &dyn Observer,
 ) -> Result<Vec<SamplerState>, SamplerError> {
     loop {
         let step = states.iter().map(|s| s.step).min().unwrap_or(settings.n_steps);
-        progress(step);
+        observer.advance(step as u64);
         if step >= settings.n_steps {
             return Ok(states);
         }
-        if stop.load(Ordering::SeqCst) {
+        if observer.stop_requested() {
             let Some(c) = checkpoint else {
-                return Err(SamplerError::Interrupted { step, of: settings.n_steps, checkpoint: "(none)".into() });
+                return Err(SamplerError::Interrupted { step, of: settings.n_steps, checkpoint: None });
             };
             c.save(settings, &states)?;
             return Err(SamplerError::Interrupted {
                 step,
                 of: settings.n_steps,
-                checkpoint: c.path.display().to_string(),
+                checkpoint: Some(c.path.display().to_string()),
             });
         }
         states = states
@@ -760,14 +776,4 @@ pub fn combined_evidence(states: &[SamplerState], method: fn(&SamplerState) -> (
         0.0
     };
     (mean, propagated.max(scatter))
-}
-
-/// Stop flag raised by Ctrl-C (installed once per process).
-pub fn interrupt_flag() -> &'static AtomicBool {
-    static FLAG: AtomicBool = AtomicBool::new(false);
-    static INSTALLED: std::sync::Once = std::sync::Once::new();
-    INSTALLED.call_once(|| {
-        let _ = ctrlc::set_handler(|| FLAG.store(true, Ordering::SeqCst));
-    });
-    &FLAG
 }

@@ -21,12 +21,15 @@
 //!   credible regions as MOCs, modes, brightness and observability.
 //! - [`astrometry`]: the observation model (light time, observing sites).
 //! - [`io`]: reading observations, writing output files safely.
+//! - [`progress`]: the [`progress::Observer`] a caller passes to long stages
+//!   (progress, stop requests).
 //! - [`simulate`]: simulated survey astrometry with seeded noise.
-//! - [`report`]: charts from finished results.
-//! - [`cli`]: the command line; the only module that prints.
+//!
+//! This crate prints nothing and has no command-line, terminal or signal
+//! dependencies; charts are the `latens-charts` crate and the command line
+//! is the `latens` binary (the workspace's root package).
 
 pub mod astrometry;
-pub mod cli;
 pub mod dynamics;
 pub mod ephemeris;
 pub mod fit;
@@ -34,8 +37,8 @@ pub mod frames;
 pub mod io;
 pub mod perturber;
 pub mod posterior;
+pub mod progress;
 pub mod reference;
-pub mod report;
 pub mod simulate;
 pub mod skymap;
 pub mod stats;

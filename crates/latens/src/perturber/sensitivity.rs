@@ -150,7 +150,7 @@ pub fn compute_cells(
     settings: &SensitivitySettings,
     threshold_delta_chi2: f64,
     cells: &[(usize, usize)],
-    progress: &(dyn Fn(usize) + Sync),
+    observer: &dyn crate::progress::Observer,
 ) -> Vec<Cell> {
     use rayon::prelude::*;
     let gm_earth = EARTH_MASS_SOLAR * GM_SUN_AU3_PER_DAY2;
@@ -158,14 +158,16 @@ pub fn compute_cells(
     distances.sort();
     distances.dedup();
     let done = std::sync::atomic::AtomicUsize::new(0);
+    observer.begin(crate::progress::Stage::Sensitivity, distances.len() as u64);
     let amplitudes: Vec<(usize, Vec<f64>)> = distances
         .par_iter()
         .map(|&di| {
             let a = trial_amplitudes(kernel, settings, di);
-            progress(done.fetch_add(1, std::sync::atomic::Ordering::Relaxed) + 1);
+            observer.advance(done.fetch_add(1, std::sync::atomic::Ordering::Relaxed) as u64 + 1);
             (di, a)
         })
         .collect();
+    observer.finish();
     let sqrt_t = threshold_delta_chi2.max(0.0).sqrt();
     cells
         .iter()
