@@ -128,7 +128,7 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
         distance_au: "10:1000".into(),
         grid: "24:24".into(),
         trials: 48,
-        fap: super::infer::DETECTION_FAP,
+        fap: latens::pipeline::DETECTION_FAP,
         near_ecliptic: None,
         orbit: None,
         nulls: 500,

@@ -11,7 +11,6 @@ use super::CliError;
 use super::args::InferArgs;
 use super::residuals::{ResidualProducts, load_ephemeris, model_from_input, orbit_file, read_inputs};
 use latens::astrometry::{ObservingGeometry, astrometric_direction, sun_barycentric_velocity};
-use latens::dynamics::Perturber;
 use latens::dynamics::kepler::elements_from_state;
 use latens::ephemeris::{Body, Ephemeris, SpkFile, Vsop87};
 use latens::frames::{angular_separation, ecliptic_from_icrf};
@@ -20,26 +19,15 @@ use latens::io::results::{
     DetectionFile, InferSettingsFile, InferSummary, NullModelFile, PerturberFile, SearchStatsFile,
 };
 use latens::io::write_atomically;
-use latens::perturber::{KeplerOrbit, LinearKernel, Scored, SearchSettings, grid_search};
-use latens::reference::{OrbitModel, ReferenceFit, ReferenceSettings, fit_reference_orbit, observing_geometry, whiten};
+use latens::perturber::{KeplerOrbit, LinearKernel, Scored, SearchSettings};
+use latens::pipeline::{
+    DETECTION_FAP, Detection, DetectionSettings, PipelineError, Study, TrackedArc, detect, linearisation_error,
+};
+use latens::reference::ReferenceFit;
 use latens::time::{epoch_from_tdb_days, parse_epoch, tdb_days_from_j2000, utc_iso_from_epoch};
 use latens::units::{J2000_JD, RAD_PER_DEG};
 use latens::vec3::Vec3;
 use latens_charts::residual_chart::ResidualChart;
-
-/// False-alarm probability below which a perturber counts as detected: the
-/// two-sided 3-sigma Gaussian tail (common practice).
-pub const DETECTION_FAP: f64 = 0.0027;
-
-/// The null fit of `infer` sets nothing aside: a perturber's signal makes
-/// residuals of many sigma over whole seasons, and any threshold against
-/// the null model sets aside the very observations that carry it (measured:
-/// 68 of 520 demo observations at 5 sigma, which moved the posterior 20 deg
-/// from the truth; 107 of 728 at 10 sigma on a 90-year planetary arc).
-/// Outliers are judged afterwards against the best model, the perturber
-/// included (`--reject-sigma`), and the search runs again without them.
-const INFER_REFERENCE_SETTINGS: ReferenceSettings =
-    ReferenceSettings { epoch_tdb_days: None, reject_chi2: f64::INFINITY, readmit_chi2: f64::INFINITY, max_rounds: 10 };
 
 /// Solar elongations below this get a safety warning, degrees.
 pub(super) const SUN_WARNING_DEG: f64 = 45.0;
@@ -107,7 +95,7 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
         )));
     }
     let reject_sigma = parse_reject_sigma(&args.reject_sigma)?;
-    let (observations, excluded_by_hand) = exclude_by_hand(observations, args.exclude.as_deref())?;
+    let excluded = parse_exclude(args.exclude.as_deref())?;
     let settings = SearchSettings {
         mass_earth: mass,
         distance_au: distance,
@@ -117,60 +105,35 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
         n_distances: args.distances,
         ..SearchSettings::default()
     };
-    let mut stage = search_stage(observations, &sites, &model, ephemeris.as_ref(), &settings)?;
-    // Outliers are judged against the best model: with the perturber when
-    // one is detected (in the strong regime the largest residuals are the
-    // signal), else against the null model. Those set aside, the whole
-    // search runs again without them.
-    let mut set_aside = Vec::new();
-    let judged_against = if stage.detected() && stage.refined.is_some() {
-        "the full model with the refined perturber"
-    } else {
-        "the null model (no perturber)"
+    let mut arc = TrackedArc {
+        name: args.input.obs.file_stem().map_or("tracked body".into(), |s| s.to_string_lossy().into_owned()),
+        observations,
+        sites,
+        tracked,
+        model,
+        excluded_by_hand: Vec::new(),
     };
-    if let Some(limit) = reject_sigma {
-        let chi2 = stage.chi2_per_observation(&model, ephemeris.as_ref())?;
-        let keep: Vec<bool> = chi2.iter().map(|&c| c <= limit * limit).collect();
-        if keep.iter().any(|k| !k) {
-            set_aside =
-                stage.observations.iter().zip(&keep).filter(|(_, k)| !**k).map(|(o, _)| o.source.clone()).collect();
-            eprintln!(
-                "Setting aside {} observation(s) beyond {limit} sigma against {judged_against}; searching again...",
-                set_aside.len()
-            );
-            let rest: Vec<Observation> =
-                stage.observations.iter().zip(&keep).filter(|(_, k)| **k).map(|(o, _)| o.clone()).collect();
-            stage = search_stage(rest, &sites, &model, ephemeris.as_ref(), &settings)?;
-        }
-    }
-    let SearchStage { observations, null, geometry, kernel, result, refined, centred, basins, rounds } = stage;
+    arc.exclude_lines(&excluded).map_err(|e| CliError::bad_input(anyhow::anyhow!("--exclude: {e}")))?;
+    let study = Study { bodies: vec![arc], ephemeris, wide, search_epoch_tdb_days: search_epoch };
+    let detection = detect(
+        &study,
+        &DetectionSettings { search: settings.clone(), reject_sigma },
+        &crate::cli::progress::Bars::new(),
+    )
+    .map_err(pipeline_error)?;
+    let arc = study.single().map_err(pipeline_error)?;
+    let (model, tracked, excluded_by_hand) = (&arc.model, &arc.tracked, arc.excluded_by_hand.clone());
+    let (ephemeris, wide) = (study.ephemeris.as_ref(), study.wide.as_ref());
+    let Detection { observations, null, geometry, kernel, search: result, centred, basins, .. } = &detection;
+    let (observations, null, geometry, kernel, result, centred, basins) =
+        (observations.as_slice(), null, geometry.as_slice(), kernel, result, centred, basins);
 
-    let fap = result.false_alarm_probability();
+    let fap = detection.false_alarm_probability();
     let largest_null = result.null_maxima.iter().copied().fold(0.0, f64::max);
-    let mut warnings = null.warnings.clone();
-    if !set_aside.is_empty() {
-        warnings.push(format!(
-            "{} observation(s) set aside beyond {} sigma against {judged_against}: {}",
-            set_aside.len(),
-            reject_sigma.unwrap_or(f64::NAN),
-            set_aside.join(", ")
-        ));
-    }
+    let mut warnings = detection.warnings();
     let described: Vec<PerturberFile> = basins
         .iter()
-        .map(|b| {
-            describe(
-                b,
-                &null,
-                &kernel,
-                &observations,
-                &geometry,
-                &model,
-                ephemeris.as_ref(),
-                wide.as_ref(),
-                search_epoch,
-            )
-        })
+        .map(|b| describe(b, null, kernel, observations, geometry, model, ephemeris, wide, search_epoch))
         .collect::<Result<_, _>>()?;
     for (k, d) in described.iter().enumerate() {
         // Only a detection sends anyone to the telescope.
@@ -192,12 +155,10 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
             ));
         }
     }
-    // The detection statistic is the grid's best drop (the null maxima are
-    // grid maxima); the basins carry their continuously refined drops.
-    let best_delta = result.grid_best_delta_chi2;
-    let refined_summary = refined.as_ref().map(|r| refined_file(r, &null));
+    let best_delta = detection.best_delta_chi2();
+    let refined_summary = detection.refined.as_ref().map(|r| refined_file(r, null));
     let nonlinear_stage = centred.as_ref().map(|c| latens::io::results::NonlinearStageFile {
-        rounds,
+        rounds: detection.rounds,
         chi2_at_centre: c.chi2_at_centre,
         delta_chi2_at_centre: null.chi2 - c.chi2_at_centre,
         note: "the linear kernel recentred on the refined full-model solution (residuals of the full model plus the \
@@ -205,56 +166,27 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
                posterior ran on it"
             .into(),
     });
-    let detected = fap < DETECTION_FAP && best_delta > 0.0;
-    // A signal that repeats with the year points at a systematic error tied
-    // to the Earth's motion (a catalogue or reduction error), not at a
-    // planet, whose pull changes slowly.
-    let (annual, annual_chi2) = annual_share(&null, &observations, best_delta);
-    // Said only when the sinusoid itself is significant, not on noise.
-    let yearly = annual > ANNUAL_SUSPICION && annual_chi2 > ANNUAL_MIN_CHI2;
-    if yearly {
-        warnings.push(format!(
-            "a one-year sinusoid accounts for {:.0}% of the residuals' excess: check the astrometry for systematic errors before believing in a planet",
-            100.0 * annual
-        ));
-    }
-    let verdict = if detected && yearly {
-        format!(
-            "suspicious: a perturber lowers the chi-square by {best_delta:.1} (false-alarm probability {fap:.2e}), but a one-year sinusoid accounts for {:.0}% of the residuals' excess, which points at a systematic error in the astrometry rather than a planet",
-            100.0 * annual
-        )
-    } else if detected {
-        format!(
-            "detected: the best perturber lowers the chi-square by {best_delta:.1}, which {} of {} simulated noise-only data sets reached (false-alarm probability {fap:.2e})",
-            result.null_maxima.iter().filter(|&&m| m >= best_delta).count(),
-            result.null_maxima.len()
-        )
-    } else if fap < 0.05 {
-        format!(
-            "suspicious: a perturber lowers the chi-square by {best_delta:.1} (false-alarm probability {fap:.3}); not enough for a detection"
-        )
-    } else {
-        format!(
-            "not detected: the best perturber lowers the chi-square by {best_delta:.1}, as noise alone often does (false-alarm probability {fap:.2})"
-        )
-    };
+    let detected = detection.verdict.detected();
+    let yearly = detection.annual.flagged();
+    let verdict = detection.verdict_text();
+    let (posterior_kernel, delta_chi2_offset) = detection.posterior_kernel();
 
     let stage = super::posterior::run(
         args,
         out,
         &super::posterior::Inputs {
-            null: &null,
-            null_kernel: &kernel,
-            kernel: centred.as_ref().map_or(&kernel, |c| &c.kernel),
-            delta_chi2_offset: centred.as_ref().map_or(0.0, |c| c.delta_chi2_offset),
-            tracked: &tracked,
-            observations: &observations,
-            geometry: &geometry,
-            model: &model,
-            ephemeris: ephemeris.as_ref(),
-            wide: wide.as_ref(),
+            null,
+            null_kernel: kernel,
+            kernel: posterior_kernel,
+            delta_chi2_offset,
+            tracked,
+            observations,
+            geometry,
+            model,
+            ephemeris,
+            wide,
             search_epoch,
-            basins: &basins,
+            basins,
             mass_earth: mass,
             distance_au: distance,
             min_separation_au: settings.min_separation_au,
@@ -266,15 +198,9 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
     let search_products = if stage.samples.is_empty() || !detected {
         None
     } else {
-        let geometry_now = super::posterior::SearchGeometry::new(wide.as_ref(), search_epoch)?;
-        let s = super::search::run(
-            out,
-            &stage.samples,
-            &geometry_now,
-            wide.as_ref(),
-            kernel.epoch_tdb_days,
-            kernel.central_gm(),
-        )?;
+        let geometry_now = super::posterior::SearchGeometry::new(wide, search_epoch)?;
+        let s =
+            super::search::run(out, &stage.samples, &geometry_now, wide, kernel.epoch_tdb_days, kernel.central_gm())?;
         warnings.extend(s.warnings.iter().cloned());
         Some(s)
     };
@@ -312,7 +238,7 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
             folded_into_sun: model.folded.iter().map(|k| k.body.name().to_string()).collect(),
             ephemeris: ephemeris.description(),
         },
-        null_model: NullModelFile { chi2: null.chi2, dof: null.dof, orbit: orbit_file(&null) },
+        null_model: NullModelFile { chi2: null.chi2, dof: null.dof, orbit: orbit_file(null) },
         best_fit: described.first().map(clone_perturber),
         refined_best_fit: refined_summary,
         basins: described.iter().map(clone_perturber).collect(),
@@ -347,9 +273,9 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
         },
         outliers: latens::io::results::OutlierFile {
             threshold_sigma: reject_sigma,
-            judged_against: judged_against.into(),
+            judged_against: detection.outliers.judged_against.describe().into(),
             excluded_by_hand,
-            set_aside,
+            set_aside: detection.outliers.set_aside.clone(),
         },
         nonlinear_stage,
         upper_limits: upper_limits.clone(),
@@ -359,9 +285,9 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
 
     // Residual charts: the null model and the best fit (null residuals minus
     // the best linear signal, with the orbit correction), side by side.
-    let null_products = ResidualProducts::build(&null, &observations, &model, ephemeris.description());
-    let charts = best_fit_residuals(&null, &observations, &kernel, result.best());
-    write_outputs(out, &json, &null_products, &charts, &observations, &null, best_delta).map_err(CliError::failed)?;
+    let null_products = ResidualProducts::build(null, observations, model, ephemeris.description());
+    let charts = best_fit_residuals(null, observations, kernel, result.best());
+    write_outputs(out, &json, &null_products, &charts, observations, null, best_delta).map_err(CliError::failed)?;
 
     let mut text = String::new();
     let _ =
@@ -502,7 +428,8 @@ fn describe(
     let elongation = angular_separation(rho, -earth) / RAD_PER_DEG;
 
     // Linear against nonlinear signal, both with the orbit correction removed.
-    let (err_arcsec, err_fraction) = linearisation_error(s, null, kernel, observations, geometry, model, ephemeris)?;
+    let (err_arcsec, err_fraction) =
+        linearisation_error(s, null, kernel, observations, geometry, model, ephemeris).map_err(pipeline_error)?;
     Ok(PerturberFile {
         chi2: null.chi2 - s.delta_chi2,
         delta_chi2: s.delta_chi2,
@@ -533,125 +460,6 @@ fn describe(
         linearisation_error_arcsec: err_arcsec,
         linearisation_error_fraction: err_fraction,
     })
-}
-
-/// The RMS difference (arcsec, and as a share of the signal RMS) between the
-/// kernel's signal and the full nonlinear model's, for one solution.
-fn linearisation_error(
-    s: &Scored,
-    null: &ReferenceFit,
-    kernel: &LinearKernel,
-    observations: &[Observation],
-    geometry: &[ObservingGeometry],
-    model: &latens::dynamics::ForceModel,
-    ephemeris: &dyn Ephemeris,
-) -> Result<(f64, f64), CliError> {
-    let n = observations.len();
-    let mut base = OrbitModel::new(observations, geometry.to_vec(), null.epoch_tdb_days, model, ephemeris)
-        .map_err(CliError::failed)?;
-    base.predict(&null.state, false).map_err(CliError::failed)?;
-    let p0 = base.predict(&null.state, false).map_err(CliError::failed)?;
-    let mut with = OrbitModel::new(observations, geometry.to_vec(), null.epoch_tdb_days, model, ephemeris)
-        .map_err(CliError::failed)?;
-    with.perturbers = vec![Perturber {
-        gm_au3_per_day2: s.gm_au3_per_day2,
-        position_au: s.hypothesis.position_au,
-        velocity_au_per_day: s.hypothesis.velocity_au_per_day,
-    }];
-    with.predict(&null.state, false).map_err(CliError::failed)?;
-    let p1 = with.predict(&null.state, false).map_err(CliError::failed)?;
-    let mut nonlinear = vec![0.0; 2 * n];
-    for k in 0..n {
-        let w = whiten(&observations[k], latens::reference::residual_arcsec_between(&p1[k].radec, &p0[k].radec));
-        nonlinear[2 * k] = w.0;
-        nonlinear[2 * k + 1] = w.1;
-    }
-    let linear = kernel
-        .projected_signal(s.hypothesis.position_au, s.hypothesis.velocity_au_per_day, s.gm_au3_per_day2)
-        .ok_or_else(|| CliError::failed(anyhow::anyhow!("unbound orbit")))?;
-    kernel.project(&mut nonlinear);
-    let (mut diff2, mut sig2, mut count) = (0.0, 0.0, 0usize);
-    for k in 0..n {
-        if !kernel.used[k] {
-            continue;
-        }
-        // Back to arcsec with the observation's sigmas (correlations ignored).
-        let (sa, sd) = (observations[k].sigma_ra_arcsec, observations[k].sigma_dec_arcsec);
-        diff2 += ((linear[2 * k] - nonlinear[2 * k]) * sa).powi(2)
-            + ((linear[2 * k + 1] - nonlinear[2 * k + 1]) * sd).powi(2);
-        sig2 += (nonlinear[2 * k] * sa).powi(2) + (nonlinear[2 * k + 1] * sd).powi(2);
-        count += 2;
-    }
-    let rms = (diff2 / count.max(1) as f64).sqrt();
-    let frac = if sig2 > 0.0 { (diff2 / sig2).sqrt() } else { 0.0 };
-    Ok((rms, frac))
-}
-
-/// Share of the residuals' excess chi-square that a one-year sinusoid
-/// explains, above which a detection is called suspicious.
-const ANNUAL_SUSPICION: f64 = 0.5;
-/// ... provided the sinusoid's own chi-square drop (4 parameters: sine and
-/// cosine in two coordinates) is significant: 20 is its 5e-4 tail
-/// (scipy.stats.chi2.sf(20, 4) = 4.99e-4).
-const ANNUAL_MIN_CHI2: f64 = 20.0;
-
-/// The share of the null residuals' excess chi-square (over its degrees of
-/// freedom, or over the best solution's drop if larger) that a constant plus
-/// a one-year sinusoid in each coordinate removes.
-fn annual_share(null: &ReferenceFit, observations: &[Observation], best_delta: f64) -> (f64, f64) {
-    let mut removed = 0.0;
-    for coordinate in 0..2 {
-        // Weighted least squares of r = a + b sin(wt) + c cos(wt).
-        let mut ata = [[0.0; 3]; 3];
-        let mut atb = [0.0; 3];
-        for (k, o) in observations.iter().enumerate() {
-            if !null.residuals[k].used {
-                continue;
-            }
-            let (r, sigma) = if coordinate == 0 {
-                (null.residuals[k].ra_arcsec, o.sigma_ra_arcsec)
-            } else {
-                (null.residuals[k].dec_arcsec, o.sigma_dec_arcsec)
-            };
-            let w = std::f64::consts::TAU * o.t_tdb_days / latens::units::JULIAN_YEAR_DAYS;
-            let x = [1.0 / sigma, w.sin() / sigma, w.cos() / sigma];
-            for i in 0..3 {
-                atb[i] += x[i] * r / sigma;
-                for j in 0..3 {
-                    ata[i][j] += x[i] * x[j];
-                }
-            }
-        }
-        // The chi-square removed by the fit is b^T (A^T A)^-1 b; less the
-        // constant's share, which is not periodic.
-        let Some(coef) = solve3(ata, atb) else { continue };
-        let all: f64 = (0..3).map(|i| coef[i] * atb[i]).sum();
-        let constant = if ata[0][0] > 0.0 { atb[0] * atb[0] / ata[0][0] } else { 0.0 };
-        removed += (all - constant).max(0.0);
-    }
-    let excess = (null.chi2 - null.dof as f64).max(best_delta).max(1e-9);
-    (removed / excess, removed)
-}
-
-/// Solves a 3x3 linear system by Cramer's rule (None when singular).
-fn solve3(a: [[f64; 3]; 3], b: [f64; 3]) -> Option<[f64; 3]> {
-    let det = |m: [[f64; 3]; 3]| {
-        m[0][0] * (m[1][1] * m[2][2] - m[1][2] * m[2][1]) - m[0][1] * (m[1][0] * m[2][2] - m[1][2] * m[2][0])
-            + m[0][2] * (m[1][0] * m[2][1] - m[1][1] * m[2][0])
-    };
-    let d = det(a);
-    if d.abs() < 1e-300 {
-        return None;
-    }
-    let mut out = [0.0; 3];
-    for (col, o) in out.iter_mut().enumerate() {
-        let mut m = a;
-        for row in 0..3 {
-            m[row][col] = b[row];
-        }
-        *o = det(m) / d;
-    }
-    Some(out)
 }
 
 /// Residuals of the best solution: the null residuals minus its linear
@@ -745,14 +553,9 @@ fn parse_reject_sigma(text: &str) -> Result<Option<f64>, CliError> {
     }
 }
 
-/// Leaves out the observations on the lines `--exclude` names (line
-/// numbers of the observation file, `A-B` for a range); every named line
-/// must hold an observation.
-fn exclude_by_hand(
-    observations: Vec<Observation>,
-    spec: Option<&str>,
-) -> Result<(Vec<Observation>, Vec<String>), CliError> {
-    let Some(spec) = spec else { return Ok((observations, Vec::new())) };
+/// `--exclude`: line numbers of the observation file, `A-B` for a range.
+fn parse_exclude(spec: Option<&str>) -> Result<Vec<usize>, CliError> {
+    let Some(spec) = spec else { return Ok(Vec::new()) };
     let bad =
         |t: &str| CliError::bad_input(anyhow::anyhow!("--exclude: expected line numbers like 12,40-45, got `{t}`"));
     let mut lines = Vec::new();
@@ -771,224 +574,15 @@ fn exclude_by_hand(
         }
         lines.extend(a..=b);
     }
-    let line_of = |o: &Observation| o.source.rsplit_once(':').and_then(|(_, l)| l.parse::<usize>().ok());
-    for l in &lines {
-        if !observations.iter().any(|o| line_of(o) == Some(*l)) {
-            let file = observations.first().and_then(|o| o.source.rsplit_once(':')).map_or("", |(f, _)| f);
-            return Err(CliError::bad_input(anyhow::anyhow!("--exclude: line {l} of {file} holds no observation")));
-        }
-    }
-    let (out, kept): (Vec<Observation>, Vec<Observation>) =
-        observations.into_iter().partition(|o| line_of(o).is_some_and(|l| lines.contains(&l)));
-    if kept.len() < 3 {
-        return Err(CliError::bad_input(anyhow::anyhow!("--exclude leaves fewer than 3 observations")));
-    }
-    Ok((kept, out.into_iter().map(|o| o.source).collect()))
+    Ok(lines)
 }
 
-/// Chi-square drop above which a detection counts as strong enough to
-/// recentre the kernel on its refined solution.
-const STRONG_DELTA_CHI2: f64 = 500.0;
-
-/// Rounds of refine-and-recentre at most.
-const MAX_RECENTRE_ROUNDS: usize = 3;
-
-/// The search on one set of observations: the null fit, the kernel, the
-/// grid, the refinement on the full model and, for a detection, the kernel
-/// recentred on the refined solution with the basins found on it.
-struct SearchStage {
-    observations: Vec<Observation>,
-    null: ReferenceFit,
-    geometry: Vec<ObservingGeometry>,
-    /// The kernel about the null orbit (detection, alternatives).
-    kernel: LinearKernel,
-    result: latens::perturber::SearchResult,
-    refined: Option<latens::perturber::refine::Refinement>,
-    centred: Option<latens::perturber::refine::Recentred>,
-    /// The basins the posterior starts from, drops against the null model.
-    basins: Vec<Scored>,
-    rounds: usize,
-}
-
-impl SearchStage {
-    fn detected(&self) -> bool {
-        self.result.false_alarm_probability() < DETECTION_FAP && self.result.grid_best_delta_chi2 > 0.0
+/// A stage's error as the command line reports it: bad input exits 2.
+fn pipeline_error(e: PipelineError) -> CliError {
+    match e {
+        PipelineError::Input(_) => CliError::bad_input(e),
+        PipelineError::Failed { .. } => CliError::failed(e),
     }
-
-    /// Each observation's chi-square (both coordinates) against the best
-    /// model: the refined perturber's full model for a detection, else the
-    /// null model.
-    fn chi2_per_observation(
-        &self,
-        model: &latens::dynamics::ForceModel,
-        ephemeris: &dyn Ephemeris,
-    ) -> Result<Vec<f64>, CliError> {
-        let n = self.observations.len();
-        let mut w = vec![0.0; 2 * n];
-        match (&self.refined, self.detected()) {
-            (Some(r), true) => {
-                let mut m = OrbitModel::new(
-                    &self.observations,
-                    self.geometry.clone(),
-                    self.null.epoch_tdb_days,
-                    model,
-                    ephemeris,
-                )
-                .map_err(CliError::failed)?;
-                m.perturbers = vec![r.perturber];
-                m.predict(&r.tracked_state, false).map_err(CliError::failed)?;
-                let pred = m.predict(&r.tracked_state, false).map_err(CliError::failed)?;
-                latens::reference::whitened_residuals(&self.observations, &pred, &vec![true; n], &mut w);
-            }
-            _ => {
-                for (k, (o, r)) in self.observations.iter().zip(&self.null.residuals).enumerate() {
-                    (w[2 * k], w[2 * k + 1]) = whiten(o, (r.ra_arcsec, r.dec_arcsec));
-                }
-            }
-        }
-        Ok(w.chunks(2).map(|p| p[0] * p[0] + p[1] * p[1]).collect())
-    }
-}
-
-fn search_stage(
-    observations: Vec<Observation>,
-    sites: &latens::io::observations::SiteTable,
-    model: &latens::dynamics::ForceModel,
-    ephemeris: &dyn Ephemeris,
-    settings: &SearchSettings,
-) -> Result<SearchStage, CliError> {
-    use latens::perturber::refine::{recentre, refine};
-    eprintln!("Fitting the reference orbit (no perturber) to {} observations...", observations.len());
-    let null = fit_reference_orbit(&observations, sites, model, ephemeris, &INFER_REFERENCE_SETTINGS, None)
-        .map_err(CliError::failed)?;
-    let geometry = observing_geometry(&observations, sites, ephemeris).map_err(CliError::failed)?;
-    let kernel =
-        LinearKernel::build(&null, &observations, geometry.clone(), model, ephemeris).map_err(CliError::failed)?;
-    let result = grid_search(&kernel, settings, &crate::cli::progress::Bars::new());
-    let mut stage = SearchStage {
-        observations,
-        null,
-        geometry,
-        kernel,
-        basins: result.basins.clone(),
-        result,
-        refined: None,
-        centred: None,
-        rounds: 0,
-    };
-    let Some(best) = stage.result.best().copied().filter(|b| b.gm_au3_per_day2 > 0.0) else {
-        return Ok(stage);
-    };
-    let refine_from = |s: &Scored, stage: &SearchStage| {
-        let start = Perturber {
-            gm_au3_per_day2: s.gm_au3_per_day2,
-            position_au: s.hypothesis.position_au,
-            velocity_au_per_day: s.hypothesis.velocity_au_per_day,
-        };
-        refine(&stage.null, &stage.observations, &stage.geometry, model, ephemeris, start, settings.distance_au)
-    };
-    eprintln!("Refining the best solution on the full nonlinear model...");
-    let mut current = match refine_from(&best, &stage) {
-        Ok(r) => r,
-        Err(e) => {
-            stage.null.warnings.push(format!("the nonlinear refinement failed ({e}); the grid solution stands"));
-            return Ok(stage);
-        }
-    };
-    // Recentre only in the strong regime, where the linear kernel's error
-    // at the best solution changes the chi-square by more than 1
-    // (error share f: about f^2 times the drop) and the drop is large
-    // enough (above STRONG_DELTA_CHI2) for a refined solution to be
-    // trusted as the centre; weak detections keep the null kernel and its
-    // broad posterior.
-    let strong = stage.detected() && best.delta_chi2 > STRONG_DELTA_CHI2 && {
-        let (_, f) = linearisation_error(
-            &best,
-            &stage.null,
-            &stage.kernel,
-            &stage.observations,
-            &stage.geometry,
-            model,
-            ephemeris,
-        )?;
-        f * f * best.delta_chi2 > 1.0
-    };
-    if !strong {
-        stage.refined = Some(current);
-        return Ok(stage);
-    }
-    // Follow the data into the nonlinear regime: recentre the kernel on the
-    // refined solution, search again on it, and refine again when another
-    // place scores better there; every basin of the final search is kept
-    // for the posterior.
-    let gm_earth = latens::units::EARTH_MASS_SOLAR * latens::units::GM_SUN_AU3_PER_DAY2;
-    let gm_max = settings.mass_earth.1 * gm_earth;
-    let quiet = SearchSettings { n_null: 0, ..settings.clone() };
-    for round in 1..=MAX_RECENTRE_ROUNDS {
-        eprintln!("Recentring the linear kernel on the refined solution (round {round}) and searching again...");
-        let centred = recentre(
-            &stage.kernel,
-            stage.null.epoch_tdb_days,
-            &current.tracked_state,
-            &current.perturber,
-            &stage.observations,
-            &stage.geometry,
-            model,
-            ephemeris,
-        )
-        .map_err(CliError::failed)?;
-        let again = grid_search(&centred.kernel, &quiet, &latens::progress::Quiet);
-        let centre = latens::perturber::Hypothesis {
-            position_au: current.perturber.position_au,
-            velocity_au_per_day: current.perturber.velocity_au_per_day,
-        };
-        let mut scratch = vec![0.0; centred.kernel.n_residuals()];
-        let mut basins: Vec<Scored> = latens::perturber::search::score(
-            &centred.kernel,
-            &centre,
-            gm_max,
-            settings.min_separation_au,
-            &mut scratch,
-        )
-        .into_iter()
-        .chain(again.basins.iter().copied())
-        .map(|s| Scored { delta_chi2: s.delta_chi2 + centred.delta_chi2_offset, ..s })
-        .collect();
-        basins.sort_by(|a, b| b.delta_chi2.total_cmp(&a.delta_chi2));
-        let centre_delta = stage.null.chi2 - current.chi2;
-        // A better place elsewhere on the recentred kernel: refine it.
-        let challenger = basins.iter().find(|b| {
-            let apart = b.hypothesis.position_au.unit().dot(centre.position_au.unit()) < 1f64.to_radians().cos()
-                || (b.hypothesis.position_au.norm() / centre.position_au.norm()).ln().abs() > 0.1;
-            apart && b.delta_chi2 > centre_delta + 1.0
-        });
-        let moved = match challenger.copied() {
-            Some(c) if round < MAX_RECENTRE_ROUNDS => match refine_from(&c, &stage) {
-                Ok(r) if r.chi2 < current.chi2 - 0.5 => {
-                    current = r;
-                    true
-                }
-                _ => false,
-            },
-            _ => false,
-        };
-        stage.rounds = round;
-        if !moved {
-            // Distinct basins within the usual window of the best, as the grid keeps them.
-            let kept = latens::perturber::search::distinct(
-                basins.into_iter(),
-                settings.basin_separation_deg,
-                2.0,
-                settings.basin_delta_chi2,
-                settings.max_basins,
-            );
-            stage.basins = kept;
-            stage.centred = Some(centred);
-            break;
-        }
-    }
-    stage.refined = Some(current);
-    Ok(stage)
 }
 
 /// 95% upper limits on the mass, per band of heliocentric distance, from

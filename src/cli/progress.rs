@@ -58,6 +58,10 @@ impl Observer for Bars {
         }
     }
 
+    fn note(&self, text: &str) {
+        eprintln!("{text}");
+    }
+
     fn stop_requested(&self) -> bool {
         self.interruptible && super::interrupt_flag().load(Ordering::SeqCst)
     }

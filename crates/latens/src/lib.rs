@@ -21,6 +21,7 @@
 //!   credible regions as MOCs, modes, brightness and observability.
 //! - [`astrometry`]: the observation model (light time, observing sites).
 //! - [`io`]: reading observations, writing output files safely.
+//! - [`pipeline`]: the job as typed stages on one [`pipeline::Study`].
 //! - [`progress`]: the [`progress::Observer`] a caller passes to long stages
 //!   (progress, stop requests).
 //! - [`simulate`]: simulated survey astrometry with seeded noise.
@@ -36,6 +37,7 @@ pub mod fit;
 pub mod frames;
 pub mod io;
 pub mod perturber;
+pub mod pipeline;
 pub mod posterior;
 pub mod progress;
 pub mod reference;

@@ -54,6 +54,11 @@ pub trait Observer: Sync {
     }
     /// The current stage has ended (finished, stopped or failed).
     fn finish(&self) {}
+    /// A short message on what the work is doing now ("Refining the best
+    /// solution..."), for a log or a status line.
+    fn note(&self, text: &str) {
+        let _ = text;
+    }
     /// Whether the caller asks the work to stop. Stages that can stop
     /// cleanly (the sampler, which saves a checkpoint first) check it
     /// between units of work; the others run to the end.

@@ -1,0 +1,41 @@
+//! The job as a library: one [`Study`] value holds everything a study needs
+//! (the tracked bodies with their observations, sites, kinds and force
+//! models; the ephemerides for the arcs and for the search epoch), loaded
+//! once and passed to typed stages. Each stage returns a typed result; the
+//! command line (and any other caller) turns results into text and files.
+//!
+//! Stages built here: [`detect`] (reference fit, linear kernel, grid
+//! search with null simulations, refinement on the full model, the kernel
+//! recentred in the strong regime, outliers judged against the best model,
+//! the annual-systematic check and the verdict). The posterior, sky
+//! products, prediction and sensitivity stages still live in the `latens`
+//! binary and are moving here stage by stage.
+//!
+//! Long stages report to a [`crate::progress::Observer`] the caller passes.
+
+mod detection;
+mod study;
+
+pub use detection::{
+    AnnualCheck, DETECTION_FAP, Detection, DetectionSettings, OutlierJudge, OutlierReport, Verdict, detect,
+    linearisation_error,
+};
+pub use study::{Study, TrackedArc};
+
+/// Why a stage could not finish.
+#[derive(Debug, thiserror::Error)]
+pub enum PipelineError {
+    /// The study or the settings do not make sense (nothing was computed).
+    #[error("{0}")]
+    Input(String),
+    /// A computation failed on valid input.
+    #[error("{stage}: {message}")]
+    Failed { stage: &'static str, message: String },
+}
+
+impl PipelineError {
+    /// A closure mapping any error of `stage` to [`PipelineError::Failed`].
+    pub(crate) fn failed<E: std::fmt::Display>(stage: &'static str) -> impl Fn(E) -> PipelineError {
+        move |e| PipelineError::Failed { stage, message: e.to_string() }
+    }
+}
