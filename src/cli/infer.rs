@@ -9,10 +9,11 @@ use anyhow::Context;
 
 use super::CliError;
 use super::args::InferArgs;
-use super::residuals::{ResidualProducts, load_ephemeris, model_from_input, orbit_file, read_inputs};
+use super::residuals::{ResidualProducts, orbit_file};
 use latens::astrometry::{ObservingGeometry, astrometric_direction, sun_barycentric_velocity};
+use latens::dynamics::TrackedBody;
 use latens::dynamics::kepler::elements_from_state;
-use latens::ephemeris::{Body, Ephemeris, SpkFile, Vsop87};
+use latens::ephemeris::{Body, Ephemeris};
 use latens::frames::{angular_separation, ecliptic_from_icrf};
 use latens::io::observations::Observation;
 use latens::io::results::{
@@ -21,7 +22,8 @@ use latens::io::results::{
 use latens::io::write_atomically;
 use latens::perturber::{KeplerOrbit, LinearKernel, Scored, SearchSettings};
 use latens::pipeline::{
-    DETECTION_FAP, Detection, DetectionSettings, PipelineError, Study, TrackedArc, detect, linearisation_error,
+    Best, DETECTION_FAP, Detection, DetectionSettings, EphemerisSource, Study, TrackedArc, detect, linearisation_error,
+    parse_known,
 };
 use latens::reference::ReferenceFit;
 use latens::time::{epoch_from_tdb_days, parse_epoch, tdb_days_from_j2000, utc_iso_from_epoch};
@@ -46,8 +48,6 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
     // A resumed run writes where it was interrupted.
     let out_dir = args.resume.clone().unwrap_or_else(|| args.out.clone());
     let out = out_dir.as_path();
-    let (observations, sites) = read_inputs(&args.input.obs, args.input.sites.as_ref())?;
-    let (model, tracked) = model_from_input(&args.input)?;
     let mass = parse_range(&args.mass_earth, "--mass-earth")?;
     let distance = parse_range(&args.distance_au, "--distance-au")?;
     // The false-alarm probability cannot go below 1/(nulls + 1): enough
@@ -72,23 +72,6 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
             )));
         }
     }
-    let ephemeris = load_ephemeris(&args.input.ephemeris, &model, &observations)?;
-    let search_epoch = match &args.search_epoch {
-        Some(text) => tdb_days_from_j2000(
-            parse_epoch(text).map_err(|e| CliError::bad_input(anyhow::anyhow!("--search-epoch: {e}")))?,
-        ),
-        None => observations.last().map(|o| o.t_tdb_days).unwrap_or(0.0),
-    };
-    // The ephemeris for the search epoch, which may lie outside the observed span.
-    let wide: Box<dyn Ephemeris> = if args.input.ephemeris == "builtin" {
-        Box::new(Vsop87::new())
-    } else {
-        Box::new(SpkFile::open(Path::new(&args.input.ephemeris)).map_err(CliError::bad_input)?)
-    };
-    for b in [Body::Earth, Body::Jupiter] {
-        wide.check_covered(b, search_epoch).map_err(|e| CliError::bad_input(anyhow::anyhow!("--search-epoch: {e}")))?;
-    }
-
     if args.directions < 12 || args.distances < 2 {
         return Err(CliError::bad_input(anyhow::anyhow!(
             "--directions must be at least 12 and --distances at least 2"
@@ -105,23 +88,31 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
         n_distances: args.distances,
         ..SearchSettings::default()
     };
-    let mut arc = TrackedArc {
-        name: args.input.obs.file_stem().map_or("tracked body".into(), |s| s.to_string_lossy().into_owned()),
-        observations,
-        sites,
-        tracked,
-        model,
-        excluded_by_hand: Vec::new(),
+    let search_epoch = match &args.search_epoch {
+        Some(text) => Some(tdb_days_from_j2000(
+            parse_epoch(text).map_err(|e| CliError::bad_input(anyhow::anyhow!("--search-epoch: {e}")))?,
+        )),
+        None => None,
     };
+    let known = parse_known(&args.input.known).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+    let tracked = TrackedBody::parse(&args.input.tracked_mass, args.input.kind.as_deref())
+        .map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+    let posterior_settings = super::posterior::settings(args, out, tracked.kind)?;
+
+    // The study: read once, passed to every stage.
+    let mut arc = TrackedArc::load(&args.input.obs, args.input.sites.as_deref(), &known, tracked)
+        .map_err(super::pipeline_error)?;
     arc.exclude_lines(&excluded).map_err(|e| CliError::bad_input(anyhow::anyhow!("--exclude: {e}")))?;
-    let study = Study { bodies: vec![arc], ephemeris, wide, search_epoch_tdb_days: search_epoch };
+    let study = Study::new(vec![arc], &EphemerisSource::parse(&args.input.ephemeris), search_epoch)
+        .map_err(super::pipeline_error)?;
+    let search_epoch = study.search_epoch_tdb_days;
     let detection = detect(
         &study,
         &DetectionSettings { search: settings.clone(), reject_sigma },
         &crate::cli::progress::Bars::new(),
     )
-    .map_err(pipeline_error)?;
-    let arc = study.single().map_err(pipeline_error)?;
+    .map_err(super::pipeline_error)?;
+    let arc = study.single().map_err(super::pipeline_error)?;
     let (model, tracked, excluded_by_hand) = (&arc.model, &arc.tracked, arc.excluded_by_hand.clone());
     let (ephemeris, wide) = (study.ephemeris.as_ref(), study.wide.as_ref());
     let Detection { observations, null, geometry, kernel, search: result, centred, basins, .. } = &detection;
@@ -168,57 +159,39 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
     });
     let detected = detection.verdict.detected();
     let yearly = detection.annual.flagged();
-    let verdict = detection.verdict_text();
-    let (posterior_kernel, delta_chi2_offset) = detection.posterior_kernel();
+    let mut verdict = detection.verdict_text();
 
-    let stage = super::posterior::run(
-        args,
-        out,
-        &super::posterior::Inputs {
-            null,
-            null_kernel: kernel,
-            kernel: posterior_kernel,
-            delta_chi2_offset,
-            tracked,
-            observations,
-            geometry,
-            model,
-            ephemeris,
-            wide,
-            search_epoch,
-            basins,
-            mass_earth: mass,
-            distance_au: distance,
-            min_separation_au: settings.min_separation_au,
-        },
-    )?;
-    warnings.extend(stage.warnings.iter().cloned());
+    let stage = super::posterior::run(out, &study, &detection, &posterior_settings)?;
+    warnings.extend(stage.result.warnings.iter().cloned());
     // A non-detection gives upper limits, not a place to look.
-    let upper_limits = if detected { Vec::new() } else { upper_limits(&stage.samples, distance) };
-    let search_products = if stage.samples.is_empty() || !detected {
+    let upper_limits = if detected { Vec::new() } else { upper_limits(stage.samples(), distance) };
+    let search_products = if stage.samples().is_empty() || !detected {
         None
     } else {
-        let geometry_now = super::posterior::SearchGeometry::new(wide, search_epoch)?;
+        let geometry_now = latens::pipeline::SearchGeometry::new(wide, search_epoch)?;
         let s =
-            super::search::run(out, &stage.samples, &geometry_now, wide, kernel.epoch_tdb_days, kernel.central_gm())?;
+            super::search::run(out, stage.samples(), &geometry_now, wide, kernel.epoch_tdb_days, kernel.central_gm())?;
         warnings.extend(s.warnings.iter().cloned());
         Some(s)
     };
-    let mut verdict = verdict;
-    if let Some(ex) = &stage.explanation
-        && detected
-        && stage.evidence.is_some()
-        && ex.best != super::posterior::PERTURBER
-    {
-        if ex.best == "undecided" {
-            verdict.push_str(&format!("; which explanation is best is undecided: {}", ex.text));
-        } else {
-            let lead = if yearly {
-                "; the best-supported explanation is"
-            } else {
-                "; but the data favour another explanation:"
-            };
-            verdict.push_str(&format!("{lead} {} ({})", ex.best, ex.strength));
+
+    let ex = &stage.result.explanation;
+    if detected && stage.result.run.as_ref().is_some_and(|r| r.evidence.is_some()) {
+        match &ex.best {
+            Best::Perturber => {}
+            Best::Undecided => verdict.push_str(&format!("; which explanation is best is undecided: {}", ex.text)),
+            other => {
+                let lead = if yearly {
+                    "; the best-supported explanation is"
+                } else {
+                    "; but the data favour another explanation:"
+                };
+                let name = match other {
+                    Best::Alternative(name) => name.as_str(),
+                    _ => "no extra effect (noise alone)",
+                };
+                verdict.push_str(&format!("{lead} {name} ({})", ex.strength));
+            }
         }
     }
 
@@ -256,11 +229,11 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
             signal_subspace_dimension: result.subspace_dimension,
             signal_subspace_energy: result.subspace_energy,
         },
-        posterior: stage.posterior,
-        evidence: stage.evidence,
-        impostors: stage.impostors,
-        explanation: stage.explanation,
-        diagnostics: stage.diagnostics,
+        posterior: stage.result.run.as_ref().map(|r| r.summary.clone()),
+        evidence: stage.result.run.as_ref().and_then(|r| r.evidence.clone()),
+        impostors: stage.result.alternatives.clone(),
+        explanation: Some(ex.file()),
+        diagnostics: stage.result.run.as_ref().map(|r| r.diagnostics.clone()),
         sky: search_products.as_ref().map(|s| s.sky.clone()),
         tracked: latens::io::results::TrackedFile {
             kind: tracked.kind.name().into(),
@@ -428,8 +401,8 @@ fn describe(
     let elongation = angular_separation(rho, -earth) / RAD_PER_DEG;
 
     // Linear against nonlinear signal, both with the orbit correction removed.
-    let (err_arcsec, err_fraction) =
-        linearisation_error(s, null, kernel, observations, geometry, model, ephemeris).map_err(pipeline_error)?;
+    let (err_arcsec, err_fraction) = linearisation_error(s, null, kernel, observations, geometry, model, ephemeris)
+        .map_err(super::pipeline_error)?;
     Ok(PerturberFile {
         chi2: null.chi2 - s.delta_chi2,
         delta_chi2: s.delta_chi2,
@@ -577,19 +550,11 @@ fn parse_exclude(spec: Option<&str>) -> Result<Vec<usize>, CliError> {
     Ok(lines)
 }
 
-/// A stage's error as the command line reports it: bad input exits 2.
-fn pipeline_error(e: PipelineError) -> CliError {
-    match e {
-        PipelineError::Input(_) => CliError::bad_input(e),
-        PipelineError::Failed { .. } => CliError::failed(e),
-    }
-}
-
 /// 95% upper limits on the mass, per band of heliocentric distance, from
 /// the posterior samples of a non-detection (log-spaced bands over the
 /// prior's range; bands with fewer than 50 samples are left out).
 fn upper_limits(
-    samples: &[super::posterior::DerivedSample],
+    samples: &[latens::pipeline::DerivedSample],
     distance_au: (f64, f64),
 ) -> Vec<latens::io::results::UpperLimitFile> {
     let bands = 6;

@@ -42,6 +42,12 @@ impl CliError {
     }
 }
 
+impl From<latens::pipeline::PipelineError> for CliError {
+    fn from(e: latens::pipeline::PipelineError) -> Self {
+        pipeline_error(e)
+    }
+}
+
 /// Parses `args` (the first is the program name), runs, and returns the exit code.
 pub fn main_with_args<I, T>(args: I) -> ExitCode
 where
@@ -83,6 +89,17 @@ fn is_broken_pipe(error: &anyhow::Error) -> bool {
     error
         .chain()
         .any(|e| e.downcast_ref::<std::io::Error>().is_some_and(|io| io.kind() == std::io::ErrorKind::BrokenPipe))
+}
+
+/// A pipeline stage's error as the command line reports it: bad input
+/// exits 2, a failed computation 1.
+pub(crate) fn pipeline_error(e: latens::pipeline::PipelineError) -> CliError {
+    match e {
+        latens::pipeline::PipelineError::Input(_) => CliError::bad_input(e),
+        latens::pipeline::PipelineError::Failed { .. } | latens::pipeline::PipelineError::Interrupted { .. } => {
+            CliError::failed(e)
+        }
+    }
 }
 
 /// Stop flag raised by Ctrl-C (installed once per process).

@@ -11,13 +11,12 @@ use std::path::{Path, PathBuf};
 
 use super::CliError;
 use super::args::PredictArgs;
-use super::posterior::SearchGeometry;
-use super::search::geometry_at;
 use latens::dynamics::kepler::{Elements, state_from_elements};
 use latens::ephemeris::{Ephemeris, Vsop87};
 use latens::frames::{angular_separation, icrf_from_ecliptic};
 use latens::io::write_atomically;
 use latens::perturber::KeplerOrbit;
+use latens::pipeline::{SearchGeometry, geometry_at};
 use latens::posterior::quantiles;
 use latens::skymap::observe::{magnitude_range, motion};
 use latens::skymap::{SkyMap, lon_lat};

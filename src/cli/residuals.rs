@@ -7,69 +7,24 @@ use anyhow::Context;
 
 use super::CliError;
 use super::args::ResidualsArgs;
-use latens::astrometry::observer_ephemeris_bodies;
 use latens::dynamics::ForceModel;
-use latens::ephemeris::{Body, Ephemeris, SpkFile, Tabulated, Vsop87};
+use latens::ephemeris::Ephemeris;
 use latens::io::observations::{InputError, Observation, SiteTable, read_observations};
 use latens::io::results::{FitFile, OrbitFile, SolverFile, TrendFile};
 use latens::io::write_atomically;
+use latens::pipeline::EphemerisSource;
 use latens::reference::{ReferenceFit, ReferenceSettings, fit_reference_orbit};
 use latens::stats::chi_square_survival;
 use latens::time::{epoch_from_tdb_days, parse_epoch, tdb_days_from_j2000, utc_iso_from_epoch};
 use latens::units::{J2000_JD, JULIAN_YEAR_DAYS, RAD_PER_DEG};
 use latens_charts::residual_chart::ResidualChart;
 
-/// The inner planets, folded into the Sun when not listed as known bodies.
-const INNER: [Body; 4] = [Body::Mercury, Body::Venus, Body::EarthMoonBarycenter, Body::Mars];
-
-/// Parses `--known`: `none`, or comma-separated body names.
-pub(super) fn parse_known(text: &str) -> Result<Vec<Body>, String> {
-    if text.trim().eq_ignore_ascii_case("none") {
-        return Ok(Vec::new());
-    }
-    let mut out = Vec::new();
-    for name in text.split(',') {
-        let body = Body::from_name(name).ok_or_else(|| {
-            format!(
-                "unknown body `{}` in --known (use none, or names from: {})",
-                name.trim(),
-                Body::ALL.iter().filter(|b| **b != Body::Sun).map(|b| b.name()).collect::<Vec<_>>().join(", ")
-            )
-        })?;
-        if body == Body::Sun {
-            return Err("the Sun is always in the model; list planets only".into());
-        }
-        if !out.contains(&body) {
-            out.push(body);
-        }
-    }
-    Ok(out)
-}
-
-/// The force model for a list of known bodies: with `none`, the Sun alone;
-/// otherwise the listed bodies, with the inner planets that are not listed
-/// folded into the Sun (right for bodies well outside the orbit of Mars; list
-/// them for anything that comes closer).
-pub(super) fn force_model(known: &[Body]) -> ForceModel {
-    if known.is_empty() {
-        return ForceModel::sun_only();
-    }
-    let mut model = ForceModel::with_known(known);
-    let lists_earth = known.iter().any(|b| matches!(b, Body::Earth | Body::Moon | Body::EarthMoonBarycenter));
-    model.folded = INNER
-        .iter()
-        .filter(|b| !(known.contains(b) || (lists_earth && **b == Body::EarthMoonBarycenter)))
-        .map(|&b| latens::dynamics::KnownBody { body: b, gm_au3_per_day2: b.gm_au3_per_day2() })
-        .collect();
-    model
-}
-
 /// The force model and the tracked body from `--known`, `--tracked-mass`
 /// and `--kind`. A tracked planet cannot also be a known body.
 pub(super) fn model_from_input(
     input: &super::args::InputArgs,
 ) -> Result<(ForceModel, latens::dynamics::TrackedBody), CliError> {
-    let known = parse_known(&input.known).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+    let known = latens::pipeline::parse_known(&input.known).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
     let tracked = latens::dynamics::TrackedBody::parse(&input.tracked_mass, input.kind.as_deref())
         .map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
     if let Some(b) = tracked.named
@@ -79,7 +34,7 @@ pub(super) fn model_from_input(
             "--tracked-mass {b}: {b} is also in --known; the tracked body cannot pull on itself (leave it out of --known)"
         )));
     }
-    let model = force_model(&known).with_tracked_gm(tracked.gm_au3_per_day2);
+    let model = latens::pipeline::force_model(&known).with_tracked_gm(tracked.gm_au3_per_day2);
     Ok((model, tracked))
 }
 
@@ -90,46 +45,7 @@ pub(super) fn load_ephemeris(
     model: &ForceModel,
     observations: &[Observation],
 ) -> Result<Box<dyn Ephemeris>, CliError> {
-    let first = observations.first().map(|o| o.t_tdb_days).unwrap_or(0.0);
-    let last = observations.last().map(|o| o.t_tdb_days).unwrap_or(0.0);
-    // Light leaves a body 170 au away a day before it arrives.
-    let span = (first - 2.0, last + 1.0);
-    let mut needed = observer_ephemeris_bodies();
-    for b in model.ephemeris_bodies() {
-        if !needed.contains(&b) {
-            needed.push(b);
-        }
-    }
-    let ephemeris: Box<dyn Ephemeris> = if spec == "builtin" {
-        let source = Vsop87::new();
-        for &b in &needed {
-            if source.covered_tdb_days(b).is_none() {
-                return Err(CliError::bad_input(anyhow::anyhow!(
-                    "the built-in ephemeris has no {b}; give a JPL SPK file with --ephemeris FILE.bsp"
-                )));
-            }
-        }
-        for o in observations {
-            if let Err(e) = source.check_covered(Body::Earth, o.t_tdb_days) {
-                return Err(CliError::bad_input(anyhow::anyhow!("{}: field `epoch_utc`: {e}", o.source)));
-            }
-        }
-        Box::new(model.tabulate(&source, &needed, span).map_err(CliError::failed)?)
-    } else {
-        let spk = SpkFile::open(Path::new(spec)).map_err(CliError::bad_input)?;
-        for o in observations {
-            for &b in &needed {
-                for t in [o.t_tdb_days - 2.0, o.t_tdb_days] {
-                    if let Err(e) = spk.check_covered(b, t) {
-                        return Err(CliError::bad_input(anyhow::anyhow!("{}: field `epoch_utc`: {e}", o.source)));
-                    }
-                }
-            }
-        }
-        let _ = Tabulated::from_samples;
-        Box::new(spk)
-    };
-    Ok(ephemeris)
+    EphemerisSource::parse(spec).for_arc(model, observations).map_err(super::pipeline_error)
 }
 
 pub(super) fn read_inputs(obs: &Path, sites: Option<&PathBuf>) -> Result<(Vec<Observation>, SiteTable), CliError> {

@@ -6,20 +6,21 @@ use std::fmt::Write as _;
 use std::path::Path;
 
 use super::CliError;
-use super::posterior::{DerivedSample, SearchGeometry, save_chart};
-use latens::astrometry::{ObservingGeometry, sun_barycentric_velocity};
-use latens::ephemeris::{Body, Ephemeris};
+use super::posterior::save_chart;
+use latens::astrometry::ObservingGeometry;
+use latens::ephemeris::Ephemeris;
 use latens::frames::{angular_separation, icrf_from_ecliptic};
 use latens::io::results::{ModeFile, SkyFile};
 use latens::io::write_atomically;
 use latens::perturber::KeplerOrbit;
+use latens::pipeline::{DerivedSample, SearchGeometry, next_months};
 use latens::posterior::quantiles;
 use latens::skymap::observe::{
     ALBEDO_RANGE, CROWDED_LATITUDE_DEG, DENSITY_RANGE_G_CM3, galactic_lon_lat_deg, icrs_from_galactic_deg,
     magnitude_range, motion,
 };
 use latens::skymap::{self, DEG2_PER_SR, SkyMap};
-use latens::time::{epoch_from_tdb_days, parse_epoch, tdb_days_from_j2000, utc_iso_from_epoch};
+use latens::time::{epoch_from_tdb_days, utc_iso_from_epoch};
 use latens::vec3::Vec3;
 use latens_charts::search_chart::{SearchChart, SkyCell, ZoomPanel, from_tangent, tangent};
 
@@ -31,32 +32,6 @@ pub(super) struct Outcome {
     pub text: String,
     pub warnings: Vec<String>,
     pub files: Vec<(&'static str, &'static str)>,
-}
-
-/// Geometry of the Earth at `t` (TDB days).
-pub(crate) fn geometry_at(wide: &dyn Ephemeris, t: f64) -> Result<ObservingGeometry, CliError> {
-    let earth = wide.heliocentric_position_au(Body::Earth, t).map_err(CliError::failed)?;
-    let vsun = sun_barycentric_velocity(wide, t).unwrap_or(Vec3::ZERO);
-    Ok(ObservingGeometry { t_tdb_days: t, observer_au: earth, sun_barycentric_velocity_au_per_day: vsun })
-}
-
-/// The mid-month epochs (TDB days) and labels of the twelve months after
-/// the one holding `t`.
-pub(crate) fn next_months(t: f64) -> Vec<(f64, String)> {
-    let iso = utc_iso_from_epoch(epoch_from_tdb_days(t));
-    let (mut year, mut month): (i32, u32) = (iso[0..4].parse().unwrap_or(2000), iso[5..7].parse().unwrap_or(1));
-    let mut out = Vec::new();
-    for _ in 0..12 {
-        month += 1;
-        if month > 12 {
-            month = 1;
-            year += 1;
-        }
-        if let Ok(e) = parse_epoch(&format!("{year:04}-{month:02}-15T00:00:00Z")) {
-            out.push((tdb_days_from_j2000(e), format!("{year:04}-{month:02}")));
-        }
-    }
-    out
 }
 
 pub(super) fn run(
@@ -82,9 +57,14 @@ pub(super) fn run(
     let sample_mode: Vec<usize> = found.sample_mode.iter().map(|m| m.unwrap_or(usize::MAX)).collect();
     let sun = -search.geometry.observer_au.unit();
     let months = next_months(search.epoch);
-    let month_geometry: Vec<(ObservingGeometry, String)> =
-        months.iter().filter_map(|(t, label)| geometry_at(wide, *t).ok().map(|g| (g, label.clone()))).collect();
-    let (g_before, g_after) = (geometry_at(wide, search.epoch - 0.5)?, geometry_at(wide, search.epoch + 0.5)?);
+    let month_geometry: Vec<(ObservingGeometry, String)> = months
+        .iter()
+        .filter_map(|(t, label)| latens::pipeline::geometry_at(wide, *t).ok().map(|g| (g, label.clone())))
+        .collect();
+    let (g_before, g_after) = (
+        latens::pipeline::geometry_at(wide, search.epoch - 0.5)?,
+        latens::pipeline::geometry_at(wide, search.epoch + 0.5)?,
+    );
 
     let mut modes: Vec<ModeFile> = Vec::new();
     for m in 0..n_modes {

@@ -9,7 +9,6 @@ use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 
 use super::CliError;
-use super::residuals::{force_model, parse_known};
 use latens::astrometry::astrometric_direction;
 use latens::dynamics::kepler::{Elements, propagate, state_from_elements};
 use latens::dynamics::{ForceModel, InitialState, Perturber, PropagationSettings, Propagator};
@@ -19,6 +18,7 @@ use latens::io::observations::{Observation, Site, SiteTable};
 use latens::io::results::{PlaceFile, TruthBodyFile, TruthFile};
 use latens::io::scenario::{ScenarioFile, read};
 use latens::io::write_atomically;
+use latens::pipeline::{force_model, parse_known};
 use latens::simulate::{SurveyPlan, simulate_survey};
 use latens::time::{epoch_from_tdb_days, parse_epoch, tdb_days_from_j2000, utc_iso_from_epoch};
 use latens::units::{EARTH_MASS_SOLAR, GM_SUN_AU3_PER_DAY2, J2000_JD, RAD_PER_ARCSEC, RAD_PER_DEG};
@@ -242,7 +242,7 @@ pub(super) fn simulate(s: &ScenarioFile, name: &str, out: &Path) -> Result<Simul
         let pr = trajectory.perturbers[0][last].position_au;
         let pv = trajectory.perturbers[0][last].velocity_au_per_day;
         let earth = ephemeris.heliocentric_position_au(Body::Earth, search_t).map_err(CliError::failed)?;
-        let g = super::search::geometry_at(&ephemeris, search_t)?;
+        let g = latens::pipeline::geometry_at(&ephemeris, search_t).map_err(super::pipeline_error)?;
         let (rho, _, radec) = astrometric_direction(&g, search_t, pr, pv);
         p.at_search_epoch = Some(PlaceFile {
             epoch_utc: utc_iso_from_epoch(epoch_from_tdb_days(search_t)),

@@ -5,7 +5,7 @@
 use serde::Serialize;
 
 /// `fit.json` of `latens residuals`.
-#[derive(Debug, Serialize)]
+#[derive(Debug, Serialize, Clone)]
 pub struct FitFile {
     pub n_obs: usize,
     pub n_used: usize,
@@ -26,7 +26,7 @@ pub struct FitFile {
     pub warnings: Vec<String>,
 }
 
-#[derive(Debug, Serialize)]
+#[derive(Debug, Serialize, Clone)]
 pub struct OrbitFile {
     pub frame: String,
     pub epoch_tdb_jd: f64,
@@ -49,7 +49,7 @@ pub struct OrbitFile {
     pub covariance: Vec<[f64; 6]>,
 }
 
-#[derive(Debug, Serialize)]
+#[derive(Debug, Serialize, Clone)]
 pub struct TrendFile {
     /// Weighted linear trend of the used RA*cos(Dec) residuals, mas per year, and its formal error.
     pub ra_mas_per_year: f64,
@@ -58,7 +58,7 @@ pub struct TrendFile {
     pub dec_sigma_mas_per_year: f64,
 }
 
-#[derive(Debug, Serialize)]
+#[derive(Debug, Serialize, Clone)]
 pub struct SolverFile {
     pub start: String,
     pub iterations: usize,
@@ -67,7 +67,7 @@ pub struct SolverFile {
 }
 
 /// `summary.json` of `latens infer`.
-#[derive(Debug, Serialize)]
+#[derive(Debug, Serialize, Clone)]
 pub struct InferSummary {
     pub search_epoch_utc: String,
     pub seed: u64,
@@ -196,7 +196,7 @@ pub struct IntervalFile {
     pub hi95: f64,
 }
 
-#[derive(Debug, Serialize)]
+#[derive(Debug, Serialize, Clone)]
 pub struct PosteriorFile {
     /// How the samples in posterior.csv were made: `linear` (the kernel's
     /// posterior, confirmed by the nonlinear weights), `reweighted` (resampled
@@ -219,7 +219,7 @@ pub struct PosteriorFile {
     pub prior: PriorFile,
 }
 
-#[derive(Debug, Serialize)]
+#[derive(Debug, Serialize, Clone)]
 pub struct PriorFile {
     pub mass_earth_log_uniform: [f64; 2],
     pub heliocentric_distance_au_log_uniform: [f64; 2],
@@ -228,7 +228,7 @@ pub struct PriorFile {
     pub description: String,
 }
 
-#[derive(Debug, Serialize)]
+#[derive(Debug, Serialize, Clone)]
 pub struct EvidenceFile {
     /// ln of the evidence ratio against the no-perturber model, and its error.
     pub ln_bayes_factor: f64,
@@ -238,7 +238,7 @@ pub struct EvidenceFile {
     pub method: String,
 }
 
-#[derive(Debug, Serialize)]
+#[derive(Debug, Serialize, Clone)]
 pub struct ImpostorFile {
     pub name: String,
     pub description: String,
@@ -248,7 +248,7 @@ pub struct ImpostorFile {
     pub estimates: Vec<EstimateFile>,
 }
 
-#[derive(Debug, Serialize)]
+#[derive(Debug, Serialize, Clone)]
 pub struct EstimateFile {
     pub parameter: String,
     pub mean: f64,
@@ -256,7 +256,7 @@ pub struct EstimateFile {
     pub unit: String,
 }
 
-#[derive(Debug, Serialize)]
+#[derive(Debug, Serialize, Clone)]
 pub struct ExplanationFile {
     pub best: String,
     pub runner_up: String,
@@ -267,7 +267,7 @@ pub struct ExplanationFile {
     pub text: String,
 }
 
-#[derive(Debug, Serialize)]
+#[derive(Debug, Serialize, Clone)]
 pub struct DiagnosticsFile {
     pub runs: usize,
     pub walkers: usize,
@@ -297,7 +297,7 @@ pub struct DiagnosticsFile {
     pub advice: String,
 }
 
-#[derive(Debug, Serialize)]
+#[derive(Debug, Serialize, Clone)]
 pub struct InferSettingsFile {
     pub mass_earth: [f64; 2],
     pub distance_au: [f64; 2],
@@ -312,14 +312,14 @@ pub struct InferSettingsFile {
     pub ephemeris: String,
 }
 
-#[derive(Debug, Serialize)]
+#[derive(Debug, Serialize, Clone)]
 pub struct NullModelFile {
     pub chi2: f64,
     pub dof: usize,
     pub orbit: OrbitFile,
 }
 
-#[derive(Debug, Serialize)]
+#[derive(Debug, Serialize, Clone)]
 pub struct PerturberFile {
     pub chi2: f64,
     pub delta_chi2: f64,
@@ -347,7 +347,7 @@ pub struct PerturberFile {
     pub linearisation_error_fraction: f64,
 }
 
-#[derive(Debug, Serialize)]
+#[derive(Debug, Serialize, Clone)]
 pub struct DetectionFile {
     pub delta_chi2: f64,
     pub false_alarm_probability: f64,
@@ -357,7 +357,7 @@ pub struct DetectionFile {
     pub verdict: String,
 }
 
-#[derive(Debug, Serialize)]
+#[derive(Debug, Serialize, Clone)]
 pub struct SearchStatsFile {
     pub n_hypotheses: usize,
     pub n_skipped_close_approach: usize,
@@ -366,7 +366,7 @@ pub struct SearchStatsFile {
 }
 
 /// The best solution after the nonlinear refinement.
-#[derive(Debug, Serialize)]
+#[derive(Debug, Serialize, Clone)]
 pub struct RefinedFile {
     /// Chi-square of the full nonlinear model with the perturber.
     pub chi2: f64,

@@ -106,6 +106,8 @@ impl Verdict {
 
 /// Everything detection found.
 pub struct Detection {
+    /// The settings it ran with.
+    pub settings: DetectionSettings,
     /// The observations the final search used (those set aside removed).
     pub observations: Vec<Observation>,
     pub null: ReferenceFit,
@@ -241,6 +243,7 @@ pub fn detect(
         (false, _) => Verdict::NotDetected,
     };
     Ok(Detection {
+        settings: settings.clone(),
         observations,
         null,
         geometry,

@@ -7,20 +7,26 @@
 //! Stages built here: [`detect`] (reference fit, linear kernel, grid
 //! search with null simulations, refinement on the full model, the kernel
 //! recentred in the strong regime, outliers judged against the best model,
-//! the annual-systematic check and the verdict). The posterior, sky
-//! products, prediction and sensitivity stages still live in the `latens`
-//! binary and are moving here stage by stage.
+//! the annual-systematic check and the verdict) and [`posterior`] (the
+//! alternatives, the sampler, convergence, evidence, the nonlinear check,
+//! the explanation). The sky products, prediction and sensitivity stages
+//! still live in the `latens` binary and are moving here stage by stage.
 //!
 //! Long stages report to a [`crate::progress::Observer`] the caller passes.
 
 mod detection;
+mod posterior;
 mod study;
 
 pub use detection::{
     AnnualCheck, DETECTION_FAP, Detection, DetectionSettings, OutlierJudge, OutlierReport, Verdict, detect,
     linearisation_error,
 };
-pub use study::{Study, TrackedArc};
+pub use posterior::{
+    Best, DerivedSample, Explanation, PERTURBER, PosteriorOutcome, PosteriorRun, PosteriorSettings, SampleSource,
+    SearchGeometry, geometry_at, next_months, posterior,
+};
+pub use study::{EphemerisSource, Study, TrackedArc, force_model, parse_known};
 
 /// Why a stage could not finish.
 #[derive(Debug, thiserror::Error)]
@@ -28,6 +34,12 @@ pub enum PipelineError {
     /// The study or the settings do not make sense (nothing was computed).
     #[error("{0}")]
     Input(String),
+    /// The caller asked the work to stop; the checkpoint (if any) resumes it.
+    #[error("stopped at step {step} of {of}{}", match checkpoint {
+        Some(c) => format!("; the checkpoint {c} resumes it"),
+        None => "; nothing was saved".to_string(),
+    })]
+    Interrupted { step: usize, of: usize, checkpoint: Option<String> },
     /// A computation failed on valid input.
     #[error("{stage}: {message}")]
     Failed { stage: &'static str, message: String },

@@ -1,10 +1,139 @@
 //! The study: what is observed, how it is modelled, and where the planets
 //! are, gathered once.
 
+use std::path::{Path, PathBuf};
+
 use super::PipelineError;
-use crate::dynamics::{ForceModel, TrackedBody};
-use crate::ephemeris::Ephemeris;
-use crate::io::observations::{Observation, SiteTable};
+use crate::astrometry::observer_ephemeris_bodies;
+use crate::dynamics::{ForceModel, KnownBody, TrackedBody};
+use crate::ephemeris::{Body, Ephemeris, SpkFile, Vsop87};
+use crate::io::observations::{Observation, SiteTable, read_observations};
+
+/// The inner planets, folded into the Sun when not listed as known bodies.
+const INNER: [Body; 4] = [Body::Mercury, Body::Venus, Body::EarthMoonBarycenter, Body::Mars];
+
+/// Parses a list of known bodies: `none`, or comma-separated body names.
+pub fn parse_known(text: &str) -> Result<Vec<Body>, String> {
+    if text.trim().eq_ignore_ascii_case("none") {
+        return Ok(Vec::new());
+    }
+    let mut out = Vec::new();
+    for name in text.split(',') {
+        let body = Body::from_name(name).ok_or_else(|| {
+            format!(
+                "unknown body `{}` in --known (use none, or names from: {})",
+                name.trim(),
+                Body::ALL.iter().filter(|b| **b != Body::Sun).map(|b| b.name()).collect::<Vec<_>>().join(", ")
+            )
+        })?;
+        if body == Body::Sun {
+            return Err("the Sun is always in the model; list planets only".into());
+        }
+        if !out.contains(&body) {
+            out.push(body);
+        }
+    }
+    Ok(out)
+}
+
+/// The force model for a list of known bodies: with none, the Sun alone;
+/// otherwise the listed bodies, with the inner planets that are not listed
+/// folded into the Sun (right for bodies well outside the orbit of Mars; list
+/// them for anything that comes closer).
+pub fn force_model(known: &[Body]) -> ForceModel {
+    if known.is_empty() {
+        return ForceModel::sun_only();
+    }
+    let mut model = ForceModel::with_known(known);
+    let lists_earth = known.iter().any(|b| matches!(b, Body::Earth | Body::Moon | Body::EarthMoonBarycenter));
+    model.folded = INNER
+        .iter()
+        .filter(|b| !(known.contains(b) || (lists_earth && **b == Body::EarthMoonBarycenter)))
+        .map(|&b| KnownBody { body: b, gm_au3_per_day2: b.gm_au3_per_day2() })
+        .collect();
+    model
+}
+
+/// Where the planets come from.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub enum EphemerisSource {
+    /// The embedded VSOP87A, tabulated over each arc.
+    Builtin,
+    /// A JPL SPK file (DE4xx).
+    Spk(PathBuf),
+}
+
+impl EphemerisSource {
+    /// `builtin` or the path of an SPK file.
+    pub fn parse(text: &str) -> EphemerisSource {
+        if text == "builtin" { EphemerisSource::Builtin } else { EphemerisSource::Spk(PathBuf::from(text)) }
+    }
+
+    /// The planets over the observed span of `observations` for `model`:
+    /// the embedded VSOP87A tabulated, or the SPK file. Every observation
+    /// must lie inside the coverage (the error names its file, line and
+    /// field).
+    pub fn for_arc(
+        &self,
+        model: &ForceModel,
+        observations: &[Observation],
+    ) -> Result<Box<dyn Ephemeris>, PipelineError> {
+        let first = observations.first().map(|o| o.t_tdb_days).unwrap_or(0.0);
+        let last = observations.last().map(|o| o.t_tdb_days).unwrap_or(0.0);
+        // Light leaves a body 170 au away a day before it arrives.
+        let span = (first - 2.0, last + 1.0);
+        let mut needed = observer_ephemeris_bodies();
+        for b in model.ephemeris_bodies() {
+            if !needed.contains(&b) {
+                needed.push(b);
+            }
+        }
+        match self {
+            EphemerisSource::Builtin => {
+                let source = Vsop87::new();
+                for &b in &needed {
+                    if source.covered_tdb_days(b).is_none() {
+                        return Err(PipelineError::Input(format!(
+                            "the built-in ephemeris has no {b}; give a JPL SPK file with --ephemeris FILE.bsp"
+                        )));
+                    }
+                }
+                for o in observations {
+                    if let Err(e) = source.check_covered(Body::Earth, o.t_tdb_days) {
+                        return Err(PipelineError::Input(format!("{}: field `epoch_utc`: {e}", o.source)));
+                    }
+                }
+                Ok(Box::new(
+                    model.tabulate(&source, &needed, span).map_err(PipelineError::failed("tabulating the planets"))?,
+                ))
+            }
+            EphemerisSource::Spk(path) => {
+                let spk = SpkFile::open(path).map_err(|e| PipelineError::Input(e.to_string()))?;
+                for o in observations {
+                    for &b in &needed {
+                        for t in [o.t_tdb_days - 2.0, o.t_tdb_days] {
+                            if let Err(e) = spk.check_covered(b, t) {
+                                return Err(PipelineError::Input(format!("{}: field `epoch_utc`: {e}", o.source)));
+                            }
+                        }
+                    }
+                }
+                Ok(Box::new(spk))
+            }
+        }
+    }
+
+    /// The planets anywhere the source covers (for a search epoch outside
+    /// the arcs).
+    pub fn wide(&self) -> Result<Box<dyn Ephemeris>, PipelineError> {
+        match self {
+            EphemerisSource::Builtin => Ok(Box::new(Vsop87::new())),
+            EphemerisSource::Spk(path) => {
+                Ok(Box::new(SpkFile::open(path).map_err(|e| PipelineError::Input(e.to_string()))?))
+            }
+        }
+    }
+}
 
 /// One tracked body: its observations and how it is modelled.
 pub struct TrackedArc {
@@ -23,6 +152,37 @@ pub struct TrackedArc {
 }
 
 impl TrackedArc {
+    /// Reads a tracked body's observations (and the sites they name) and
+    /// builds its force model: the Sun, the `known` bodies and the body's
+    /// own GM. A planet tracked cannot also be a known body.
+    pub fn load(
+        observations: &Path,
+        sites: Option<&Path>,
+        known: &[Body],
+        tracked: TrackedBody,
+    ) -> Result<TrackedArc, PipelineError> {
+        if let Some(b) = tracked.named
+            && known.contains(&b)
+        {
+            return Err(PipelineError::Input(format!(
+                "--tracked-mass {b}: {b} is also in --known; the tracked body cannot pull on itself (leave it out of --known)"
+            )));
+        }
+        let sites = match sites {
+            Some(p) => SiteTable::read(p).map_err(|e| PipelineError::Input(e.to_string()))?,
+            None => SiteTable::new(),
+        };
+        let list = read_observations(observations, &sites, 3).map_err(|e| PipelineError::Input(e.to_string()))?;
+        Ok(TrackedArc {
+            name: observations.file_stem().map_or("tracked body".into(), |s| s.to_string_lossy().into_owned()),
+            observations: list,
+            sites,
+            model: force_model(known).with_tracked_gm(tracked.gm_au3_per_day2),
+            tracked,
+            excluded_by_hand: Vec::new(),
+        })
+    }
+
     /// Leaves out the observations whose source lines are in `lines` (line
     /// numbers of the observation file). Every line must hold an
     /// observation, and at least 3 must remain.
@@ -61,6 +221,39 @@ pub struct Study {
 }
 
 impl Study {
+    /// A study of `bodies` with the planets from `source`, over every arc
+    /// and at the search epoch (default: the last observation).
+    pub fn new(
+        bodies: Vec<TrackedArc>,
+        source: &EphemerisSource,
+        search_epoch_tdb_days: Option<f64>,
+    ) -> Result<Study, PipelineError> {
+        let all: Vec<Observation> = {
+            let mut v: Vec<Observation> = bodies.iter().flat_map(|b| b.observations.iter().cloned()).collect();
+            v.sort_by(|a, b| a.t_tdb_days.total_cmp(&b.t_tdb_days));
+            v
+        };
+        let Some(first) = bodies.first() else {
+            return Err(PipelineError::Input("the study has no tracked body".into()));
+        };
+        // One ephemeris for every arc, with every body any model needs.
+        let mut model = first.model.clone();
+        for b in &bodies[1..] {
+            for k in &b.model.known {
+                if !model.known.iter().any(|m| m.body == k.body) {
+                    model.known.push(*k);
+                }
+            }
+        }
+        let ephemeris = source.for_arc(&model, &all)?;
+        let search_epoch = search_epoch_tdb_days.unwrap_or_else(|| all.last().map_or(0.0, |o| o.t_tdb_days));
+        let wide = source.wide()?;
+        for b in [Body::Earth, Body::Jupiter] {
+            wide.check_covered(b, search_epoch).map_err(|e| PipelineError::Input(format!("--search-epoch: {e}")))?;
+        }
+        Ok(Study { bodies, ephemeris, wide, search_epoch_tdb_days: search_epoch })
+    }
+
     /// The single tracked body of a one-body study.
     pub fn single(&self) -> Result<&TrackedArc, PipelineError> {
         match self.bodies.as_slice() {
