@@ -32,7 +32,7 @@ use latens::vec3::Vec3;
 use latens_charts::residual_chart::ResidualChart;
 
 /// Solar elongations below this get a safety warning, degrees.
-pub(super) const SUN_WARNING_DEG: f64 = 45.0;
+pub(super) const SUN_WARNING_DEG: f64 = latens::pipeline::SUN_WARNING_DEG;
 
 fn parse_range(text: &str, what: &str) -> Result<(f64, f64), CliError> {
     let bad = || CliError::bad_input(anyhow::anyhow!("{what}: expected MIN:MAX with 0 < MIN < MAX, got `{text}`"));
@@ -168,9 +168,8 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
     let search_products = if stage.samples().is_empty() || !detected {
         None
     } else {
-        let geometry_now = latens::pipeline::SearchGeometry::new(wide, search_epoch)?;
-        let s =
-            super::search::run(out, stage.samples(), &geometry_now, wide, kernel.epoch_tdb_days, kernel.central_gm())?;
+        let run = stage.result.run.as_ref().expect("samples come from a run");
+        let s = super::search::run(out, &study, &detection, run)?;
         warnings.extend(s.warnings.iter().cloned());
         Some(s)
     };

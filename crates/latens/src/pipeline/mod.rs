@@ -9,13 +9,14 @@
 //! recentred in the strong regime, outliers judged against the best model,
 //! the annual-systematic check and the verdict) and [`posterior`] (the
 //! alternatives, the sampler, convergence, evidence, the nonlinear check,
-//! the explanation). The sky products, prediction and sensitivity stages
-//! still live in the `latens` binary and are moving here stage by stage.
+//! the explanation) and [`sky_products`] (map, credible regions, modes,
+//! safety). Prediction and sensitivity still live in the `latens` binary and are moving here stage by stage.
 //!
 //! Long stages report to a [`crate::progress::Observer`] the caller passes.
 
 mod detection;
 mod posterior;
+mod sky;
 mod study;
 
 pub use detection::{
@@ -26,6 +27,7 @@ pub use posterior::{
     Best, DerivedSample, Explanation, PERTURBER, PosteriorOutcome, PosteriorRun, PosteriorSettings, SampleSource,
     SearchGeometry, geometry_at, next_months, posterior,
 };
+pub use sky::{SUN_WARNING_DEG, SkyProducts, sky_products};
 pub use study::{EphemerisSource, Study, TrackedArc, force_model, parse_known};
 
 /// Why a stage could not finish.
