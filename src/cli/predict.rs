@@ -84,17 +84,12 @@ fn date(text: &str, what: &str) -> Result<f64, CliError> {
 
 pub(super) fn run(args: &PredictArgs) -> Result<(), CliError> {
     let summary_path = args.from.join("summary.json");
-    let text = std::fs::read_to_string(&summary_path).map_err(|e| bad(format!("{}: {e}", summary_path.display())))?;
-    let summary: serde_json::Value =
-        serde_json::from_str(&text).map_err(|e| bad(format!("{}: {e}", summary_path.display())))?;
-    let epoch = summary["null_model"]["orbit"]["epoch_tdb_jd"]
-        .as_f64()
-        .ok_or_else(|| bad(format!("{}: no null_model.orbit.epoch_tdb_jd", summary_path.display())))?
-        - J2000_JD;
-    let search_text = summary["search_epoch_utc"]
-        .as_str()
-        .ok_or_else(|| bad(format!("{}: no search_epoch_utc", summary_path.display())))?;
-    let search_epoch = date(search_text, &format!("{}: search_epoch_utc", summary_path.display()))?;
+    let summary: latens::io::results::SummaryHead = latens::io::results::read_json(&summary_path).map_err(bad)?;
+    let epoch = summary.null_model.orbit.epoch_tdb_jd - J2000_JD;
+    if !epoch.is_finite() {
+        return Err(bad(format!("{}: field `null_model.orbit.epoch_tdb_jd` is not a number", summary_path.display())));
+    }
+    let search_epoch = date(&summary.search_epoch_utc, &format!("{}: search_epoch_utc", summary_path.display()))?;
     let samples = read_samples(&args.from.join("posterior.csv"), epoch)?;
     let start = match &args.start {
         Some(t) => date(t, "--start")?,

@@ -169,19 +169,13 @@ fn csv_row(c: &Cell) -> String {
 /// from a fit.json of `latens residuals`.
 fn read_orbit(path: &Path) -> Result<(f64, [f64; 6]), CliError> {
     let file = path.display().to_string();
-    let text = std::fs::read_to_string(path).with_context(|| format!("reading {file}")).map_err(CliError::bad_input)?;
-    let v: serde_json::Value =
-        serde_json::from_str(&text).map_err(|e| CliError::bad_input(anyhow::anyhow!("{file}: not JSON: {e}")))?;
-    let jd = v["orbit"]["epoch_tdb_jd"].as_f64().ok_or_else(|| {
-        CliError::bad_input(anyhow::anyhow!("{file}: field `orbit.epoch_tdb_jd` missing or not a number"))
-    })?;
-    let arr = v["orbit"]["state_icrf"]
-        .as_array()
-        .filter(|a| a.len() == 6 && a.iter().all(|x| x.as_f64().is_some_and(f64::is_finite)))
-        .ok_or_else(|| CliError::bad_input(anyhow::anyhow!("{file}: field `orbit.state_icrf` must hold 6 numbers")))?;
-    let mut state = [0.0; 6];
-    for (s, x) in state.iter_mut().zip(arr) {
-        *s = x.as_f64().unwrap_or(0.0);
+    let fit: latens::io::results::FitHead =
+        latens::io::results::read_json(path).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+    let (jd, state) = (fit.orbit.epoch_tdb_jd, fit.orbit.state_icrf);
+    if !(jd.is_finite() && state.iter().all(|x| x.is_finite())) {
+        return Err(CliError::bad_input(anyhow::anyhow!(
+            "{file}: fields `orbit.epoch_tdb_jd` and `orbit.state_icrf` must hold finite numbers"
+        )));
     }
     Ok((jd - latens::units::J2000_JD, state))
 }

@@ -1,8 +1,50 @@
 //! The serialised forms of results (the only serde types in Latens), so that
-//! changing internals never changes a file format unnoticed. Documented
+//! changing internals never changes a file format unnoticed; and the typed
+//! views through which one command reads back what another wrote. Documented
 //! column by column in `docs/formats.md`.
 
-use serde::Serialize;
+use std::path::Path;
+
+use serde::de::DeserializeOwned;
+use serde::{Deserialize, Deserializer, Serialize};
+
+/// A number as Latens writes it: JSON has no NaN, and serde_json writes a
+/// non-finite number as `null`, which reads back as NaN here.
+fn real<'de, D: Deserializer<'de>>(d: D) -> Result<f64, D::Error> {
+    Ok(Option::<f64>::deserialize(d)?.unwrap_or(f64::NAN))
+}
+
+/// Reads a JSON file Latens wrote into its type. The error names the file
+/// and, for a malformed or incomplete file, the line, column and field.
+pub fn read_json<T: DeserializeOwned>(path: &Path) -> Result<T, String> {
+    let name = path.display();
+    let text = std::fs::read_to_string(path).map_err(|e| format!("{name}: {e}"))?;
+    serde_json::from_str(&text).map_err(|e| format!("{name}: {e}"))
+}
+
+/// The part of an `infer` summary.json that `latens predict` reads back:
+/// the search epoch and the reference orbit.
+#[derive(Debug, Deserialize)]
+pub struct SummaryHead {
+    pub search_epoch_utc: String,
+    pub null_model: NullModelHead,
+}
+
+/// The reference fit of a summary.json, as read back.
+#[derive(Debug, Deserialize)]
+pub struct NullModelHead {
+    #[serde(deserialize_with = "real")]
+    pub chi2: f64,
+    pub dof: usize,
+    pub orbit: OrbitFile,
+}
+
+/// The part of a `residuals` fit.json that `latens sensitivity --orbit`
+/// reads back: the orbit.
+#[derive(Debug, Deserialize)]
+pub struct FitHead {
+    pub orbit: OrbitFile,
+}
 
 /// `fit.json` of `latens residuals`.
 #[derive(Debug, Serialize, Clone)]
@@ -26,22 +68,34 @@ pub struct FitFile {
     pub warnings: Vec<String>,
 }
 
-#[derive(Debug, Serialize, Clone)]
+#[derive(Debug, Serialize, Deserialize, Clone)]
 pub struct OrbitFile {
     pub frame: String,
     pub epoch_tdb_jd: f64,
     pub epoch_utc: String,
+    #[serde(deserialize_with = "real")]
     pub a_au: f64,
+    #[serde(deserialize_with = "real")]
     pub e: f64,
+    #[serde(deserialize_with = "real")]
     pub inc_deg: f64,
+    #[serde(deserialize_with = "real")]
     pub node_deg: f64,
+    #[serde(deserialize_with = "real")]
     pub peri_deg: f64,
+    #[serde(deserialize_with = "real")]
     pub mean_anomaly_deg: f64,
+    #[serde(deserialize_with = "real")]
     pub sigma_a_au: f64,
+    #[serde(deserialize_with = "real")]
     pub sigma_e: f64,
+    #[serde(deserialize_with = "real")]
     pub sigma_inc_deg: f64,
+    #[serde(deserialize_with = "real")]
     pub sigma_node_deg: f64,
+    #[serde(deserialize_with = "real")]
     pub sigma_peri_deg: f64,
+    #[serde(deserialize_with = "real")]
     pub sigma_mean_anomaly_deg: f64,
     /// Heliocentric ICRF state: x, y, z (au), vx, vy, vz (au/day).
     pub state_icrf: [f64; 6],
