@@ -9,10 +9,9 @@ use super::CliError;
 use super::args::InferArgs;
 use latens::io::write_atomically;
 use latens::pipeline::{
-    DerivedSample, Detection, PipelineError, PosteriorOutcome, PosteriorSettings, Study, posterior,
+    DerivedSample, Detection, PipelineError, PosteriorOutcome, PosteriorRun, PosteriorSettings, Study, posterior,
 };
 use latens::posterior::impostors::{self, ImpostorPriors};
-use latens::posterior::sampler::{SamplerSettings, SamplerState};
 use latens::units::RAD_PER_DEG;
 use latens_charts::posterior_chart::{Column, CornerChart, TraceChart, render_png, render_svg};
 
@@ -77,7 +76,7 @@ pub(super) fn run(
     if let Some(run) = &result.run {
         std::fs::create_dir_all(out)
             .map_err(|e| CliError::failed(anyhow::anyhow!("creating {}: {e}", out.display())))?;
-        write_posterior_files(out, &run.samples, &run.states, &run.sampler)?;
+        write_posterior_files(out, run)?;
         files.push((
             "posterior.csv",
             "equally weighted posterior samples: mass, elements, sky position at the search epoch",
@@ -122,42 +121,14 @@ pub(super) fn run(
     Ok(Outcome { result, text, files })
 }
 
-fn write_posterior_files(
-    out: &Path,
-    derived: &[DerivedSample],
-    states: &[SamplerState],
-    settings: &SamplerSettings,
-) -> Result<(), CliError> {
+fn write_posterior_files(out: &Path, run: &PosteriorRun) -> Result<(), CliError> {
+    let (derived, states, settings) = (run.samples.as_slice(), run.states.as_slice(), &run.sampler);
     let fail = |e: String| CliError::failed(anyhow::anyhow!(e));
+    // posterior.csv is a view of the run's sample table.
+    let table = run.table();
     let mut w = csv::Writer::from_writer(Vec::new());
-    let header = [
-        "mass_earth",
-        "a_au",
-        "e",
-        "inc_deg",
-        "node_deg",
-        "peri_deg",
-        "mean_anomaly_deg",
-        "ra_deg",
-        "dec_deg",
-        "distance_au",
-        "log_likelihood",
-    ];
-    w.write_record(header).map_err(|e| fail(e.to_string()))?;
-    for d in derived {
-        let row = [
-            d.sample.mass_earth(),
-            d.a_au,
-            d.e,
-            d.inc_deg,
-            d.node_deg,
-            d.peri_deg,
-            d.mean_anomaly_deg,
-            d.ra_deg,
-            d.dec_deg,
-            d.distance_au,
-            d.log_likelihood,
-        ];
+    w.write_record(&table.columns).map_err(|e| fail(e.to_string()))?;
+    for row in table.values.rows() {
         w.write_record(row.iter().map(|v| format!("{v:.10e}"))).map_err(|e| fail(e.to_string()))?;
     }
     let bytes = w.into_inner().map_err(|e| fail(e.to_string()))?;

@@ -56,6 +56,26 @@ pub struct Cell {
     pub median_delta_chi2: f64,
 }
 
+/// The detection probability over the map as an array, masses by
+/// distances (rows along the mass grid of `settings`, columns along its
+/// distance grid; NaN for cells not in `cells`, as in one shard), with the
+/// masses (Earth masses) and distances (au) of the rows and columns.
+pub fn probability_grid(
+    settings: &SensitivitySettings,
+    cells: &[Cell],
+) -> (ndarray::Array1<f64>, ndarray::Array1<f64>, ndarray::Array2<f64>) {
+    let (nm, nd) = (settings.n_masses, settings.n_distances);
+    let masses = ndarray::Array1::from_iter((0..nm).map(|i| log_grid(settings.mass_earth, nm, i)));
+    let distances = ndarray::Array1::from_iter((0..nd).map(|i| log_grid(settings.distance_au, nd, i)));
+    let mut p = ndarray::Array2::from_elem((nm, nd), f64::NAN);
+    for c in cells {
+        if c.mass_index < nm && c.distance_index < nd {
+            p[(c.mass_index, c.distance_index)] = c.detection_probability;
+        }
+    }
+    (masses, distances, p)
+}
+
 fn log_grid(range: (f64, f64), n: usize, i: usize) -> f64 {
     if n <= 1 {
         return (range.0 * range.1).sqrt();

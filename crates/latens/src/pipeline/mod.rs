@@ -18,17 +18,19 @@ mod detection;
 mod posterior;
 mod sky;
 mod study;
+mod table;
 
 pub use detection::{
     AnnualCheck, DETECTION_FAP, Detection, DetectionSettings, OutlierJudge, OutlierReport, Verdict, detect,
     linearisation_error,
 };
 pub use posterior::{
-    Best, DerivedSample, Explanation, PERTURBER, PosteriorOutcome, PosteriorRun, PosteriorSettings, SampleSource,
-    SearchGeometry, geometry_at, next_months, posterior,
+    Best, DerivedSample, Explanation, PERTURBER, PosteriorOutcome, PosteriorRun, PosteriorSettings, SAMPLE_COLUMNS,
+    SampleSource, SearchGeometry, geometry_at, next_months, posterior,
 };
 pub use sky::{SUN_WARNING_DEG, SkyProducts, sky_products};
 pub use study::{EphemerisSource, Study, TrackedArc, force_model, parse_known};
+pub use table::Table;
 
 /// Why a stage could not finish.
 #[derive(Debug, thiserror::Error)]

@@ -169,6 +169,48 @@ pub struct PosteriorRun {
     pub sampler: SamplerSettings,
 }
 
+/// The columns of [`PosteriorRun::table`] (and of posterior.csv).
+pub const SAMPLE_COLUMNS: [&str; 11] = [
+    "mass_earth",
+    "a_au",
+    "e",
+    "inc_deg",
+    "node_deg",
+    "peri_deg",
+    "mean_anomaly_deg",
+    "ra_deg",
+    "dec_deg",
+    "distance_au",
+    "log_likelihood",
+];
+
+impl PosteriorRun {
+    /// The equally weighted samples as a table: mass (Earth masses),
+    /// osculating heliocentric ecliptic elements at the reference epoch,
+    /// geocentric astrometric RA/Dec (deg) and distance (au) at the search
+    /// epoch, and the log-likelihood.
+    pub fn table(&self) -> super::Table {
+        super::Table::from_rows(
+            SAMPLE_COLUMNS.to_vec(),
+            self.samples.iter().map(|d| {
+                vec![
+                    d.sample.mass_earth(),
+                    d.a_au,
+                    d.e,
+                    d.inc_deg,
+                    d.node_deg,
+                    d.peri_deg,
+                    d.mean_anomaly_deg,
+                    d.ra_deg,
+                    d.dec_deg,
+                    d.distance_au,
+                    d.log_likelihood,
+                ]
+            }),
+        )
+    }
+}
+
 /// What the posterior stage found.
 pub struct PosteriorOutcome {
     /// The alternatives, weighed on the null kernel.

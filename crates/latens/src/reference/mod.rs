@@ -101,6 +101,33 @@ pub struct ReferenceFit {
     pub warnings: Vec<String>,
 }
 
+/// The columns of [`ReferenceFit::residual_table`].
+pub const RESIDUAL_COLUMNS: [&str; 7] =
+    ["t_tdb_days", "ra_arcsec", "dec_arcsec", "sigma_ra_arcsec", "sigma_dec_arcsec", "chi2", "used"];
+
+impl ReferenceFit {
+    /// The O-C residuals as a table, one row per observation (those this
+    /// fit was made on, in order): epoch (TDB days since J2000.0), O-C in
+    /// RA*cos(Dec) and Dec (arcsec), the sigmas, the pair's chi-square and
+    /// whether it was used (1) or set aside (0).
+    pub fn residual_table(&self, observations: &[Observation]) -> crate::pipeline::Table {
+        crate::pipeline::Table::from_rows(
+            RESIDUAL_COLUMNS.to_vec(),
+            observations.iter().zip(&self.residuals).map(|(o, r)| {
+                vec![
+                    o.t_tdb_days,
+                    r.ra_arcsec,
+                    r.dec_arcsec,
+                    o.sigma_ra_arcsec,
+                    o.sigma_dec_arcsec,
+                    r.chi2,
+                    if r.used { 1.0 } else { 0.0 },
+                ]
+            }),
+        )
+    }
+}
+
 /// The observing geometry of every observation (observer position, the Sun's
 /// barycentric velocity).
 pub fn observing_geometry(
