@@ -11,7 +11,7 @@
 use std::path::Path;
 
 use super::CliError;
-use super::args::{DemoArgs, InferArgs, InputArgs, SensitivityArgs};
+use super::args::{DemoArgs, InputArgs, SensitivityArgs};
 use super::residuals::ResidualProducts;
 use latens::io::observations::{SiteTable, read_observations};
 use latens::io::scenario::parse;
@@ -92,30 +92,29 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
     };
     let search_dir = out.join("search");
     let s = &scenario.search;
-    let impostor_priors = latens::posterior::impostors::ImpostorPriors::default();
-    let summary = super::infer::run(&InferArgs {
-        input: input.clone(),
-        search_epoch: s.epoch.clone(),
-        mass_earth: format!("{}:{}", s.mass_earth[0], s.mass_earth[1]),
-        distance_au: format!("{}:{}", s.distance_au[0], s.distance_au[1]),
-        nulls: 500,
-        directions: 768,
-        distances: 20,
-        seed: scenario.survey.seed,
-        out: search_dir.clone(),
-        no_posterior: false,
-        posterior_steps: 1500,
-        walkers: 32,
-        temperatures: 16,
-        runs: 2,
-        max_eccentricity: s.max_eccentricity,
-        gm_prior_inflation: impostor_priors.gm_inflation,
-        nongrav_prior: None,
-        offset_prior: impostor_priors.offset_arcsec,
-        resume: None,
-        reject_sigma: "10".into(),
-        exclude: None,
-    })?;
+    // The command's own defaults, with the scenario's search settings put
+    // in typed (the grid, sampler and priors of the alternatives as a user
+    // gets them; 500 noise-only searches for the false-alarm probability).
+    let mut args = match <super::Args as clap::Parser>::try_parse_from([
+        std::ffi::OsStr::new("latens"),
+        "infer".as_ref(),
+        "--obs".as_ref(),
+        sim.observations_path.as_os_str(),
+        "--out".as_ref(),
+        search_dir.as_os_str(),
+    ]) {
+        Ok(super::Args { command: super::Command::Infer(a) }) => a,
+        _ => return Err(CliError::failed(anyhow::anyhow!("the infer command's defaults did not parse"))),
+    };
+    args.input = input.clone();
+    args.search_epoch = s.epoch.clone();
+    args.nulls = 500;
+    args.seed = scenario.survey.seed;
+    args.max_eccentricity = s.max_eccentricity;
+    let mut plan = super::infer::InferPlan::from_args(&args)?;
+    plan.detection.search.mass_earth = (s.mass_earth[0], s.mass_earth[1]);
+    plan.detection.search.distance_au = (s.distance_au[0], s.distance_au[1]);
+    let summary = super::infer::execute(&plan)?;
     let truth_check = truth_against_region(&sim.truth, &search_dir);
 
     // 4. What the survey could have revealed at all.

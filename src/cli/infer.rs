@@ -3,7 +3,7 @@
 //! probability by null simulation.)
 
 use std::fmt::Write as _;
-use std::path::Path;
+use std::path::{Path, PathBuf};
 
 use anyhow::Context;
 
@@ -22,8 +22,8 @@ use latens::io::results::{
 use latens::io::write_atomically;
 use latens::perturber::{KeplerOrbit, LinearKernel, Scored, SearchSettings};
 use latens::pipeline::{
-    Best, DETECTION_FAP, Detection, DetectionSettings, EphemerisSource, Study, TrackedArc, detect, linearisation_error,
-    parse_known,
+    Best, DETECTION_FAP, Detection, DetectionSettings, EphemerisSource, PosteriorSettings, Study, TrackedArc, detect,
+    linearisation_error, parse_known,
 };
 use latens::reference::ReferenceFit;
 use latens::time::{epoch_from_tdb_days, parse_epoch, tdb_days_from_j2000, utc_iso_from_epoch};
@@ -44,74 +44,112 @@ fn parse_range(text: &str, what: &str) -> Result<(f64, f64), CliError> {
     Ok((a, b))
 }
 
-pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
-    // A resumed run writes where it was interrupted.
-    let out_dir = args.resume.clone().unwrap_or_else(|| args.out.clone());
-    let out = out_dir.as_path();
-    let mass = parse_range(&args.mass_earth, "--mass-earth")?;
-    let distance = parse_range(&args.distance_au, "--distance-au")?;
-    // The false-alarm probability cannot go below 1/(nulls + 1): enough
-    // nulls are needed for it to reach the detection threshold at all.
-    let min_nulls = (1.0 / DETECTION_FAP).ceil() as usize;
-    if args.nulls < min_nulls {
-        return Err(CliError::bad_input(anyhow::anyhow!(
-            "--nulls must be at least {min_nulls} for a false-alarm probability below the detection threshold {DETECTION_FAP}, got {}",
-            args.nulls
-        )));
-    }
-    for (v, name) in [
-        (args.gm_prior_inflation, "--gm-prior-inflation"),
-        // Checked only when given; its default follows --kind.
-        (args.nongrav_prior.unwrap_or(1.0), "--nongrav-prior"),
-        (args.offset_prior, "--offset-prior"),
-        (args.max_eccentricity, "--max-eccentricity"),
-    ] {
-        if !(v.is_finite() && v > 0.0) || (name == "--max-eccentricity" && v >= 1.0) {
+/// Everything `infer` was asked to do, typed and checked before any work.
+pub(super) struct InferPlan {
+    pub obs: PathBuf,
+    pub sites: Option<PathBuf>,
+    pub known: Vec<Body>,
+    pub tracked: TrackedBody,
+    pub ephemeris: EphemerisSource,
+    /// TDB days since J2000.0; none: the last observation.
+    pub search_epoch: Option<f64>,
+    /// Line numbers of the observation file left out by hand.
+    pub excluded_lines: Vec<usize>,
+    pub detection: DetectionSettings,
+    pub posterior: PosteriorSettings,
+    /// Where the files go (the interrupted run's directory on resume).
+    pub out: PathBuf,
+}
+
+impl InferPlan {
+    /// The plan the arguments describe; every option is checked here.
+    pub fn from_args(args: &InferArgs) -> Result<InferPlan, CliError> {
+        // A resumed run writes where it was interrupted.
+        let out = args.resume.clone().unwrap_or_else(|| args.out.clone());
+        let mass = parse_range(&args.mass_earth, "--mass-earth")?;
+        let distance = parse_range(&args.distance_au, "--distance-au")?;
+        // The false-alarm probability cannot go below 1/(nulls + 1): enough
+        // nulls are needed for it to reach the detection threshold at all.
+        let min_nulls = (1.0 / DETECTION_FAP).ceil() as usize;
+        if args.nulls < min_nulls {
             return Err(CliError::bad_input(anyhow::anyhow!(
-                "{name} must be positive (and below 1 for an eccentricity), got {v}"
+                "--nulls must be at least {min_nulls} for a false-alarm probability below the detection threshold {DETECTION_FAP}, got {}",
+                args.nulls
             )));
         }
+        for (v, name) in [
+            (args.gm_prior_inflation, "--gm-prior-inflation"),
+            // Checked only when given; its default follows --kind.
+            (args.nongrav_prior.unwrap_or(1.0), "--nongrav-prior"),
+            (args.offset_prior, "--offset-prior"),
+            (args.max_eccentricity, "--max-eccentricity"),
+        ] {
+            if !(v.is_finite() && v > 0.0) || (name == "--max-eccentricity" && v >= 1.0) {
+                return Err(CliError::bad_input(anyhow::anyhow!(
+                    "{name} must be positive (and below 1 for an eccentricity), got {v}"
+                )));
+            }
+        }
+        if args.directions < 12 || args.distances < 2 {
+            return Err(CliError::bad_input(anyhow::anyhow!(
+                "--directions must be at least 12 and --distances at least 2"
+            )));
+        }
+        let reject_sigma = parse_reject_sigma(&args.reject_sigma)?;
+        let excluded_lines = parse_exclude(args.exclude.as_deref())?;
+        let search = SearchSettings {
+            mass_earth: mass,
+            distance_au: distance,
+            n_null: args.nulls,
+            seed: args.seed,
+            n_directions: args.directions,
+            n_distances: args.distances,
+            ..SearchSettings::default()
+        };
+        let search_epoch = match &args.search_epoch {
+            Some(text) => Some(tdb_days_from_j2000(
+                parse_epoch(text).map_err(|e| CliError::bad_input(anyhow::anyhow!("--search-epoch: {e}")))?,
+            )),
+            None => None,
+        };
+        let known = parse_known(&args.input.known).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+        let tracked = TrackedBody::parse(&args.input.tracked_mass, args.input.kind.as_deref())
+            .map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+        let posterior = super::posterior::settings(args, &out, tracked.kind)?;
+        Ok(InferPlan {
+            obs: args.input.obs.clone(),
+            sites: args.input.sites.clone(),
+            known,
+            tracked,
+            ephemeris: EphemerisSource::parse(&args.input.ephemeris),
+            search_epoch,
+            excluded_lines,
+            detection: DetectionSettings { search, reject_sigma },
+            posterior,
+            out,
+        })
     }
-    if args.directions < 12 || args.distances < 2 {
-        return Err(CliError::bad_input(anyhow::anyhow!(
-            "--directions must be at least 12 and --distances at least 2"
-        )));
-    }
-    let reject_sigma = parse_reject_sigma(&args.reject_sigma)?;
-    let excluded = parse_exclude(args.exclude.as_deref())?;
-    let settings = SearchSettings {
-        mass_earth: mass,
-        distance_au: distance,
-        n_null: args.nulls,
-        seed: args.seed,
-        n_directions: args.directions,
-        n_distances: args.distances,
-        ..SearchSettings::default()
-    };
-    let search_epoch = match &args.search_epoch {
-        Some(text) => Some(tdb_days_from_j2000(
-            parse_epoch(text).map_err(|e| CliError::bad_input(anyhow::anyhow!("--search-epoch: {e}")))?,
-        )),
-        None => None,
-    };
-    let known = parse_known(&args.input.known).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
-    let tracked = TrackedBody::parse(&args.input.tracked_mass, args.input.kind.as_deref())
-        .map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
-    let posterior_settings = super::posterior::settings(args, out, tracked.kind)?;
+}
+
+pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
+    execute(&InferPlan::from_args(args)?)
+}
+
+/// Runs a checked plan: the study, the stages, the files and the report.
+pub(super) fn execute(plan: &InferPlan) -> Result<InferSummary, CliError> {
+    let out = plan.out.as_path();
+    let (mass, distance) = (plan.detection.search.mass_earth, plan.detection.search.distance_au);
+    let settings = &plan.detection.search;
+    let reject_sigma = plan.detection.reject_sigma;
+    let posterior_settings = &plan.posterior;
 
     // The study: read once, passed to every stage.
-    let mut arc = TrackedArc::load(&args.input.obs, args.input.sites.as_deref(), &known, tracked)
+    let mut arc = TrackedArc::load(&plan.obs, plan.sites.as_deref(), &plan.known, plan.tracked.clone())
         .map_err(super::pipeline_error)?;
-    arc.exclude_lines(&excluded).map_err(|e| CliError::bad_input(anyhow::anyhow!("--exclude: {e}")))?;
-    let study = Study::new(vec![arc], &EphemerisSource::parse(&args.input.ephemeris), search_epoch)
-        .map_err(super::pipeline_error)?;
+    arc.exclude_lines(&plan.excluded_lines).map_err(|e| CliError::bad_input(anyhow::anyhow!("--exclude: {e}")))?;
+    let study = Study::new(vec![arc], &plan.ephemeris, plan.search_epoch).map_err(super::pipeline_error)?;
     let search_epoch = study.search_epoch_tdb_days;
-    let detection = detect(
-        &study,
-        &DetectionSettings { search: settings.clone(), reject_sigma },
-        &crate::cli::progress::Bars::new(),
-    )
-    .map_err(super::pipeline_error)?;
+    let detection = detect(&study, &plan.detection, &crate::cli::progress::Bars::new())?;
     let arc = study.single().map_err(super::pipeline_error)?;
     let (model, tracked, excluded_by_hand) = (&arc.model, &arc.tracked, arc.excluded_by_hand.clone());
     let (ephemeris, wide) = (study.ephemeris.as_ref(), study.wide.as_ref());
@@ -161,7 +199,7 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
     let yearly = detection.annual.flagged();
     let mut verdict = detection.verdict_text();
 
-    let stage = super::posterior::run(out, &study, &detection, &posterior_settings)?;
+    let stage = super::posterior::run(out, &study, &detection, posterior_settings)?;
     warnings.extend(stage.result.warnings.iter().cloned());
     // A non-detection gives upper limits, not a place to look.
     let upper_limits = if detected { Vec::new() } else { upper_limits(stage.samples(), distance) };
@@ -196,7 +234,7 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
 
     let summary = InferSummary {
         search_epoch_utc: utc_iso_from_epoch(epoch_from_tdb_days(search_epoch)),
-        seed: args.seed,
+        seed: settings.seed,
         settings: InferSettingsFile {
             mass_earth: [mass.0, mass.1],
             distance_au: [distance.0, distance.1],
@@ -239,9 +277,7 @@ pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
             mass_earth: tracked.mass_earth(),
             gm_au3_per_day2: tracked.gm_au3_per_day2,
             named: tracked.named.map(|b| b.name().to_string()),
-            nongrav_prior_au_per_day2: args
-                .nongrav_prior
-                .unwrap_or(latens::posterior::impostors::nongrav_prior_for(tracked.kind)),
+            nongrav_prior_au_per_day2: posterior_settings.alternatives.nongrav_au_per_day2,
         },
         outliers: latens::io::results::OutlierFile {
             threshold_sigma: reject_sigma,
