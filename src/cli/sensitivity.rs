@@ -7,12 +7,11 @@ use anyhow::Context;
 
 use super::CliError;
 use super::args::{SensitivityArgs, SensitivityCommand};
-use super::residuals::{load_ephemeris, read_inputs};
+use latens::dynamics::TrackedBody;
 use latens::io::write_atomically;
 use latens::perturber::search::SearchSettings;
-use latens::perturber::sensitivity::{Cell, SensitivitySettings, compute_cells, contour};
-use latens::perturber::{LinearKernel, grid_search};
-use latens::reference::{ReferenceSettings, fit_reference_orbit, observing_geometry};
+use latens::perturber::sensitivity::{Cell, SensitivitySettings, contour};
+use latens::pipeline::{EphemerisSource, SensitivityPlan, Study, TrackedArc, parse_known, sensitivity};
 use latens_charts::sensitivity_chart::SensitivityChart;
 
 const HEADER: &str =
@@ -34,107 +33,58 @@ pub(super) fn run(args: &SensitivityArgs) -> Result<(), CliError> {
     let mass: (f64, f64) = parse_pair(&args.mass_earth, ':', "--mass-earth")?;
     let distance: (f64, f64) = parse_pair(&args.distance_au, ':', "--distance-au")?;
     let grid: (usize, usize) = parse_pair(&args.grid, ':', "--grid")?;
-    if !(mass.0 > 0.0 && mass.1 > mass.0 && distance.0 > 0.0 && distance.1 > distance.0) {
-        return Err(CliError::bad_input(anyhow::anyhow!("--mass-earth and --distance-au need 0 < MIN < MAX")));
-    }
-    if grid.0 < 2 || grid.1 < 2 || args.trials < 1 || !(args.fap > 0.0 && args.fap < 1.0) {
-        return Err(CliError::bad_input(anyhow::anyhow!(
-            "--grid needs at least 2:2, --trials at least 1, --fap in (0, 1)"
-        )));
-    }
     let shard = match &args.shard {
-        Some(text) => {
-            let (k, n): (usize, usize) = parse_pair(text, '/', "--shard")?;
-            if n == 0 || k == 0 || k > n {
-                return Err(CliError::bad_input(anyhow::anyhow!("--shard K/N needs 1 <= K <= N, got {text}")));
-            }
-            Some((k, n))
-        }
+        Some(text) => Some(parse_pair::<usize>(text, '/', "--shard")?),
         None => None,
     };
-    let (model, _tracked) = super::residuals::model_from_input(input)?;
-    let (observations, sites, ephemeris) = match &args.orbit {
+    let plan = SensitivityPlan {
+        map: SensitivitySettings {
+            mass_earth: mass,
+            distance_au: distance,
+            n_masses: grid.0,
+            n_distances: grid.1,
+            n_trials: args.trials,
+            max_ecliptic_latitude_deg: args.near_ecliptic,
+            seed: args.seed,
+            min_separation_au: SearchSettings::default().min_separation_au,
+        },
+        false_alarm_probability: args.fap,
+        search: SearchSettings {
+            n_null: args.nulls,
+            seed: args.seed,
+            n_directions: args.directions,
+            n_distances: args.distances,
+            ..SearchSettings::default()
+        },
+        shard,
+    };
+    plan.check()?;
+    let known = parse_known(&input.known).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+    let tracked = TrackedBody::parse(&input.tracked_mass, input.kind.as_deref())
+        .map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+    let source = EphemerisSource::parse(&input.ephemeris);
+    let study = match &args.orbit {
         None => {
-            let (observations, sites) = read_inputs(&input.obs, input.sites.as_ref())?;
-            let ephemeris = load_ephemeris(&input.ephemeris, &model, &observations)?;
-            (observations, sites, ephemeris)
+            let arc = TrackedArc::load(&input.obs, input.sites.as_deref(), &known, tracked)?;
+            Study::new(vec![arc], &source, None)?
         }
         Some(orbit_path) => {
-            let sites = match &input.sites {
-                Some(p) => latens::io::observations::SiteTable::read(p).map_err(CliError::bad_input)?,
-                None => latens::io::observations::SiteTable::new(),
-            };
-            let mut schedule =
-                latens::io::observations::read_schedule(&input.obs, &sites, 3).map_err(CliError::bad_input)?;
-            let ephemeris = load_ephemeris(&input.ephemeris, &model, &schedule)?;
             let (t0, state) = read_orbit(orbit_path)?;
+            let arc = TrackedArc::load_schedule(&input.obs, input.sites.as_deref(), &known, tracked)?;
+            let mut study = Study::new(vec![arc], &source, None)?;
             // Positions the planned survey would measure of this orbit (no noise).
-            let geometry = observing_geometry(&schedule, &sites, ephemeris.as_ref()).map_err(CliError::failed)?;
-            let mut orbit = latens::reference::OrbitModel::new(&schedule, geometry, t0, &model, ephemeris.as_ref())
-                .map_err(CliError::failed)?;
-            orbit.predict(&state, false).map_err(CliError::failed)?;
-            let predicted = orbit.predict(&state, false).map_err(CliError::failed)?;
-            drop(orbit);
-            for (o, p) in schedule.iter_mut().zip(&predicted) {
-                o.ra_rad = p.radec.ra_rad;
-                o.dec_rad = p.radec.dec_rad;
-            }
-            (schedule, sites, ephemeris)
+            study.place_on_orbit(0, t0, &state)?;
+            study
         }
     };
-
-    eprintln!("Fitting the reference orbit and building the kernel...");
-    let null =
-        fit_reference_orbit(&observations, &sites, &model, ephemeris.as_ref(), &ReferenceSettings::default(), None)
-            .map_err(CliError::failed)?;
-    let geometry = observing_geometry(&observations, &sites, ephemeris.as_ref()).map_err(CliError::failed)?;
-    let kernel =
-        LinearKernel::build(&null, &observations, geometry, &model, ephemeris.as_ref()).map_err(CliError::failed)?;
-
-    // The detection threshold of `latens infer` for these data: the
-    // (1 - fap) quantile of its search maxima on noise alone.
-    eprintln!("Calibrating the detection threshold with null simulations of the search...");
-    if args.directions < 12 || args.distances < 2 || args.nulls < 20 {
-        return Err(CliError::bad_input(anyhow::anyhow!(
-            "--directions >= 12, --distances >= 2 and --nulls >= 20 are needed"
-        )));
-    }
-    let search = SearchSettings {
-        n_null: args.nulls,
-        seed: args.seed,
-        n_directions: args.directions,
-        n_distances: args.distances,
-        ..SearchSettings::default()
-    };
-    let zeros = vec![0.0; kernel.n_residuals()];
-    let nulls = grid_search(&kernel.with_residuals(&zeros), &search, &latens::progress::Quiet);
-    let mut maxima = nulls.null_maxima.clone();
-    maxima.sort_by(f64::total_cmp);
-    let q = ((1.0 - args.fap) * maxima.len() as f64).ceil() as usize;
-    let threshold = maxima[q.min(maxima.len()) - 1];
-
-    let settings = SensitivitySettings {
-        mass_earth: mass,
-        distance_au: distance,
-        n_masses: grid.0,
-        n_distances: grid.1,
-        n_trials: args.trials,
-        max_ecliptic_latitude_deg: args.near_ecliptic,
-        seed: args.seed,
-        min_separation_au: search.min_separation_au,
-    };
-    let all: Vec<(usize, usize)> = (0..grid.1).flat_map(|d| (0..grid.0).map(move |m| (m, d))).collect();
-    let mine: Vec<(usize, usize)> = match shard {
-        Some((k, n)) => all.iter().enumerate().filter(|(i, _)| i % n == k - 1).map(|(_, c)| *c).collect(),
-        None => all,
-    };
-    let cells = compute_cells(&kernel, &settings, threshold, &mine, &crate::cli::progress::Bars::new());
+    let map = sensitivity(&study, &plan, &crate::cli::progress::Bars::new())?;
+    let (threshold, cells) = (map.threshold_delta_chi2, &map.cells);
 
     let mut csv = format!(
         "# latens sensitivity: detection threshold delta chi2 {threshold:.4} (false-alarm probability {}), seed {}, grid {}:{}, trials {}\n{HEADER}\n",
         args.fap, args.seed, grid.0, grid.1, args.trials
     );
-    for c in &cells {
+    for c in cells {
         csv.push_str(&csv_row(c));
     }
     match shard {
@@ -145,7 +95,7 @@ pub(super) fn run(args: &SensitivityArgs) -> Result<(), CliError> {
             println!("Join the shards with: latens sensitivity merge DIR... --out DIR");
         }
         None => {
-            write_products(&args.out, &csv, &cells, threshold).map_err(CliError::failed)?;
+            write_products(&args.out, &csv, cells, threshold).map_err(CliError::failed)?;
         }
     }
     Ok(())

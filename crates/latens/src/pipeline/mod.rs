@@ -10,12 +10,15 @@
 //! the annual-systematic check and the verdict) and [`posterior`] (the
 //! alternatives, the sampler, convergence, evidence, the nonlinear check,
 //! the explanation) and [`sky_products`] (map, credible regions, modes,
-//! safety). Prediction and sensitivity still live in the `latens` binary and are moving here stage by stage.
+//! safety) and [`sensitivity`] (the detection-probability map of the
+//! data or of a planned schedule). Prediction still lives in the `latens`
+//! binary.
 //!
 //! Long stages report to a [`crate::progress::Observer`] the caller passes.
 
 mod detection;
 mod posterior;
+mod sensitivity;
 mod sky;
 mod study;
 mod table;
@@ -28,6 +31,7 @@ pub use posterior::{
     Best, DerivedSample, Explanation, PERTURBER, PosteriorOutcome, PosteriorRun, PosteriorSettings, SAMPLE_COLUMNS,
     SampleSource, SearchGeometry, geometry_at, next_months, posterior,
 };
+pub use sensitivity::{SensitivityMap, SensitivityPlan, sensitivity};
 pub use sky::{SUN_WARNING_DEG, SkyProducts, sky_products};
 pub use study::{EphemerisSource, Study, TrackedArc, force_model, parse_known};
 pub use table::Table;

@@ -7,7 +7,7 @@ use super::PipelineError;
 use crate::astrometry::observer_ephemeris_bodies;
 use crate::dynamics::{ForceModel, KnownBody, TrackedBody};
 use crate::ephemeris::{Body, Ephemeris, SpkFile, Vsop87};
-use crate::io::observations::{Observation, SiteTable, read_observations};
+use crate::io::observations::{Observation, SiteTable, read_observations, read_schedule};
 
 /// The inner planets, folded into the Sun when not listed as known bodies.
 const INNER: [Body; 4] = [Body::Mercury, Body::Venus, Body::EarthMoonBarycenter, Body::Mars];
@@ -175,6 +175,30 @@ impl TrackedArc {
         let list = read_observations(observations, &sites, 3).map_err(|e| PipelineError::Input(e.to_string()))?;
         Ok(TrackedArc {
             name: observations.file_stem().map_or("tracked body".into(), |s| s.to_string_lossy().into_owned()),
+            observations: list,
+            sites,
+            model: force_model(known).with_tracked_gm(tracked.gm_au3_per_day2),
+            tracked,
+            excluded_by_hand: Vec::new(),
+        })
+    }
+
+    /// Reads a planned schedule (epochs, sigmas, sites; no positions) for
+    /// the sensitivity of a survey; put it on an orbit with
+    /// [`Study::place_on_orbit`] once the study is built.
+    pub fn load_schedule(
+        schedule: &Path,
+        sites: Option<&Path>,
+        known: &[Body],
+        tracked: TrackedBody,
+    ) -> Result<TrackedArc, PipelineError> {
+        let sites = match sites {
+            Some(p) => SiteTable::read(p).map_err(|e| PipelineError::Input(e.to_string()))?,
+            None => SiteTable::new(),
+        };
+        let list = read_schedule(schedule, &sites, 3).map_err(|e| PipelineError::Input(e.to_string()))?;
+        Ok(TrackedArc {
+            name: schedule.file_stem().map_or("planned body".into(), |s| s.to_string_lossy().into_owned()),
             observations: list,
             sites,
             model: force_model(known).with_tracked_gm(tracked.gm_au3_per_day2),
