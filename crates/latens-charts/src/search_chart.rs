@@ -12,6 +12,8 @@
 use plotters::coord::Shift;
 use plotters::prelude::*;
 
+pub use latens::frames::{from_tangent, tangent};
+
 use latens::vec3::Vec3;
 
 const INK: RGBColor = RGBColor(30, 30, 30);
@@ -283,29 +285,6 @@ fn wrap(text: &str, width: usize) -> Vec<String> {
         }
     }
     lines
-}
-
-/// Tangent-plane (gnomonic) coordinates, degrees, of `d` about `c`: x
-/// towards increasing RA (east, drawn to the left), y towards north.
-pub fn tangent(c: Vec3, d: Vec3) -> Option<(f64, f64)> {
-    let cosd = c.dot(d);
-    if cosd <= 1e-6 {
-        return None;
-    }
-    let pole = Vec3::new(0.0, 0.0, 1.0);
-    let east = pole.cross(c);
-    let east = if east.norm() > 1e-12 { east.unit() } else { Vec3::new(0.0, 1.0, 0.0) };
-    let north = c.cross(east);
-    Some(((d.dot(east) / cosd).atan().to_degrees(), (d.dot(north) / cosd).atan().to_degrees()))
-}
-
-/// The direction at tangent-plane coordinates (degrees) about `c`.
-pub fn from_tangent(c: Vec3, x: f64, y: f64) -> Vec3 {
-    let pole = Vec3::new(0.0, 0.0, 1.0);
-    let east = pole.cross(c);
-    let east = if east.norm() > 1e-12 { east.unit() } else { Vec3::new(0.0, 1.0, 0.0) };
-    let north = c.cross(east);
-    (c + east * x.to_radians().tan() + north * y.to_radians().tan()).unit()
 }
 
 fn draw_zoom<DB: DrawingBackend>(z: &ZoomPanel, area: &DrawingArea<DB, Shift>) -> Result<(), String> {

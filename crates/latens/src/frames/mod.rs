@@ -117,6 +117,29 @@ pub fn icrf_from_ecliptic_lonlat(lonlat: EclipticLonLat) -> Vec3 {
     icrf_from_ecliptic(vector_from_radec(RaDec { ra_rad: lonlat.lon_rad, dec_rad: lonlat.lat_rad }))
 }
 
+/// Tangent-plane (gnomonic) coordinates, degrees, of `d` about `c`: x
+/// towards increasing RA (east, drawn to the left), y towards north.
+pub fn tangent(c: Vec3, d: Vec3) -> Option<(f64, f64)> {
+    let cosd = c.dot(d);
+    if cosd <= 1e-6 {
+        return None;
+    }
+    let pole = Vec3::new(0.0, 0.0, 1.0);
+    let east = pole.cross(c);
+    let east = if east.norm() > 1e-12 { east.unit() } else { Vec3::new(0.0, 1.0, 0.0) };
+    let north = c.cross(east);
+    Some(((d.dot(east) / cosd).atan().to_degrees(), (d.dot(north) / cosd).atan().to_degrees()))
+}
+
+/// The direction at tangent-plane coordinates (degrees) about `c`.
+pub fn from_tangent(c: Vec3, x: f64, y: f64) -> Vec3 {
+    let pole = Vec3::new(0.0, 0.0, 1.0);
+    let east = pole.cross(c);
+    let east = if east.norm() > 1e-12 { east.unit() } else { Vec3::new(0.0, 1.0, 0.0) };
+    let north = c.cross(east);
+    (c + east * x.to_radians().tan() + north * y.to_radians().tan()).unit()
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

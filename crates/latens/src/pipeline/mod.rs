@@ -11,13 +11,14 @@
 //! alternatives, the sampler, convergence, evidence, the nonlinear check,
 //! the explanation) and [`sky_products`] (map, credible regions, modes,
 //! safety) and [`sensitivity`] (the detection-probability map of the
-//! data or of a planned schedule). Prediction still lives in the `latens`
-//! binary.
+//! data or of a planned schedule), and [`predict`] (each mode's place,
+//! date by date).
 //!
 //! Long stages report to a [`crate::progress::Observer`] the caller passes.
 
 mod detection;
 mod posterior;
+mod predict;
 mod sensitivity;
 mod sky;
 mod study;
@@ -31,6 +32,7 @@ pub use posterior::{
     Best, DerivedSample, Explanation, PERTURBER, PosteriorOutcome, PosteriorRun, PosteriorSettings, SAMPLE_COLUMNS,
     SampleSource, SearchGeometry, geometry_at, next_months, posterior,
 };
+pub use predict::{OrbitSample, Prediction, predict};
 pub use sensitivity::{SensitivityMap, SensitivityPlan, sensitivity};
 pub use sky::{SUN_WARNING_DEG, SkyProducts, sky_products};
 pub use study::{EphemerisSource, Study, TrackedArc, force_model, parse_known};
