@@ -9,25 +9,17 @@ use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 
 use super::CliError;
-use latens::astrometry::astrometric_direction;
-use latens::dynamics::kepler::{Elements, propagate, state_from_elements};
-use latens::dynamics::{ForceModel, InitialState, Perturber, PropagationSettings, Propagator};
-use latens::ephemeris::{Body, Ephemeris, Tabulated, Vsop87};
-use latens::frames::{angular_separation, icrf_from_ecliptic, radec_from_vector};
-use latens::io::observations::{Observation, Site, SiteTable};
-use latens::io::results::{PlaceFile, TruthBodyFile, TruthFile};
+use latens::dynamics::{ForceModel, InitialState};
+use latens::ephemeris::Tabulated;
+use latens::io::observations::Observation;
+use latens::io::results::TruthFile;
 use latens::io::scenario::{ScenarioFile, read};
 use latens::io::write_atomically;
-use latens::pipeline::{force_model, parse_known};
-use latens::simulate::{SurveyPlan, simulate_survey};
-use latens::time::{epoch_from_tdb_days, parse_epoch, tdb_days_from_j2000, utc_iso_from_epoch};
-use latens::units::{EARTH_MASS_SOLAR, GM_SUN_AU3_PER_DAY2, J2000_JD, RAD_PER_ARCSEC, RAD_PER_DEG};
-use latens::vec3::Vec3;
+use latens::pipeline::simulate_scenario;
+use latens::time::{epoch_from_tdb_days, utc_iso_from_epoch};
+use latens::units::RAD_PER_DEG;
 
-/// Spacing of the track's positions, days (a month).
-pub(super) const TRACK_SPACING_DAYS: f64 = 30.4375;
-
-/// A simulated scenario, ready for the other stages.
+/// A simulated scenario, written out and ready for the other stages.
 pub(super) struct Simulated {
     pub observations_path: PathBuf,
     pub sites_path: PathBuf,
@@ -41,117 +33,18 @@ pub(super) struct Simulated {
     pub largest_planetary_shift_arcsec: f64,
 }
 
-fn bad(e: impl std::fmt::Display) -> CliError {
-    CliError::bad_input(anyhow::anyhow!("{e}"))
-}
-
-fn elements_state(
-    what: &str,
-    (a, e, i, node, peri, m): (f64, f64, f64, f64, f64, f64),
-) -> Result<(Vec3, Vec3), CliError> {
-    let el =
-        Elements::from_semi_major_axis(a, e, i * RAD_PER_DEG, node * RAD_PER_DEG, peri * RAD_PER_DEG, m * RAD_PER_DEG)
-            .map_err(|err| bad(format!("{what}: {err}")))?;
-    let (r, v) = state_from_elements(GM_SUN_AU3_PER_DAY2, &el).map_err(|err| bad(format!("{what}: {err}")))?;
-    Ok((icrf_from_ecliptic(r), icrf_from_ecliptic(v)))
-}
-
-fn when(text: &str, what: &str) -> Result<f64, CliError> {
-    parse_epoch(text).map(tdb_days_from_j2000).map_err(|e| bad(format!("{what}: {e}")))
-}
-
-/// Simulates a scenario into `out` (`name` is the scenario file's name, for messages).
+/// Simulates a scenario and writes it into `out` (`name` is the scenario
+/// file's name, for messages): observations.csv, sites.csv, track.csv and
+/// truth.json.
 pub(super) fn simulate(s: &ScenarioFile, name: &str, out: &Path) -> Result<Simulated, CliError> {
-    let t_ref = when(&s.tracked.epoch, &format!("{name}: tracked.epoch"))?;
-    let t_start = when(&s.survey.start, &format!("{name}: survey.start"))?;
-    let t_end = when(&s.survey.end, &format!("{name}: survey.end"))?;
-    if t_end <= t_start {
-        return Err(bad(format!("{name}: survey.end must come after survey.start")));
-    }
-    if (t_end - t_start) / s.survey.visit_every_days > 200_000.0 {
-        return Err(bad(format!("{name}: survey.visit_every_days gives too many visits")));
-    }
-    let search_epoch = match &s.search.epoch {
-        Some(t) => Some(when(t, &format!("{name}: search.epoch"))?),
-        None => None,
-    };
-    let known = parse_known(&s.model.known).map_err(|e| bad(format!("{name}: model.known: {e}")))?;
-    let model = force_model(&known);
-    let span_end = search_epoch.unwrap_or(t_end).max(t_end).max(t_ref);
-    let span_start = t_start.min(t_ref);
-    let ephemeris = model
-        .tabulate(&Vsop87::new(), &[Body::Earth], (span_start - 2.0, span_end + 2.0))
-        .map_err(|e| bad(format!("{name}: {e}")))?;
-    let t = &s.tracked;
-    let (r0, v0) = elements_state(
-        &format!("{name}: tracked"),
-        (t.a_au, t.e, t.inc_deg, t.node_deg, t.peri_deg, t.mean_anomaly_deg),
-    )?;
-    let hidden = match &s.perturber {
-        Some(p) => {
-            let (r, v) = elements_state(
-                &format!("{name}: perturber"),
-                (p.a_au, p.e, p.inc_deg, p.node_deg, p.peri_deg, p.mean_anomaly_deg),
-            )?;
-            vec![Perturber {
-                gm_au3_per_day2: p.mass_earth * EARTH_MASS_SOLAR * GM_SUN_AU3_PER_DAY2,
-                position_au: r,
-                velocity_au_per_day: v,
-            }]
-        }
-        None => vec![],
-    };
-    let initial = InitialState {
-        t0_tdb_days: t_ref,
-        tracked_position_au: r0,
-        tracked_velocity_au_per_day: v0,
-        perturbers: hidden,
-    };
-
-    // The survey: visits rotating through the sites, a little varied in time of night.
-    let mut sites = SiteTable::new();
-    for site in &s.survey.sites {
-        sites.insert(Site {
-            name: site.name.clone(),
-            lon_deg: site.lon_deg,
-            lat_deg: site.lat_deg,
-            height_m: site.height_m,
-        });
-    }
-    let n_sites = s.survey.sites.len();
-    let mut per_site: Vec<Vec<f64>> = vec![Vec::new(); n_sites];
-    let (mut tv, mut k) = (t_start, 0usize);
-    while tv <= t_end {
-        per_site[k % n_sites].push(tv + 0.05 * (k % 5) as f64);
-        tv += s.survey.visit_every_days;
-        k += 1;
-    }
-    let mut observations = Vec::new();
-    for (j, times) in per_site.into_iter().enumerate() {
-        let plan = SurveyPlan {
-            times_tdb_days: times,
-            site: s.survey.sites[j].name.clone(),
-            sigma_arcsec: s.survey.sigma_arcsec,
-            add_noise: true,
-            min_elongation_deg: s.survey.min_elongation_deg,
-            seed: s.survey.seed.wrapping_add(j as u64),
-        };
-        observations.extend(simulate_survey(&plan, &initial, &model, &ephemeris, &sites).map_err(CliError::failed)?);
-    }
-    observations.sort_by(|a, b| a.t_tdb_days.total_cmp(&b.t_tdb_days));
-    if observations.len() < 3 {
-        return Err(bad(format!(
-            "{name}: the survey makes only {} observations (is the body ever far enough from the Sun?)",
-            observations.len()
-        )));
-    }
+    let sim = simulate_scenario(s, name)?;
     std::fs::create_dir_all(out).map_err(|e| CliError::failed(anyhow::anyhow!("creating {}: {e}", out.display())))?;
     let mut csv = format!(
         "# Simulated by latens simulate from scenario \"{}\": {}; {} arcsec Gaussian noise, seed {}\n",
         s.name, s.survey.name, s.survey.sigma_arcsec, s.survey.seed
     );
     csv.push_str("epoch_utc,ra_deg,dec_deg,sigma_ra_arcsec,sigma_dec_arcsec,site\n");
-    for o in &observations {
+    for o in &sim.observations {
         let _ = writeln!(
             csv,
             "{},{:.9},{:.9},{},{},{}",
@@ -171,119 +64,36 @@ pub(super) fn simulate(s: &ScenarioFile, name: &str, out: &Path) -> Result<Simul
         let _ = writeln!(sites_csv, "{},{},{},{}", site.name, site.lon_deg, site.lat_deg, site.height_m);
     }
     write_atomically(&sites_path, sites_csv.as_bytes()).map_err(CliError::failed)?;
-
-    // The monthly track, and how far the known planets move the body.
-    let mut epochs = Vec::new();
-    let mut te = t_start;
-    while te <= t_end + 1e-9 {
-        epochs.push(te);
-        te += TRACK_SPACING_DAYS;
-    }
-    let search_t = search_epoch.unwrap_or_else(|| observations.last().map_or(t_end, |o| o.t_tdb_days));
-    let mut all = epochs.clone();
-    all.push(search_t);
-    let trajectory = Propagator::new(&model, &ephemeris, PropagationSettings::fast())
-        .and_then(|mut p| p.propagate(&initial, &all))
-        .map_err(CliError::failed)?;
     let mut track = String::from(
         "epoch_utc,t_tdb_days,ra_deg,dec_deg,heliocentric_distance_au,geocentric_distance_au,solar_elongation_deg,planetary_shift_arcsec\n",
     );
-    let mut largest: f64 = 0.0;
-    for (e, &t) in epochs.iter().enumerate() {
-        let r = trajectory.tracked[e].position_au;
-        let (r_two_body, _) = propagate(GM_SUN_AU3_PER_DAY2, r0, v0, t - t_ref).map_err(CliError::failed)?;
-        let earth = ephemeris.heliocentric_position_au(Body::Earth, t).map_err(CliError::failed)?;
-        let geo = r - earth;
-        let d = radec_from_vector(geo);
-        let shift = angular_separation(geo, r_two_body - earth) / RAD_PER_ARCSEC;
-        largest = largest.max(shift);
+    for p in &sim.track {
         let _ = writeln!(
             track,
             "{},{:.6},{:.7},{:.7},{:.6},{:.6},{:.3},{:.4}",
-            utc_iso_from_epoch(epoch_from_tdb_days(t)),
-            t,
-            d.ra_rad / RAD_PER_DEG,
-            d.dec_rad / RAD_PER_DEG,
-            r.norm(),
-            geo.norm(),
-            angular_separation(geo, -earth) / RAD_PER_DEG,
-            shift
+            utc_iso_from_epoch(epoch_from_tdb_days(p.t_tdb_days)),
+            p.t_tdb_days,
+            p.ra_deg,
+            p.dec_deg,
+            p.heliocentric_distance_au,
+            p.geocentric_distance_au,
+            p.solar_elongation_deg,
+            p.planetary_shift_arcsec
         );
     }
     write_atomically(&out.join("track.csv"), track.as_bytes()).map_err(CliError::failed)?;
-
-    // The truth.
-    let body_file = |name: &str, mass: Option<f64>, el: (f64, f64, f64, f64, f64, f64), r: Vec3, v: Vec3| {
-        TruthBodyFile {
-            name: name.into(),
-            mass_earth: mass,
-            frame: "elements: heliocentric ecliptic J2000 (IAU 2006), osculating, GM of the Sun; state: heliocentric ICRF (au, au/day)".into(),
-            a_au: el.0,
-            e: el.1,
-            inc_deg: el.2,
-            node_deg: el.3,
-            peri_deg: el.4,
-            mean_anomaly_deg: el.5,
-            state_icrf: [r.x, r.y, r.z, v.x, v.y, v.z],
-            at_search_epoch: None,
-        }
-    };
-    let mut perturber = s.perturber.as_ref().map(|p| {
-        body_file(
-            &p.name,
-            Some(p.mass_earth),
-            (p.a_au, p.e, p.inc_deg, p.node_deg, p.peri_deg, p.mean_anomaly_deg),
-            initial.perturbers[0].position_au,
-            initial.perturbers[0].velocity_au_per_day,
-        )
-    });
-    if let Some(p) = perturber.as_mut() {
-        let last = all.len() - 1;
-        let pr = trajectory.perturbers[0][last].position_au;
-        let pv = trajectory.perturbers[0][last].velocity_au_per_day;
-        let earth = ephemeris.heliocentric_position_au(Body::Earth, search_t).map_err(CliError::failed)?;
-        let g = latens::pipeline::geometry_at(&ephemeris, search_t).map_err(super::pipeline_error)?;
-        let (rho, _, radec) = astrometric_direction(&g, search_t, pr, pv);
-        p.at_search_epoch = Some(PlaceFile {
-            epoch_utc: utc_iso_from_epoch(epoch_from_tdb_days(search_t)),
-            ra_deg: radec.ra_rad / RAD_PER_DEG,
-            dec_deg: radec.dec_rad / RAD_PER_DEG,
-            distance_au: rho.norm(),
-            heliocentric_distance_au: pr.norm(),
-            solar_elongation_deg: angular_separation(rho, -earth) / RAD_PER_DEG,
-        });
-    }
-    let truth = TruthFile {
-        scenario: s.name.clone(),
-        description: s.description.clone(),
-        epoch_utc: utc_iso_from_epoch(epoch_from_tdb_days(t_ref)),
-        epoch_tdb_jd: J2000_JD + t_ref,
-        tracked: body_file(
-            &s.tracked.name,
-            None,
-            (t.a_au, t.e, t.inc_deg, t.node_deg, t.peri_deg, t.mean_anomaly_deg),
-            r0,
-            v0,
-        ),
-        perturber,
-        survey: s.survey.name.clone(),
-        n_observations: observations.len(),
-        sigma_arcsec: s.survey.sigma_arcsec,
-        seed: s.survey.seed,
-        known_bodies: s.model.known.clone(),
-    };
-    let json = serde_json::to_string_pretty(&truth).map_err(|e| CliError::failed(anyhow::anyhow!(e)))? + "\n";
+    let json = serde_json::to_string_pretty(&sim.truth).map_err(|e| CliError::failed(anyhow::anyhow!(e)))? + "\n";
     write_atomically(&out.join("truth.json"), json.as_bytes()).map_err(CliError::failed)?;
     Ok(Simulated {
         observations_path,
         sites_path,
-        t_ref,
-        initial,
-        model,
-        ephemeris,
-        observations,
-        truth,
-        largest_planetary_shift_arcsec: largest,
+        t_ref: sim.t_ref,
+        initial: sim.initial,
+        model: sim.model,
+        ephemeris: sim.ephemeris,
+        observations: sim.observations,
+        truth: sim.truth,
+        largest_planetary_shift_arcsec: sim.largest_planetary_shift_arcsec,
     })
 }
 

@@ -20,6 +20,7 @@ mod detection;
 mod posterior;
 mod predict;
 mod sensitivity;
+mod simulation;
 mod sky;
 mod study;
 mod table;
@@ -34,6 +35,7 @@ pub use posterior::{
 };
 pub use predict::{OrbitSample, Prediction, predict};
 pub use sensitivity::{SensitivityMap, SensitivityPlan, sensitivity};
+pub use simulation::{SimulatedScenario, TRACK_SPACING_DAYS, TrackPoint, simulate_scenario};
 pub use sky::{SUN_WARNING_DEG, SkyProducts, sky_products};
 pub use study::{EphemerisSource, Study, TrackedArc, force_model, parse_known};
 pub use table::Table;
