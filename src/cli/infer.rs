@@ -360,7 +360,7 @@ pub(super) fn execute(plan: &InferPlan) -> Result<InferSummary, CliError> {
 }
 
 fn refined_file(r: &latens::perturber::refine::Refinement, null: &ReferenceFit) -> latens::io::results::RefinedFile {
-    let gm_earth = latens::units::EARTH_MASS_SOLAR * latens::units::GM_SUN_AU3_PER_DAY2;
+    let gm_earth = latens::units::GM_EARTH_MASS_AU3_PER_DAY2;
     let p = &r.perturber;
     let el = elements_from_state(
         latens::units::GM_SUN_AU3_PER_DAY2,

@@ -74,7 +74,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     let detection = detect(&study, &settings, &Log)?;
     println!("Verdict: {}", detection.verdict_text());
     if let Some(r) = &detection.refined {
-        let gm_earth = latens::units::EARTH_MASS_SOLAR * latens::units::GM_SUN_AU3_PER_DAY2;
+        let gm_earth = latens::units::GM_EARTH_MASS_AU3_PER_DAY2;
         println!(
             "Refined on the full model: {:.2} Earth masses, {:.1} au from the Sun at the reference epoch (chi-square {:.1} for {} dof)",
             r.perturber.gm_au3_per_day2 / gm_earth,

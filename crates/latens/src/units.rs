@@ -72,6 +72,11 @@ pub const GM_SUN_AU3_PER_DAY2: f64 = gm_au3_per_day2_from_km3_per_s2(GM_SUN_KM3_
 /// Mass of the Earth in solar masses (ratio of DE440 GMs).
 pub const EARTH_MASS_SOLAR: f64 = GM_EARTH_KM3_PER_S2 / GM_SUN_KM3_PER_S2;
 
+/// GM of one Earth mass in au^3/day^2: the unit in which perturber and
+/// tracked-body masses are given (Earth masses) turned into the dynamics'
+/// units. Perturber GMs are this times the mass in Earth masses everywhere.
+pub const GM_EARTH_MASS_AU3_PER_DAY2: f64 = EARTH_MASS_SOLAR * GM_SUN_AU3_PER_DAY2;
+
 /// Radians per degree.
 pub const RAD_PER_DEG: f64 = std::f64::consts::PI / 180.0;
 /// Radians per arcsecond.

@@ -5,7 +5,6 @@
 //! physically possible (a planet does not outgas; a comet does).
 
 use crate::ephemeris::Body;
-use crate::units::{EARTH_MASS_SOLAR, GM_SUN_AU3_PER_DAY2};
 
 /// The kind of a tracked body.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -58,7 +57,7 @@ impl TrackedBody {
 
     /// The mass in Earth masses.
     pub fn mass_earth(&self) -> f64 {
-        self.gm_au3_per_day2 / (EARTH_MASS_SOLAR * GM_SUN_AU3_PER_DAY2)
+        self.gm_au3_per_day2 / crate::units::GM_EARTH_MASS_AU3_PER_DAY2
     }
 
     /// From the `--tracked-mass` and `--kind` texts. The mass is a body name
@@ -85,7 +84,7 @@ impl TrackedBody {
                      tracer of an unseen mass)"
                 ));
             }
-            (earth * EARTH_MASS_SOLAR * GM_SUN_AU3_PER_DAY2, None)
+            (earth * crate::units::GM_EARTH_MASS_AU3_PER_DAY2, None)
         };
         let kind = match kind {
             Some(k) => BodyKind::from_name(k).ok_or_else(|| {

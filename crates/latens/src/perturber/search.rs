@@ -27,7 +27,6 @@ use rayon::prelude::*;
 use super::kernel::{KeplerOrbit, LinearKernel};
 use crate::frames::icrf_from_ecliptic;
 use crate::progress::{Observer, Stage};
-use crate::units::EARTH_MASS_SOLAR;
 use crate::vec3::Vec3;
 
 /// The search's ranges and resolution.
@@ -97,7 +96,7 @@ pub struct Scored {
 
 impl Scored {
     pub fn mass_earth(&self) -> f64 {
-        self.gm_au3_per_day2 / (EARTH_MASS_SOLAR * crate::units::GM_SUN_AU3_PER_DAY2)
+        self.gm_au3_per_day2 / crate::units::GM_EARTH_MASS_AU3_PER_DAY2
     }
 }
 
@@ -195,7 +194,7 @@ pub fn score(kernel: &LinearKernel, h: &Hypothesis, gm_max: f64, min_sep: f64, s
 /// Reports to `observer` as [`Stage::Search`](crate::progress::Stage)
 /// (hypotheses done); it runs to the end whatever the observer asks.
 pub fn grid_search(kernel: &LinearKernel, settings: &SearchSettings, observer: &dyn Observer) -> SearchResult {
-    let gm_earth = EARTH_MASS_SOLAR * crate::units::GM_SUN_AU3_PER_DAY2;
+    let gm_earth = crate::units::GM_EARTH_MASS_AU3_PER_DAY2;
     let gm_max = settings.mass_earth.1 * gm_earth;
     let hyps = hypotheses(settings, kernel.central_gm());
     let n_res = kernel.n_residuals();

@@ -24,7 +24,6 @@ use rand_distr::{Distribution, StandardNormal};
 
 use super::kernel::LinearKernel;
 use crate::frames::icrf_from_ecliptic;
-use crate::units::{EARTH_MASS_SOLAR, GM_SUN_AU3_PER_DAY2};
 use crate::vec3::Vec3;
 
 /// The map's grid and draws.
@@ -173,7 +172,7 @@ pub fn compute_cells(
     observer: &dyn crate::progress::Observer,
 ) -> Vec<Cell> {
     use rayon::prelude::*;
-    let gm_earth = EARTH_MASS_SOLAR * GM_SUN_AU3_PER_DAY2;
+    let gm_earth = crate::units::GM_EARTH_MASS_AU3_PER_DAY2;
     let mut distances: Vec<usize> = cells.iter().map(|c| c.1).collect();
     distances.sort();
     distances.dedup();

@@ -511,7 +511,7 @@ fn search(
     // refined solution, search again on it, and refine again when another
     // place scores better there; every basin of the final search is kept
     // for the posterior.
-    let gm_earth = crate::units::EARTH_MASS_SOLAR * crate::units::GM_SUN_AU3_PER_DAY2;
+    let gm_earth = crate::units::GM_EARTH_MASS_AU3_PER_DAY2;
     let gm_max = settings.mass_earth.1 * gm_earth;
     let quiet = SearchSettings { n_null: 0, ..settings.clone() };
     for round in 1..=MAX_RECENTRE_ROUNDS {

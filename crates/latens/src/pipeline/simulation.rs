@@ -14,7 +14,7 @@ use crate::io::results::{PlaceFile, TruthBodyFile, TruthFile};
 use crate::io::scenario::ScenarioFile;
 use crate::simulate::{SurveyPlan, simulate_survey};
 use crate::time::{epoch_from_tdb_days, parse_epoch, tdb_days_from_j2000, utc_iso_from_epoch};
-use crate::units::{EARTH_MASS_SOLAR, GM_SUN_AU3_PER_DAY2, J2000_JD, RAD_PER_ARCSEC, RAD_PER_DEG};
+use crate::units::{GM_SUN_AU3_PER_DAY2, J2000_JD, RAD_PER_ARCSEC, RAD_PER_DEG};
 use crate::vec3::Vec3;
 
 /// Spacing of the track's positions, days (a month).
@@ -105,7 +105,7 @@ pub fn simulate_scenario(s: &ScenarioFile, name: &str) -> Result<SimulatedScenar
                 (p.a_au, p.e, p.inc_deg, p.node_deg, p.peri_deg, p.mean_anomaly_deg),
             )?;
             vec![Perturber {
-                gm_au3_per_day2: p.mass_earth * EARTH_MASS_SOLAR * GM_SUN_AU3_PER_DAY2,
+                gm_au3_per_day2: p.mass_earth * crate::units::GM_EARTH_MASS_AU3_PER_DAY2,
                 position_au: r,
                 velocity_au_per_day: v,
             }]

@@ -34,7 +34,7 @@ use rand_distr::{Distribution, StandardNormal};
 
 use super::sampler::Target;
 use crate::perturber::{KeplerOrbit, LinearKernel, Scored};
-use crate::units::{EARTH_MASS_SOLAR, GM_SUN_AU3_PER_DAY2, JULIAN_YEAR_DAYS};
+use crate::units::JULIAN_YEAR_DAYS;
 use crate::vec3::Vec3;
 
 /// Dimension of the perturber's parameter vector.
@@ -42,7 +42,7 @@ pub const DIM: usize = 7;
 
 /// GM of one Earth mass, au^3/day^2.
 pub fn gm_earth() -> f64 {
-    EARTH_MASS_SOLAR * GM_SUN_AU3_PER_DAY2
+    crate::units::GM_EARTH_MASS_AU3_PER_DAY2
 }
 
 /// The prior's ranges.
@@ -297,6 +297,7 @@ impl Target for PerturberPosterior<'_> {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::units::GM_SUN_AU3_PER_DAY2;
     use rand::SeedableRng;
 
     #[test]
