@@ -10,11 +10,10 @@ use anyhow::Context;
 use super::CliError;
 use super::args::InferArgs;
 use super::residuals::{ResidualProducts, orbit_file};
-use latens::astrometry::{ObservingGeometry, astrometric_direction, sun_barycentric_velocity};
+use latens::astrometry::ObservingGeometry;
 use latens::dynamics::TrackedBody;
-use latens::dynamics::kepler::elements_from_state;
+use latens::dynamics::kepler::{OUTPUT_FRAME, OutputElements};
 use latens::ephemeris::{Body, Ephemeris};
-use latens::frames::{angular_separation, ecliptic_from_icrf};
 use latens::io::observations::Observation;
 use latens::io::results::{
     DetectionFile, InferSettingsFile, InferSummary, NullModelFile, PerturberFile, SearchStatsFile,
@@ -28,7 +27,6 @@ use latens::pipeline::{
 use latens::reference::ReferenceFit;
 use latens::time::{epoch_from_tdb_days, parse_epoch, tdb_days_from_j2000, utc_iso_from_epoch};
 use latens::units::{J2000_JD, RAD_PER_DEG};
-use latens::vec3::Vec3;
 use latens_charts::residual_chart::ResidualChart;
 
 /// Solar elongations below this get a safety warning, degrees.
@@ -362,27 +360,20 @@ pub(super) fn execute(plan: &InferPlan) -> Result<InferSummary, CliError> {
 fn refined_file(r: &latens::perturber::refine::Refinement, null: &ReferenceFit) -> latens::io::results::RefinedFile {
     let gm_earth = latens::units::GM_EARTH_MASS_AU3_PER_DAY2;
     let p = &r.perturber;
-    let el = elements_from_state(
-        latens::units::GM_SUN_AU3_PER_DAY2,
-        ecliptic_from_icrf(p.position_au),
-        ecliptic_from_icrf(p.velocity_au_per_day),
-    )
-    .ok();
-    let deg = |x: f64| x / RAD_PER_DEG;
+    let el = OutputElements::from_icrf_state(p.position_au, p.velocity_au_per_day).unwrap_or(OutputElements::nan());
     latens::io::results::RefinedFile {
         chi2: r.chi2,
         delta_chi2: null.chi2 - r.chi2,
         mass_earth: p.gm_au3_per_day2 / gm_earth,
         mass_sigma_earth: r.gm_sigma / gm_earth,
-        frame: "elements: heliocentric ecliptic J2000 (IAU 2006), osculating, GM of the Sun; state: heliocentric ICRF"
-            .into(),
+        frame: OUTPUT_FRAME.into(),
         epoch_tdb_jd: J2000_JD + null.epoch_tdb_days,
-        a_au: el.map_or(f64::NAN, |e| e.semi_major_axis_au()),
-        e: el.map_or(f64::NAN, |e| e.eccentricity),
-        inc_deg: el.map_or(f64::NAN, |e| deg(e.inclination_rad)),
-        node_deg: el.map_or(f64::NAN, |e| deg(e.node_rad)),
-        peri_deg: el.map_or(f64::NAN, |e| deg(e.periapsis_arg_rad)),
-        mean_anomaly_deg: el.map_or(f64::NAN, |e| deg(e.mean_anomaly_rad())),
+        a_au: el.a_au,
+        e: el.e,
+        inc_deg: el.inc_deg,
+        node_deg: el.node_deg,
+        peri_deg: el.peri_deg,
+        mean_anomaly_deg: el.mean_anomaly_deg,
         state_icrf: [
             p.position_au.x,
             p.position_au.y,
@@ -417,23 +408,14 @@ fn describe(
 ) -> Result<PerturberFile, CliError> {
     let h = &s.hypothesis;
     let t0 = null.epoch_tdb_days;
-    let gm_sun = kernel.central_gm();
-    let el = elements_from_state(gm_sun, ecliptic_from_icrf(h.position_au), ecliptic_from_icrf(h.velocity_au_per_day))
-        .map_err(CliError::failed)?;
-    // Geocentric astrometric place at the search epoch.
-    let orbit = KeplerOrbit::from_state(gm_sun, h.position_au, h.velocity_au_per_day, t0)
+    let el = OutputElements::from_icrf_state(h.position_au, h.velocity_au_per_day).map_err(CliError::failed)?;
+    // Geocentric astrometric place at the search epoch, moving about the
+    // model's central mass.
+    let orbit = KeplerOrbit::from_state(kernel.central_gm(), h.position_au, h.velocity_au_per_day, t0)
         .ok_or_else(|| CliError::failed(anyhow::anyhow!("a basin's orbit is unbound")))?;
-    let mut guess = f64::NAN;
-    let r = orbit.position(search_epoch, &mut guess);
-    let dt = 1.0;
-    let v =
-        (orbit.position(search_epoch + dt, &mut guess) - orbit.position(search_epoch - dt, &mut guess)) / (2.0 * dt);
-    let earth = wide.heliocentric_position_au(Body::Earth, search_epoch).map_err(CliError::failed)?;
-    let vsun = sun_barycentric_velocity(wide, search_epoch).unwrap_or(Vec3::ZERO);
-    let g =
-        ObservingGeometry { t_tdb_days: search_epoch, observer_au: earth, sun_barycentric_velocity_au_per_day: vsun };
-    let (rho, _, radec) = astrometric_direction(&g, search_epoch, r, v);
-    let elongation = angular_separation(rho, -earth) / RAD_PER_DEG;
+    let search = latens::pipeline::SearchGeometry::new(wide, search_epoch)?;
+    let (direction, distance, heliocentric, elongation) = search.place_at(&orbit, search_epoch, &search.geometry);
+    let radec = latens::frames::radec_from_vector(direction);
 
     // Linear against nonlinear signal, both with the orbit correction removed.
     let (err_arcsec, err_fraction) = linearisation_error(s, null, kernel, observations, geometry, model, ephemeris)
@@ -442,15 +424,14 @@ fn describe(
         chi2: null.chi2 - s.delta_chi2,
         delta_chi2: s.delta_chi2,
         mass_earth: s.mass_earth(),
-        frame: "elements: heliocentric ecliptic J2000 (IAU 2006), osculating, GM of the Sun; state: heliocentric ICRF"
-            .into(),
+        frame: OUTPUT_FRAME.into(),
         epoch_tdb_jd: J2000_JD + t0,
-        a_au: el.semi_major_axis_au(),
-        e: el.eccentricity,
-        inc_deg: el.inclination_rad / RAD_PER_DEG,
-        node_deg: el.node_rad / RAD_PER_DEG,
-        peri_deg: el.periapsis_arg_rad / RAD_PER_DEG,
-        mean_anomaly_deg: el.mean_anomaly_rad() / RAD_PER_DEG,
+        a_au: el.a_au,
+        e: el.e,
+        inc_deg: el.inc_deg,
+        node_deg: el.node_deg,
+        peri_deg: el.peri_deg,
+        mean_anomaly_deg: el.mean_anomaly_deg,
         state_icrf: [
             h.position_au.x,
             h.position_au.y,
@@ -461,8 +442,8 @@ fn describe(
         ],
         ra_deg: radec.ra_rad / RAD_PER_DEG,
         dec_deg: radec.dec_rad / RAD_PER_DEG,
-        distance_au: rho.norm(),
-        heliocentric_distance_au: r.norm(),
+        distance_au: distance,
+        heliocentric_distance_au: heliocentric,
         solar_elongation_deg: elongation,
         closest_approach_to_tracked_body_au: s.closest_approach_au,
         linearisation_error_arcsec: err_arcsec,

@@ -142,23 +142,25 @@ pub(crate) fn orbit_file(fit: &ReferenceFit) -> OrbitFile {
     let cov = &fit.covariance;
     let deg = |x: f64| x / RAD_PER_DEG;
     OrbitFile {
-                frame: "elements: heliocentric ecliptic J2000 (IAU 2006 mean ecliptic and equinox), osculating, GM of the Sun; state: heliocentric ICRF".into(),
-                epoch_tdb_jd: J2000_JD + fit.epoch_tdb_days,
-                epoch_utc: utc_iso_from_epoch(epoch_from_tdb_days(fit.epoch_tdb_days)),
-                a_au: el.semi_major_axis_au(),
-                e: el.eccentricity,
-                inc_deg: deg(el.inclination_rad),
-                node_deg: deg(el.node_rad),
-                peri_deg: deg(el.periapsis_arg_rad),
-                mean_anomaly_deg: deg(el.mean_anomaly_rad()),
-                sigma_a_au: fit.element_sigmas[0],
-                sigma_e: fit.element_sigmas[1],
-                sigma_inc_deg: deg(fit.element_sigmas[2]),
-                sigma_node_deg: deg(fit.element_sigmas[3]),
-                sigma_peri_deg: deg(fit.element_sigmas[4]),
-                sigma_mean_anomaly_deg: deg(fit.element_sigmas[5]),
-                state_icrf: fit.state,
-                covariance: (0..6).map(|i| [cov[6 * i], cov[6 * i + 1], cov[6 * i + 2], cov[6 * i + 3], cov[6 * i + 4], cov[6 * i + 5]]).collect(),
+        frame: latens::dynamics::kepler::OUTPUT_FRAME.into(),
+        epoch_tdb_jd: J2000_JD + fit.epoch_tdb_days,
+        epoch_utc: utc_iso_from_epoch(epoch_from_tdb_days(fit.epoch_tdb_days)),
+        a_au: el.semi_major_axis_au(),
+        e: el.eccentricity,
+        inc_deg: deg(el.inclination_rad),
+        node_deg: deg(el.node_rad),
+        peri_deg: deg(el.periapsis_arg_rad),
+        mean_anomaly_deg: deg(el.mean_anomaly_rad()),
+        sigma_a_au: fit.element_sigmas[0],
+        sigma_e: fit.element_sigmas[1],
+        sigma_inc_deg: deg(fit.element_sigmas[2]),
+        sigma_node_deg: deg(fit.element_sigmas[3]),
+        sigma_peri_deg: deg(fit.element_sigmas[4]),
+        sigma_mean_anomaly_deg: deg(fit.element_sigmas[5]),
+        state_icrf: fit.state,
+        covariance: (0..6)
+            .map(|i| [cov[6 * i], cov[6 * i + 1], cov[6 * i + 2], cov[6 * i + 3], cov[6 * i + 4], cov[6 * i + 5]])
+            .collect(),
     }
 }
 

@@ -76,8 +76,7 @@ pub fn simulate_survey(
         initial.tracked_velocity_au_per_day.z,
     ];
     // Twice, so that the light-time epochs have converged.
-    truth.predict(&state, false).map_err(problem)?;
-    let predicted = truth.predict(&state, false).map_err(problem)?;
+    let predicted = truth.predict_settled(&state).map_err(problem)?;
     let mut rng = rand::rngs::StdRng::seed_from_u64(plan.seed);
     let noise =
         Normal::new(0.0, plan.sigma_arcsec.max(0.0)).map_err(|e| ReferenceError::NoPreliminaryOrbit(e.to_string()))?;

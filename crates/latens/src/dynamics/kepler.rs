@@ -312,6 +312,63 @@ pub fn state_from_elements(gm_au3_per_day2: f64, el: &Elements) -> Result<(Vec3,
     Ok((pvec * pos_pf.x + qvec * pos_pf.y, pvec * vel_pf.x + qvec * vel_pf.y))
 }
 
+/// Elements as every output file states them: osculating heliocentric
+/// elements in the ecliptic and equinox J2000 (IAU 2006), angles in
+/// degrees, computed with the GM of the Sun alone, whatever a force model
+/// folds into the central body (the one rule, so files from different
+/// models compare; the dynamics use the model's own central GM).
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct OutputElements {
+    pub a_au: f64,
+    pub e: f64,
+    pub inc_deg: f64,
+    pub node_deg: f64,
+    pub peri_deg: f64,
+    pub mean_anomaly_deg: f64,
+}
+
+/// The frame statement written beside [`OutputElements`] and the states in
+/// every output file.
+pub const OUTPUT_FRAME: &str = "elements: heliocentric ecliptic J2000 (IAU 2006 mean ecliptic and equinox), osculating, \
+     GM of the Sun; state: heliocentric ICRF (au, au/day)";
+
+impl OutputElements {
+    /// From a heliocentric ICRF state.
+    pub fn from_icrf_state(position_au: Vec3, velocity_au_per_day: Vec3) -> Result<OutputElements, KeplerError> {
+        let el = elements_from_state(
+            crate::units::GM_SUN_AU3_PER_DAY2,
+            crate::frames::ecliptic_from_icrf(position_au),
+            crate::frames::ecliptic_from_icrf(velocity_au_per_day),
+        )?;
+        Ok(OutputElements::from_elements(&el))
+    }
+
+    /// From elements already computed with the GM of the Sun.
+    pub fn from_elements(el: &Elements) -> OutputElements {
+        let deg = |x: f64| x / crate::units::RAD_PER_DEG;
+        OutputElements {
+            a_au: el.semi_major_axis_au(),
+            e: el.eccentricity,
+            inc_deg: deg(el.inclination_rad),
+            node_deg: deg(el.node_rad),
+            peri_deg: deg(el.periapsis_arg_rad),
+            mean_anomaly_deg: deg(el.mean_anomaly_rad()),
+        }
+    }
+
+    /// Every element NaN (for an orbit that has none, e.g. unbound).
+    pub fn nan() -> OutputElements {
+        OutputElements {
+            a_au: f64::NAN,
+            e: f64::NAN,
+            inc_deg: f64::NAN,
+            node_deg: f64::NAN,
+            peri_deg: f64::NAN,
+            mean_anomaly_deg: f64::NAN,
+        }
+    }
+}
+
 /// Elements from a position (au) and velocity (au/day) about a central body.
 /// See [`Elements`] for the angles chosen in the circular and in-plane cases.
 pub fn elements_from_state(

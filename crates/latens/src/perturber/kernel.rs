@@ -173,8 +173,7 @@ impl LinearKernel {
         let t0 = fit.epoch_tdb_days;
         // Light-time epochs and predicted directions of the reference orbit.
         let mut orbit = OrbitModel::new(observations, geometry, t0, model, ephemeris)?;
-        orbit.predict(&fit.state, false)?;
-        let pred = orbit.predict(&fit.state, false)?;
+        let pred = orbit.predict_settled(&fit.state)?;
         let emission = orbit.emission_epochs().to_vec();
 
         let lo = emission.iter().copied().fold(t0, f64::min) - 1.0;

@@ -273,8 +273,7 @@ pub fn linearisation_error(
     let n = observations.len();
     let mut base = OrbitModel::new(observations, geometry.to_vec(), null.epoch_tdb_days, model, ephemeris)
         .map_err(PipelineError::failed("linearisation check"))?;
-    base.predict(&null.state, false).map_err(PipelineError::failed("linearisation check"))?;
-    let p0 = base.predict(&null.state, false).map_err(PipelineError::failed("linearisation check"))?;
+    let p0 = base.predict_settled(&null.state).map_err(PipelineError::failed("linearisation check"))?;
     let mut with = OrbitModel::new(observations, geometry.to_vec(), null.epoch_tdb_days, model, ephemeris)
         .map_err(PipelineError::failed("linearisation check"))?;
     with.perturbers = vec![Perturber {
@@ -282,8 +281,7 @@ pub fn linearisation_error(
         position_au: s.hypothesis.position_au,
         velocity_au_per_day: s.hypothesis.velocity_au_per_day,
     }];
-    with.predict(&null.state, false).map_err(PipelineError::failed("linearisation check"))?;
-    let p1 = with.predict(&null.state, false).map_err(PipelineError::failed("linearisation check"))?;
+    let p1 = with.predict_settled(&null.state).map_err(PipelineError::failed("linearisation check"))?;
     let mut nonlinear = vec![0.0; 2 * n];
     for k in 0..n {
         let w = whiten(&observations[k], crate::reference::residual_arcsec_between(&p1[k].radec, &p0[k].radec));
@@ -424,8 +422,7 @@ impl Searched {
                 )
                 .map_err(PipelineError::failed("outlier check"))?;
                 m.perturbers = vec![r.perturber];
-                m.predict(&r.tracked_state, false).map_err(PipelineError::failed("outlier check"))?;
-                let pred = m.predict(&r.tracked_state, false).map_err(PipelineError::failed("outlier check"))?;
+                let pred = m.predict_settled(&r.tracked_state).map_err(PipelineError::failed("outlier check"))?;
                 crate::reference::whitened_residuals(&self.observations, &pred, &vec![true; n], &mut w);
             }
             _ => {

@@ -10,9 +10,9 @@ use std::time::Instant;
 
 use super::{Detection, PipelineError, Study};
 use crate::astrometry::{ObservingGeometry, astrometric_direction, sun_barycentric_velocity};
-use crate::dynamics::kepler::elements_from_state;
+use crate::dynamics::kepler::OutputElements;
 use crate::ephemeris::{Body, Ephemeris};
-use crate::frames::{angular_separation, ecliptic_from_icrf};
+use crate::frames::angular_separation;
 use crate::io::results::{
     DiagnosticsFile, EstimateFile, EvidenceFile, ExplanationFile, ImpostorFile, IntervalFile, PosteriorFile, PriorFile,
 };
@@ -273,12 +273,7 @@ impl SearchGeometry {
 
     pub fn derive(&self, s: &PerturberSample, log_likelihood: f64, t0: f64, gm_sun: f64) -> Option<DerivedSample> {
         let orbit = KeplerOrbit::from_state(gm_sun, s.position_au, s.velocity_au_per_day, t0)?;
-        let el = elements_from_state(
-            crate::units::GM_SUN_AU3_PER_DAY2,
-            ecliptic_from_icrf(s.position_au),
-            ecliptic_from_icrf(s.velocity_au_per_day),
-        )
-        .ok()?;
+        let el = OutputElements::from_icrf_state(s.position_au, s.velocity_au_per_day).ok()?;
         let (dir, dist, helio, elong) = self.place_at(&orbit, self.epoch, &self.geometry);
         let place = crate::frames::radec_from_vector(dir);
         let (ra, dec) = (place.ra_rad, place.dec_rad);
@@ -286,12 +281,12 @@ impl SearchGeometry {
         Some(DerivedSample {
             sample: *s,
             log_likelihood,
-            a_au: el.semi_major_axis_au(),
-            e: el.eccentricity,
-            inc_deg: deg(el.inclination_rad),
-            node_deg: deg(el.node_rad),
-            peri_deg: deg(el.periapsis_arg_rad),
-            mean_anomaly_deg: deg(el.mean_anomaly_rad()),
+            a_au: el.a_au,
+            e: el.e,
+            inc_deg: el.inc_deg,
+            node_deg: el.node_deg,
+            peri_deg: el.peri_deg,
+            mean_anomaly_deg: el.mean_anomaly_deg,
             ra_deg: deg(ra),
             dec_deg: deg(dec),
             distance_au: dist,

@@ -127,8 +127,7 @@ impl Study {
         let mut orbit =
             crate::reference::OrbitModel::new(&arc.observations, geometry, epoch_tdb_days, &arc.model, ephemeris)
                 .map_err(PipelineError::failed("orbit model"))?;
-        orbit.predict(state, false).map_err(PipelineError::failed("orbit model"))?;
-        let predicted = orbit.predict(state, false).map_err(PipelineError::failed("orbit model"))?;
+        let predicted = orbit.predict_settled(state).map_err(PipelineError::failed("orbit model"))?;
         drop(orbit);
         for (o, p) in arc.observations.iter_mut().zip(&predicted) {
             o.ra_rad = p.radec.ra_rad;

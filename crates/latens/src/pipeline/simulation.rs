@@ -195,11 +195,11 @@ pub fn simulate_scenario(s: &ScenarioFile, name: &str) -> Result<SimulatedScenar
     }
 
     // The truth.
-    let body_file = |name: &str, mass: Option<f64>, el: (f64, f64, f64, f64, f64, f64), r: Vec3, v: Vec3| {
-        TruthBodyFile {
+    let body_file =
+        |name: &str, mass: Option<f64>, el: (f64, f64, f64, f64, f64, f64), r: Vec3, v: Vec3| TruthBodyFile {
             name: name.into(),
             mass_earth: mass,
-            frame: "elements: heliocentric ecliptic J2000 (IAU 2006), osculating, GM of the Sun; state: heliocentric ICRF (au, au/day)".into(),
+            frame: crate::dynamics::kepler::OUTPUT_FRAME.into(),
             a_au: el.0,
             e: el.1,
             inc_deg: el.2,
@@ -208,8 +208,7 @@ pub fn simulate_scenario(s: &ScenarioFile, name: &str) -> Result<SimulatedScenar
             mean_anomaly_deg: el.5,
             state_icrf: [r.x, r.y, r.z, v.x, v.y, v.z],
             at_search_epoch: None,
-        }
-    };
+        };
     let mut perturber = s.perturber.as_ref().map(|p| {
         body_file(
             &p.name,

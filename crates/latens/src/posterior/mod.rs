@@ -62,8 +62,7 @@ impl<'a> NonlinearLikelihood<'a> {
             OrbitModel::with_settings(observations, geometry.to_vec(), null.epoch_tdb_days, model, ephemeris, settings)
         };
         let mut first = make()?;
-        first.predict(&null.state, false)?;
-        let base = first.predict(&null.state, false)?;
+        let base = first.predict_settled(&null.state)?;
         let emission = first.emission_epochs().to_vec();
         let mut models = vec![Mutex::new(first)];
         for _ in 1..rayon::current_num_threads() {

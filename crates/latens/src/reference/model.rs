@@ -88,6 +88,14 @@ impl<'a> OrbitModel<'a> {
         self.predictions = self.predictions.max(1);
     }
 
+    /// Predictions for a heliocentric ICRF state with the light time
+    /// settled: the first call fixes the emission epochs, the second
+    /// predicts with them (one pass moves them by far less than the noise).
+    pub fn predict_settled(&mut self, state: &[f64]) -> Result<Vec<Prediction>, PropagationError> {
+        self.predict(state, false)?;
+        self.predict(state, false)
+    }
+
     /// Predictions for a heliocentric ICRF state (x, y, z, vx, vy, vz) at the
     /// reference epoch.
     pub fn predict(&mut self, state: &[f64], partials: bool) -> Result<Vec<Prediction>, PropagationError> {
