@@ -29,19 +29,6 @@ use latens::time::{epoch_from_tdb_days, parse_epoch, tdb_days_from_j2000, utc_is
 use latens::units::{J2000_JD, RAD_PER_DEG};
 use latens_charts::residual_chart::ResidualChart;
 
-/// Solar elongations below this get a safety warning, degrees.
-pub(super) const SUN_WARNING_DEG: f64 = latens::pipeline::SUN_WARNING_DEG;
-
-fn parse_range(text: &str, what: &str) -> Result<(f64, f64), CliError> {
-    let bad = || CliError::bad_input(anyhow::anyhow!("{what}: expected MIN:MAX with 0 < MIN < MAX, got `{text}`"));
-    let (a, b) = text.split_once(':').ok_or_else(bad)?;
-    let (a, b): (f64, f64) = (a.trim().parse().map_err(|_| bad())?, b.trim().parse().map_err(|_| bad())?);
-    if !(a.is_finite() && b.is_finite() && a > 0.0 && b > a) {
-        return Err(bad());
-    }
-    Ok((a, b))
-}
-
 /// Everything `infer` was asked to do, typed and checked before any work.
 pub(super) struct InferPlan {
     pub obs: PathBuf,
@@ -64,8 +51,8 @@ impl InferPlan {
     pub fn from_args(args: &InferArgs) -> Result<InferPlan, CliError> {
         // A resumed run writes where it was interrupted.
         let out = args.resume.clone().unwrap_or_else(|| args.out.clone());
-        let mass = parse_range(&args.mass_earth, "--mass-earth")?;
-        let distance = parse_range(&args.distance_au, "--distance-au")?;
+        let mass = super::parse_range(&args.mass_earth, "--mass-earth")?;
+        let distance = super::parse_range(&args.distance_au, "--distance-au")?;
         // The false-alarm probability cannot go below 1/(nulls + 1): enough
         // nulls are needed for it to reach the detection threshold at all.
         let min_nulls = (1.0 / DETECTION_FAP).ceil() as usize;
@@ -164,7 +151,7 @@ pub(super) fn execute(plan: &InferPlan) -> Result<InferSummary, CliError> {
         .collect::<Result<_, _>>()?;
     for (k, d) in described.iter().enumerate() {
         // Only a detection sends anyone to the telescope.
-        if d.solar_elongation_deg < SUN_WARNING_DEG && fap < DETECTION_FAP {
+        if d.solar_elongation_deg < latens::pipeline::SUN_WARNING_DEG && fap < DETECTION_FAP {
             warnings.push(format!(
                 "basin {} lies {:.0} deg from the Sun at the search epoch: pointing a telescope near the Sun can destroy eyes \
                  and instruments; observe it only with proper solar safeguards, after sunset, or wait for it to move away",
@@ -519,10 +506,7 @@ fn write_outputs(
     };
     let svg = ResidualChart::draw_pair_svg(&left, &right).map_err(|e| anyhow::anyhow!("drawing the charts: {e}"))?;
     std::fs::create_dir_all(out).with_context(|| format!("creating {}", out.display()))?;
-    let png = out.join("residuals_null_vs_best.png");
-    let tmp = out.join(format!(".residuals_null_vs_best.{}.tmp.png", std::process::id()));
-    ResidualChart::draw_pair_png(&left, &right, &tmp).map_err(|e| anyhow::anyhow!("drawing {}: {e}", png.display()))?;
-    std::fs::rename(&tmp, &png).with_context(|| format!("writing {}", png.display()))?;
+    super::write_png(&out.join("residuals_null_vs_best.png"), |tmp| ResidualChart::draw_pair_png(&left, &right, tmp))?;
     write_atomically(&out.join("residuals_null_vs_best.svg"), svg.as_bytes())?;
     write_atomically(&out.join("null_fit.json"), null_products.fit_json.as_bytes())?;
     write_atomically(&out.join("summary.json"), json.as_bytes())?;

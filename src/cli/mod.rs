@@ -91,6 +91,34 @@ fn is_broken_pipe(error: &anyhow::Error) -> bool {
         .any(|e| e.downcast_ref::<std::io::Error>().is_some_and(|io| io.kind() == std::io::ErrorKind::BrokenPipe))
 }
 
+/// A range `MIN:MAX` of positive numbers with MIN < MAX (`what` names the
+/// option in the message).
+pub(crate) fn parse_range(text: &str, what: &str) -> Result<(f64, f64), CliError> {
+    let bad = || CliError::bad_input(anyhow::anyhow!("{what}: expected MIN:MAX with 0 < MIN < MAX, got `{text}`"));
+    let (a, b) = text.split_once(':').ok_or_else(bad)?;
+    let (a, b): (f64, f64) = (a.trim().parse().map_err(|_| bad())?, b.trim().parse().map_err(|_| bad())?);
+    if !(a.is_finite() && b.is_finite() && a > 0.0 && b > a) {
+        return Err(bad());
+    }
+    Ok((a, b))
+}
+
+/// Writes a PNG chart without leaving half a file: plotters writes PNG
+/// files itself, so `draw` draws to a temporary name beside `path`, which is
+/// then renamed (and removed if drawing fails).
+pub(crate) fn write_png(
+    path: &std::path::Path,
+    draw: impl FnOnce(&std::path::Path) -> Result<(), String>,
+) -> anyhow::Result<()> {
+    let stem = path.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_default();
+    let tmp = path.with_file_name(format!(".{stem}.{}.tmp.png", std::process::id()));
+    if let Err(e) = draw(&tmp) {
+        let _ = std::fs::remove_file(&tmp);
+        anyhow::bail!("drawing {}: {e}", path.display());
+    }
+    std::fs::rename(&tmp, path).map_err(|e| anyhow::anyhow!("writing {}: {e}", path.display()))
+}
+
 /// A pipeline stage's error as the command line reports it: bad input
 /// exits 2, a failed computation 1.
 pub(crate) fn pipeline_error(e: latens::pipeline::PipelineError) -> CliError {

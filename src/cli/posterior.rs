@@ -198,9 +198,7 @@ where
     S: FnOnce(&latens_charts::SvgArea<'_>) -> Result<(), String>,
 {
     let fail = |e: String| CliError::failed(anyhow::anyhow!("drawing {stem}: {e}"));
-    let tmp = out.join(format!(".{stem}.{}.tmp.png", std::process::id()));
-    render_png(&tmp, size, png).map_err(fail)?;
-    std::fs::rename(&tmp, out.join(format!("{stem}.png"))).map_err(|e| fail(e.to_string()))?;
+    super::write_png(&out.join(format!("{stem}.png")), |tmp| render_png(tmp, size, png)).map_err(CliError::failed)?;
     let text = render_svg(size, svg).map_err(fail)?;
     write_atomically(&out.join(format!("{stem}.svg")), text.as_bytes()).map_err(CliError::failed)?;
     Ok(())

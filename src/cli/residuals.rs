@@ -328,11 +328,7 @@ impl ResidualProducts {
         };
         let svg = chart.draw_svg().map_err(|e| anyhow::anyhow!("drawing the residual chart: {e}"))?;
         std::fs::create_dir_all(out).with_context(|| format!("creating {}", out.display()))?;
-        // plotters writes PNG files itself: draw to a temporary name, then rename.
-        let png = out.join("residuals.png");
-        let tmp = out.join(format!(".residuals.{}.tmp.png", std::process::id()));
-        chart.draw_png(&tmp).map_err(|e| anyhow::anyhow!("drawing {}: {e}", png.display()))?;
-        std::fs::rename(&tmp, &png).with_context(|| format!("writing {}", png.display()))?;
+        super::write_png(&out.join("residuals.png"), |tmp| chart.draw_png(tmp))?;
         write_atomically(&out.join("residuals.svg"), svg.as_bytes())?;
         write_atomically(&out.join("residuals.csv"), self.residuals_csv.as_bytes())?;
         write_atomically(&out.join("fit.json"), self.fit_json.as_bytes())?;

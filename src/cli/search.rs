@@ -10,14 +10,11 @@ use super::posterior::save_chart;
 use latens::frames::{angular_separation, icrf_from_ecliptic};
 use latens::io::results::{ModeFile, SkyFile};
 use latens::io::write_atomically;
-use latens::pipeline::{Detection, PosteriorRun, SkyProducts, Study, sky_products};
+use latens::pipeline::{Detection, PosteriorRun, SUN_WARNING_DEG, SkyProducts, Study, sky_products};
 use latens::skymap::observe::icrs_from_galactic_deg;
 use latens::skymap::{self, DEG2_PER_SR, SkyMap};
 use latens::vec3::Vec3;
 use latens_charts::search_chart::{SearchChart, SkyCell, ZoomPanel, from_tangent, tangent};
-
-/// Solar elongation below which a field gets the safety warning, degrees.
-const SUN_DEG: f64 = latens::pipeline::SUN_WARNING_DEG;
 
 pub(super) struct Outcome {
     pub sky: SkyFile,
@@ -182,7 +179,7 @@ fn build_chart(
     let order = 5u8;
     for ipix in 0..cdshealpix::nested::n_hash(order) {
         let c = skymap::unit_from_lon_lat(cdshealpix::nested::center(order, ipix));
-        if angular_separation(c, sun).to_degrees() < SUN_DEG {
+        if angular_separation(c, sun).to_degrees() < SUN_WARNING_DEG {
             let v = cdshealpix::nested::vertices(order, ipix);
             let corners = v.iter().map(|&p| skymap::unit_from_lon_lat(p)).collect();
             cells.push(SkyCell { corners, centre: c, layer: 2 });

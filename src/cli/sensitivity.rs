@@ -30,8 +30,8 @@ pub(super) fn run(args: &SensitivityArgs) -> Result<(), CliError> {
     let Some(input) = &args.input else {
         return Err(CliError::bad_input(anyhow::anyhow!("give --obs FILE (or use `latens sensitivity merge DIR...`)")));
     };
-    let mass: (f64, f64) = parse_pair(&args.mass_earth, ':', "--mass-earth")?;
-    let distance: (f64, f64) = parse_pair(&args.distance_au, ':', "--distance-au")?;
+    let mass = super::parse_range(&args.mass_earth, "--mass-earth")?;
+    let distance = super::parse_range(&args.distance_au, "--distance-au")?;
     let grid: (usize, usize) = parse_pair(&args.grid, ':', "--grid")?;
     let shard = match &args.shard {
         Some(text) => Some(parse_pair::<usize>(text, '/', "--shard")?),
@@ -146,10 +146,7 @@ fn write_products(out: &Path, csv: &str, cells: &[Cell], threshold: f64) -> anyh
     };
     let svg = chart.draw_svg().map_err(|e| anyhow::anyhow!("drawing the map: {e}"))?;
     std::fs::create_dir_all(out).with_context(|| format!("creating {}", out.display()))?;
-    let png = out.join("sensitivity.png");
-    let tmp = out.join(format!(".sensitivity.{}.tmp.png", std::process::id()));
-    chart.draw_png(&tmp).map_err(|e| anyhow::anyhow!("drawing {}: {e}", png.display()))?;
-    std::fs::rename(&tmp, &png).with_context(|| format!("writing {}", png.display()))?;
+    super::write_png(&out.join("sensitivity.png"), |tmp| chart.draw_png(tmp))?;
     write_atomically(&out.join("sensitivity.svg"), svg.as_bytes())?;
     write_atomically(&out.join("sensitivity.csv"), csv.as_bytes())?;
     println!("Mass detected with 50% / 90% probability, and excluded at 95% if nothing is detected:");
