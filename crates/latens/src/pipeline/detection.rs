@@ -290,7 +290,7 @@ pub fn linearisation_error(
     }
     let linear = kernel
         .projected_signal(s.hypothesis.position_au, s.hypothesis.velocity_au_per_day, s.gm_au3_per_day2)
-        .ok_or_else(|| PipelineError::Failed { stage: "linearisation check", message: "unbound orbit".into() })?;
+        .ok_or_else(|| PipelineError::failure("linearisation check", "unbound orbit"))?;
     kernel.project(&mut nonlinear);
     let (mut diff2, mut sig2, mut count) = (0.0, 0.0, 0usize);
     for k in 0..n {

@@ -52,14 +52,27 @@ pub enum PipelineError {
         None => "; nothing was saved".to_string(),
     })]
     Interrupted { step: usize, of: usize, checkpoint: Option<String> },
-    /// A computation failed on valid input.
-    #[error("{stage}: {message}")]
-    Failed { stage: &'static str, message: String },
+    /// A computation failed on valid input; the error of the part that
+    /// failed is kept as the source (its type and its own chain).
+    #[error("{stage}")]
+    Failed {
+        stage: &'static str,
+        #[source]
+        source: Box<dyn std::error::Error + Send + Sync + 'static>,
+    },
 }
 
 impl PipelineError {
-    /// A closure mapping any error of `stage` to [`PipelineError::Failed`].
-    pub(crate) fn failed<E: std::fmt::Display>(stage: &'static str) -> impl Fn(E) -> PipelineError {
-        move |e| PipelineError::Failed { stage, message: e.to_string() }
+    /// A closure mapping an error of `stage` to [`PipelineError::Failed`],
+    /// keeping it as the source.
+    pub(crate) fn failed<E: std::error::Error + Send + Sync + 'static>(
+        stage: &'static str,
+    ) -> impl Fn(E) -> PipelineError {
+        move |e| PipelineError::Failed { stage, source: Box::new(e) }
+    }
+
+    /// A failure of `stage` described in words.
+    pub(crate) fn failure(stage: &'static str, text: impl Into<String>) -> PipelineError {
+        PipelineError::Failed { stage, source: text.into().into() }
     }
 }

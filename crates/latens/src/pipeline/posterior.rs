@@ -225,7 +225,7 @@ pub struct PosteriorOutcome {
 fn interrupted(e: SamplerError) -> PipelineError {
     match e {
         SamplerError::Interrupted { step, of, checkpoint } => PipelineError::Interrupted { step, of, checkpoint },
-        e => PipelineError::Failed { stage: "posterior sampling", message: e.to_string() },
+        e => PipelineError::Failed { stage: "posterior sampling", source: Box::new(e) },
     }
 }
 
@@ -440,10 +440,8 @@ pub fn posterior(
         }
     };
     if let Some(dir) = settings.checkpoint.as_ref().and_then(|p| p.parent()) {
-        std::fs::create_dir_all(dir).map_err(|e| PipelineError::Failed {
-            stage: "posterior sampling",
-            message: format!("creating {}: {e}", dir.display()),
-        })?;
+        std::fs::create_dir_all(dir)
+            .map_err(|e| PipelineError::failure("posterior sampling", format!("creating {}: {e}", dir.display())))?;
     }
     let started = Instant::now();
     let start_step = states[0].step;
@@ -681,10 +679,10 @@ fn nonlinear_steps(
     let mut order: Vec<usize> = (0..checked.len()).filter(|&i| log_w[i].is_finite()).collect();
     order.sort_by(|&a, &b| log_w[b].total_cmp(&log_w[a]));
     if order.len() < settings.n_walkers {
-        return Err(PipelineError::Failed {
-            stage: "nonlinear sampling",
-            message: "too few posterior samples survive the nonlinear model to restart the sampler on it".into(),
-        });
+        return Err(PipelineError::failure(
+            "nonlinear sampling",
+            "too few posterior samples survive the nonlinear model to restart the sampler on it",
+        ));
     }
     let start: Vec<Vec<f64>> = order[..settings.n_walkers].iter().map(|&i| checked[i].0.clone()).collect();
     let state =
