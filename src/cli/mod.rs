@@ -123,7 +123,7 @@ pub(crate) fn write_png(
 /// exits 2, a failed computation 1.
 pub(crate) fn pipeline_error(e: latens::pipeline::PipelineError) -> CliError {
     match e {
-        latens::pipeline::PipelineError::Input(_) => CliError::bad_input(e),
+        latens::pipeline::PipelineError::Input(_) | latens::pipeline::PipelineError::File(_) => CliError::bad_input(e),
         latens::pipeline::PipelineError::Failed { .. } | latens::pipeline::PipelineError::Interrupted { .. } => {
             CliError::failed(e)
         }

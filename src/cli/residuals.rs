@@ -138,19 +138,20 @@ fn trend(years: &[f64], values: &[f64], sigmas: &[f64], used: &[bool]) -> (f64, 
 
 /// The `orbit` block of fit.json (and of infer's summary.json).
 pub(crate) fn orbit_file(fit: &ReferenceFit) -> OrbitFile {
-    let el = &fit.elements;
+    // The fit's elements are osculating with the GM of the Sun (reference::fit).
+    let el = latens::dynamics::kepler::OutputElements::from_elements(&fit.elements);
     let cov = &fit.covariance;
     let deg = |x: f64| x / RAD_PER_DEG;
     OrbitFile {
         frame: latens::dynamics::kepler::OUTPUT_FRAME.into(),
         epoch_tdb_jd: J2000_JD + fit.epoch_tdb_days,
         epoch_utc: utc_iso_from_epoch(epoch_from_tdb_days(fit.epoch_tdb_days)),
-        a_au: el.semi_major_axis_au(),
-        e: el.eccentricity,
-        inc_deg: deg(el.inclination_rad),
-        node_deg: deg(el.node_rad),
-        peri_deg: deg(el.periapsis_arg_rad),
-        mean_anomaly_deg: deg(el.mean_anomaly_rad()),
+        a_au: el.a_au,
+        e: el.e,
+        inc_deg: el.inc_deg,
+        node_deg: el.node_deg,
+        peri_deg: el.peri_deg,
+        mean_anomaly_deg: el.mean_anomaly_deg,
         sigma_a_au: fit.element_sigmas[0],
         sigma_e: fit.element_sigmas[1],
         sigma_inc_deg: deg(fit.element_sigmas[2]),

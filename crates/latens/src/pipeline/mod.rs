@@ -46,6 +46,9 @@ pub enum PipelineError {
     /// The study or the settings do not make sense (nothing was computed).
     #[error("{0}")]
     Input(String),
+    /// An input file is wrong; the error names the file, line and field.
+    #[error(transparent)]
+    File(#[from] crate::io::observations::InputError),
     /// The caller asked the work to stop; the checkpoint (if any) resumes it.
     #[error("stopped at step {step} of {of}{}", match checkpoint {
         Some(c) => format!("; the checkpoint {c} resumes it"),

@@ -169,10 +169,10 @@ impl TrackedArc {
             )));
         }
         let sites = match sites {
-            Some(p) => SiteTable::read(p).map_err(|e| PipelineError::Input(e.to_string()))?,
+            Some(p) => SiteTable::read(p)?,
             None => SiteTable::new(),
         };
-        let list = read_observations(observations, &sites, 3).map_err(|e| PipelineError::Input(e.to_string()))?;
+        let list = read_observations(observations, &sites, 3)?;
         Ok(TrackedArc {
             name: observations.file_stem().map_or("tracked body".into(), |s| s.to_string_lossy().into_owned()),
             observations: list,
@@ -193,10 +193,10 @@ impl TrackedArc {
         tracked: TrackedBody,
     ) -> Result<TrackedArc, PipelineError> {
         let sites = match sites {
-            Some(p) => SiteTable::read(p).map_err(|e| PipelineError::Input(e.to_string()))?,
+            Some(p) => SiteTable::read(p)?,
             None => SiteTable::new(),
         };
-        let list = read_schedule(schedule, &sites, 3).map_err(|e| PipelineError::Input(e.to_string()))?;
+        let list = read_schedule(schedule, &sites, 3)?;
         Ok(TrackedArc {
             name: schedule.file_stem().map_or("planned body".into(), |s| s.to_string_lossy().into_owned()),
             observations: list,
