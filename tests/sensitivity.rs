@@ -188,6 +188,17 @@ fn four_shards_merge_into_the_unsharded_map() {
     assert_eq!(rows.lines().filter(|l| !l.starts_with('#')).count(), 1 + 12);
     let o = planned(&demo.join("sites.csv"));
     assert_eq!(o.status.code(), Some(2), "a non-JSON orbit file must be refused");
+    // A survey planned years after the fit (its orbit's epoch outside the
+    // schedule's span): the planets must cover both.
+    let mut future = String::from("epoch_utc,sigma_ra_arcsec,sigma_dec_arcsec,site\n");
+    for line in text.lines().filter(|l| !l.starts_with('#')).skip(1).step_by(3) {
+        let f: Vec<&str> = line.split(',').collect();
+        let year: i32 = f[0][..4].parse().unwrap();
+        future.push_str(&format!("{}{},0.03,0.03,{}\n", year + 28, &f[0][4..], f[5]));
+    }
+    std::fs::write(dir.join("schedule.csv"), future).unwrap();
+    let o = planned(&demo.join("residuals/fit.json"));
+    assert!(o.status.success(), "a schedule after the fit: {}", String::from_utf8_lossy(&o.stderr));
     // A missing shard is refused.
     std::fs::remove_file(parts.join("sensitivity.part-2-of-4.csv")).unwrap();
     let o = latens().args(["sensitivity", "merge"]).arg(&parts).arg("--out").arg(dir.join("bad")).output().unwrap();

@@ -24,8 +24,10 @@ use crate::ephemeris::EphemerisError;
 /// Errors from propagating orbits.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
 pub enum PropagationError {
+    /// The message carries the ephemeris error's own (it is not also a
+    /// source, so a printed chain does not say it twice).
     #[error("while propagating: {0}")]
-    Ephemeris(#[from] EphemerisError),
+    Ephemeris(EphemerisError),
     #[error(
         "the integration produced a non-finite value at {t_tdb_days} TDB days after J2000.0 (a collision or an escape to infinity?)"
     )]
@@ -38,4 +40,10 @@ pub enum PropagationError {
     TooManySteps { max_steps: usize },
     #[error("invalid propagation request: {0}")]
     Invalid(String),
+}
+
+impl From<EphemerisError> for PropagationError {
+    fn from(e: EphemerisError) -> Self {
+        PropagationError::Ephemeris(e)
+    }
 }

@@ -121,7 +121,10 @@ impl Study {
         let Some(arc) = self.bodies.get_mut(index) else {
             return Err(PipelineError::Input(format!("the study has no body {index}")));
         };
-        let ephemeris = self.ephemeris.as_ref();
+        // The orbit's epoch may lie far from the schedule (a survey planned
+        // years after the fit): the planets must cover both.
+        let covering = self.source.for_arc_and(&arc.model, &arc.observations, &[epoch_tdb_days])?;
+        let ephemeris = covering.as_ref();
         let geometry = observing_geometry(&arc.observations, &arc.sites, ephemeris)
             .map_err(PipelineError::failed("observing geometry"))?;
         let mut orbit =

@@ -78,8 +78,20 @@ impl EphemerisSource {
         model: &ForceModel,
         observations: &[Observation],
     ) -> Result<Box<dyn Ephemeris>, PipelineError> {
-        let first = observations.first().map(|o| o.t_tdb_days).unwrap_or(0.0);
-        let last = observations.last().map(|o| o.t_tdb_days).unwrap_or(0.0);
+        self.for_arc_and(model, observations, &[])
+    }
+
+    /// As [`EphemerisSource::for_arc`], also covering the epochs `also`
+    /// (TDB days; e.g. the epoch of an orbit to propagate from).
+    pub fn for_arc_and(
+        &self,
+        model: &ForceModel,
+        observations: &[Observation],
+        also: &[f64],
+    ) -> Result<Box<dyn Ephemeris>, PipelineError> {
+        let times = observations.iter().map(|o| o.t_tdb_days).chain(also.iter().copied());
+        let (first, last) = times.fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), t| (a.min(t), b.max(t)));
+        let (first, last) = if first.is_finite() { (first, last) } else { (0.0, 0.0) };
         // Light leaves a body 170 au away a day before it arrives.
         let span = (first - 2.0, last + 1.0);
         let mut needed = observer_ephemeris_bodies();
@@ -103,6 +115,9 @@ impl EphemerisSource {
                         return Err(PipelineError::Input(format!("{}: field `epoch_utc`: {e}", o.source)));
                     }
                 }
+                for &t in also {
+                    source.check_covered(Body::Earth, t).map_err(|e| PipelineError::Input(e.to_string()))?;
+                }
                 Ok(Box::new(
                     model.tabulate(&source, &needed, span).map_err(PipelineError::failed("tabulating the planets"))?,
                 ))
@@ -116,6 +131,11 @@ impl EphemerisSource {
                                 return Err(PipelineError::Input(format!("{}: field `epoch_utc`: {e}", o.source)));
                             }
                         }
+                    }
+                }
+                for &t in also {
+                    for &b in &needed {
+                        spk.check_covered(b, t).map_err(|e| PipelineError::Input(e.to_string()))?;
                     }
                 }
                 Ok(Box::new(spk))
@@ -242,6 +262,8 @@ pub struct Study {
     pub wide: Box<dyn Ephemeris>,
     /// Where on the sky the perturber is wanted, TDB days since J2000.
     pub search_epoch_tdb_days: f64,
+    /// Where the ephemerides came from (for spans the arcs do not cover).
+    pub source: EphemerisSource,
 }
 
 impl Study {
@@ -275,7 +297,7 @@ impl Study {
         for b in [Body::Earth, Body::Jupiter] {
             wide.check_covered(b, search_epoch).map_err(|e| PipelineError::Input(format!("--search-epoch: {e}")))?;
         }
-        Ok(Study { bodies, ephemeris, wide, search_epoch_tdb_days: search_epoch })
+        Ok(Study { bodies, ephemeris, wide, search_epoch_tdb_days: search_epoch, source: source.clone() })
     }
 
     /// The single tracked body of a one-body study.

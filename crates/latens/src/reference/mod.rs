@@ -36,10 +36,18 @@ use gauss::{SightLine, gauss_candidates};
 pub enum ReferenceError {
     #[error("observation at {location}: {message}")]
     Observation { location: String, message: String },
+    /// The message carries the solver's own (not also a source, so a
+    /// printed chain does not say it twice).
     #[error("fitting the reference orbit: {0}")]
-    Fit(#[from] FitError),
+    Fit(FitError),
     #[error("no preliminary orbit could be found from the observations: {0}")]
     NoPreliminaryOrbit(String),
+}
+
+impl From<FitError> for ReferenceError {
+    fn from(e: FitError) -> Self {
+        ReferenceError::Fit(e)
+    }
 }
 
 /// How to fit.
