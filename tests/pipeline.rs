@@ -13,14 +13,16 @@ use std::process::Command;
 use std::sync::Mutex;
 
 use latens::dynamics::TrackedBody;
+use latens::ephemeris::Vsop87;
 use latens::perturber::SearchSettings;
 use latens::pipeline::{
-    Best, DetectionSettings, EphemerisSource, PipelineError, PosteriorSettings, SAMPLE_COLUMNS, Study, TrackedArc,
-    Verdict, detect, parse_known, posterior, sky_products,
+    Best, DetectionSettings, EphemerisSource, OrbitSample, PipelineError, PosteriorSettings, SAMPLE_COLUMNS, Study,
+    TrackedArc, Verdict, detect, parse_known, posterior, predict, sky_products,
 };
 use latens::posterior::impostors::{ImpostorPriors, nongrav_prior_for};
 use latens::progress::{Observer, Stage};
 use latens::time::{parse_epoch, tdb_days_from_j2000};
+use latens::units::GM_SUN_AU3_PER_DAY2;
 
 /// Records what a stage tells its observer.
 #[derive(Default)]
@@ -161,6 +163,38 @@ fn the_library_pipeline_and_the_command_line_give_the_same_answer() {
         for (name, want) in SAMPLE_COLUMNS.iter().zip(values) {
             let got: f64 = row[*name].parse().unwrap();
             assert!((got - want).abs() <= 1e-9 * want.abs().max(1e-300), "{name}: {got} against {want}");
+        }
+    }
+    // Prediction: the library's stage on the run's samples against `latens
+    // predict` on the files (which rebuilds the orbits from posterior.csv's
+    // elements, rounded to 11 digits, and writes places to 5 decimals).
+    let o = Command::new(env!("CARGO_BIN_EXE_latens"))
+        .args(["predict", "--from"])
+        .arg(&dir)
+        .args(["--start", "2020-01-01T00:00:00Z", "--end", "2020-03-01T00:00:00Z", "--step-days", "30"])
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let (kernel, _) = detection.posterior_kernel();
+    let samples: Vec<OrbitSample> = run
+        .samples
+        .iter()
+        .filter_map(|d| OrbitSample::from_derived(d, GM_SUN_AU3_PER_DAY2, kernel.epoch_tdb_days))
+        .collect();
+    assert_eq!(samples.len(), run.samples.len());
+    let places = predict(&samples, &Vsop87::new(), study.search_epoch_tdb_days, 30.0, 3).unwrap();
+    let rows = read_rows_at(&dir.join("predict.csv"));
+    assert_eq!(rows.len(), places.len());
+    for (row, p) in rows.iter().zip(&places) {
+        assert_eq!(row["mode"].parse::<usize>().unwrap(), p.mode);
+        for (name, want, tol) in [
+            ("ra_deg", p.ra_deg, 1e-4),
+            ("dec_deg", p.dec_deg, 1e-4),
+            ("ellipse_major_deg", p.ellipse_major_deg, 1e-3),
+            ("solar_elongation_deg", p.solar_elongation_deg, 1e-2),
+        ] {
+            let got: f64 = row[name].parse().unwrap();
+            assert!((got - want).abs() <= tol, "predict.csv {name}: {got} against the library's {want}");
         }
     }
     std::fs::remove_dir_all(&dir).unwrap();

@@ -246,6 +246,34 @@ mod tests {
     use super::*;
 
     #[test]
+    fn the_grid_puts_each_cell_in_its_place_and_leaves_the_others_empty() {
+        let settings = SensitivitySettings {
+            mass_earth: (1.0, 100.0),
+            distance_au: (10.0, 1000.0),
+            n_masses: 3,
+            n_distances: 3,
+            n_trials: 1,
+            max_ecliptic_latitude_deg: None,
+            seed: 1,
+            min_separation_au: 1.0,
+        };
+        let cell = |m: usize, d: usize, p: f64| Cell {
+            mass_index: m,
+            distance_index: d,
+            mass_earth: log_grid(settings.mass_earth, 3, m),
+            distance_au: log_grid(settings.distance_au, 3, d),
+            detection_probability: p,
+            n_trials: 1,
+            median_delta_chi2: 0.0,
+        };
+        let (masses, distances, p) = probability_grid(&settings, &[cell(0, 2, 0.25), cell(2, 1, 0.75)]);
+        // Log-spaced ends and middle: 1, 10, 100 Earth masses; 10, 100, 1000 au.
+        assert!((masses[1] - 10.0).abs() < 1e-9 && (distances[2] - 1000.0).abs() < 1e-9);
+        assert_eq!((p[(0, 2)], p[(2, 1)]), (0.25, 0.75));
+        assert_eq!(p.iter().filter(|v| v.is_nan()).count(), 7);
+    }
+
+    #[test]
     fn normal_cdf_matches_known_values() {
         // Phi(0) = 0.5, Phi(1.96) = 0.975, Phi(-1) = 0.158655 (common practice).
         assert!((normal_cdf(0.0) - 0.5).abs() < 1e-7);
