@@ -463,14 +463,179 @@ impl LinearKernel {
     /// Profiles the mass for a projected signal: the chi-square drop and the
     /// best GM, with the GM confined to [0, gm_max].
     pub fn profile(&self, projected: &[f64], gm_max: f64) -> (f64, f64) {
-        let sy = dot(projected, &self.residuals);
-        let ss = dot(projected, projected);
-        if sy <= 0.0 || ss <= 0.0 {
-            return (0.0, 0.0);
+        profile_mass(projected, &self.residuals, gm_max)
+    }
+}
+
+/// The mass profiled in closed form: with s.y and s.s of a projected signal
+/// s per unit GM against residuals y, the best GM in [0, gm_max] and the
+/// chi-square drop 2 gm s.y - gm^2 s.s it gives.
+fn profile_mass(projected: &[f64], residuals: &[f64], gm_max: f64) -> (f64, f64) {
+    let sy = dot(projected, residuals);
+    let ss = dot(projected, projected);
+    if sy <= 0.0 || ss <= 0.0 {
+        return (0.0, 0.0);
+    }
+    let gm = (sy / ss).min(gm_max);
+    (2.0 * gm * sy - gm * gm * ss, gm)
+}
+
+/// What the search, the refinement in the kernel and the posterior need of
+/// a kernel: one tracked body's ([`LinearKernel`]) or several bodies'
+/// together ([`JointKernel`]). Signals and residuals are whitened vectors
+/// of length [`SignalKernel::n_residuals`].
+pub trait SignalKernel: Sync {
+    /// The epoch of the perturber hypotheses' states, TDB days.
+    fn epoch_tdb_days(&self) -> f64;
+    /// GM of the central mass the perturber orbits.
+    fn central_gm(&self) -> f64;
+    fn n_residuals(&self) -> usize;
+    /// The whitened null residuals, orbit corrections projected out.
+    fn residuals(&self) -> &[f64];
+    /// The whitened signal per unit GM of a perturber on `orbit` into `out`,
+    /// orbit corrections not removed; returns the closest approach, au.
+    fn signal(&self, orbit: &KeplerOrbit, out: &mut [f64]) -> f64;
+    /// Removes the orbit corrections from a whitened signal.
+    fn project(&self, signal: &mut [f64]);
+    /// The chi-square drop and the best GM in [0, gm_max] for a projected
+    /// signal per unit GM.
+    fn profile(&self, projected: &[f64], gm_max: f64) -> (f64, f64) {
+        profile_mass(projected, self.residuals(), gm_max)
+    }
+    /// (s.y, s.s) of a projected signal s against the residuals y.
+    fn signal_products(&self, projected: &[f64]) -> (f64, f64) {
+        (dot(projected, self.residuals()), dot(projected, projected))
+    }
+}
+
+impl SignalKernel for LinearKernel {
+    fn epoch_tdb_days(&self) -> f64 {
+        self.epoch_tdb_days
+    }
+    fn central_gm(&self) -> f64 {
+        self.gm_sun
+    }
+    fn n_residuals(&self) -> usize {
+        self.residuals.len()
+    }
+    fn residuals(&self) -> &[f64] {
+        &self.residuals
+    }
+    fn signal(&self, orbit: &KeplerOrbit, out: &mut [f64]) -> f64 {
+        LinearKernel::signal(self, orbit, out)
+    }
+    fn project(&self, signal: &mut [f64]) {
+        LinearKernel::project(self, signal)
+    }
+}
+
+/// Several tracked bodies' kernels side by side, for one perturber shared
+/// by all: a hypothesis's signal is the concatenation of each body's
+/// signal, each body's own 6 orbit corrections are projected out of its
+/// own part, and the mass is profiled once over all. For a fixed mass the
+/// chi-square drop is therefore the sum of the bodies' drops.
+///
+/// Every body's kernel must be built at the same epoch (the hypotheses are
+/// states at that epoch) and about the same central mass.
+#[derive(Clone)]
+pub struct JointKernel {
+    bodies: Vec<LinearKernel>,
+    /// Start of each body's part, and the total length at the end.
+    offsets: Vec<usize>,
+    residuals: Vec<f64>,
+}
+
+impl JointKernel {
+    /// Joins the bodies' kernels; an error names what does not match.
+    pub fn new(bodies: Vec<LinearKernel>) -> Result<JointKernel, String> {
+        let Some(first) = bodies.first() else {
+            return Err("a joint kernel needs at least one body".into());
+        };
+        for (i, b) in bodies.iter().enumerate() {
+            if (b.epoch_tdb_days - first.epoch_tdb_days).abs() > 1e-9 {
+                return Err(format!(
+                    "body {} has its kernel at epoch {} TDB days, body 1 at {}: one epoch for all is needed",
+                    i + 1,
+                    b.epoch_tdb_days,
+                    first.epoch_tdb_days
+                ));
+            }
+            if b.gm_sun != first.gm_sun {
+                return Err(format!("body {} orbits another central mass than body 1", i + 1));
+            }
         }
-        let gm = (sy / ss).min(gm_max);
-        // chi2 drop for gm: 2 gm sy - gm^2 ss.
-        (2.0 * gm * sy - gm * gm * ss, gm)
+        let mut offsets = vec![0];
+        let mut residuals = Vec::new();
+        for b in &bodies {
+            residuals.extend_from_slice(&b.residuals);
+            offsets.push(residuals.len());
+        }
+        Ok(JointKernel { bodies, offsets, residuals })
+    }
+
+    /// The bodies' own kernels, in order.
+    pub fn bodies(&self) -> &[LinearKernel] {
+        &self.bodies
+    }
+
+    /// Where body `b`'s part lies in a joint vector.
+    pub fn part(&self, b: usize) -> std::ops::Range<usize> {
+        self.offsets[b]..self.offsets[b + 1]
+    }
+
+    /// Each body's chi-square drop for a projected joint signal per unit GM
+    /// at the GM `gm`: 2 gm s.y - gm^2 s.s over its part (they sum to the
+    /// joint drop at that GM).
+    pub fn drops_by_body(&self, projected: &[f64], gm: f64) -> Vec<f64> {
+        (0..self.bodies.len())
+            .map(|b| {
+                let r = self.part(b);
+                let (s, y) = (&projected[r.clone()], &self.residuals[r]);
+                2.0 * gm * dot(s, y) - gm * gm * dot(s, s)
+            })
+            .collect()
+    }
+
+    /// The same bodies with other whitened residuals (joint layout), each
+    /// part treated as [`LinearKernel::with_residuals`] does.
+    pub fn with_residuals(&self, residuals: &[f64]) -> JointKernel {
+        let bodies: Vec<LinearKernel> =
+            (0..self.bodies.len()).map(|b| self.bodies[b].with_residuals(&residuals[self.part(b)])).collect();
+        JointKernel::new(bodies).expect("the same epochs as before")
+    }
+
+    /// The joint kernel without body `b` (`None` when it is the only one).
+    pub fn without(&self, b: usize) -> Option<JointKernel> {
+        let rest: Vec<LinearKernel> =
+            self.bodies.iter().enumerate().filter(|(i, _)| *i != b).map(|(_, k)| k.clone()).collect();
+        JointKernel::new(rest).ok()
+    }
+}
+
+impl SignalKernel for JointKernel {
+    fn epoch_tdb_days(&self) -> f64 {
+        self.bodies[0].epoch_tdb_days
+    }
+    fn central_gm(&self) -> f64 {
+        self.bodies[0].gm_sun
+    }
+    fn n_residuals(&self) -> usize {
+        self.residuals.len()
+    }
+    fn residuals(&self) -> &[f64] {
+        &self.residuals
+    }
+    fn signal(&self, orbit: &KeplerOrbit, out: &mut [f64]) -> f64 {
+        let mut closest = f64::INFINITY;
+        for (b, k) in self.bodies.iter().enumerate() {
+            closest = closest.min(k.signal(orbit, &mut out[self.part(b)]));
+        }
+        closest
+    }
+    fn project(&self, signal: &mut [f64]) {
+        for (b, k) in self.bodies.iter().enumerate() {
+            k.project(&mut signal[self.part(b)]);
+        }
     }
 }
 

@@ -11,5 +11,5 @@ pub mod refine;
 pub mod search;
 pub mod sensitivity;
 
-pub use kernel::{KeplerOrbit, LinearKernel};
+pub use kernel::{JointKernel, KeplerOrbit, LinearKernel, SignalKernel};
 pub use search::{Hypothesis, Scored, SearchResult, SearchSettings, grid_search};

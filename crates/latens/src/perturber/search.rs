@@ -24,7 +24,7 @@ use rand::SeedableRng;
 use rand_distr::{Distribution, StandardNormal};
 use rayon::prelude::*;
 
-use super::kernel::{KeplerOrbit, LinearKernel};
+use super::kernel::{KeplerOrbit, SignalKernel};
 use crate::frames::icrf_from_ecliptic;
 use crate::progress::{Observer, Stage};
 use crate::vec3::Vec3;
@@ -178,9 +178,15 @@ pub fn hypotheses(settings: &SearchSettings, gm_sun: f64) -> Vec<Hypothesis> {
 
 /// Scores one hypothesis; `scratch` has the kernel's residual length.
 /// Returns the score and the normalised projected signal in `scratch`.
-pub fn score(kernel: &LinearKernel, h: &Hypothesis, gm_max: f64, min_sep: f64, scratch: &mut [f64]) -> Option<Scored> {
+pub fn score<K: SignalKernel + ?Sized>(
+    kernel: &K,
+    h: &Hypothesis,
+    gm_max: f64,
+    min_sep: f64,
+    scratch: &mut [f64],
+) -> Option<Scored> {
     let orbit =
-        KeplerOrbit::from_state(kernel.central_gm(), h.position_au, h.velocity_au_per_day, kernel.epoch_tdb_days)?;
+        KeplerOrbit::from_state(kernel.central_gm(), h.position_au, h.velocity_au_per_day, kernel.epoch_tdb_days())?;
     let closest = kernel.signal(&orbit, scratch);
     if closest < min_sep {
         return None;
@@ -193,7 +199,11 @@ pub fn score(kernel: &LinearKernel, h: &Hypothesis, gm_max: f64, min_sep: f64, s
 /// Runs the grid search, the basin selection and the null simulations.
 /// Reports to `observer` as [`Stage::Search`](crate::progress::Stage)
 /// (hypotheses done); it runs to the end whatever the observer asks.
-pub fn grid_search(kernel: &LinearKernel, settings: &SearchSettings, observer: &dyn Observer) -> SearchResult {
+pub fn grid_search<K: SignalKernel + ?Sized>(
+    kernel: &K,
+    settings: &SearchSettings,
+    observer: &dyn Observer,
+) -> SearchResult {
     let gm_earth = crate::units::GM_EARTH_MASS_AU3_PER_DAY2;
     let gm_max = settings.mass_earth.1 * gm_earth;
     let hyps = hypotheses(settings, kernel.central_gm());
@@ -328,8 +338,8 @@ pub fn distinct(
 /// The kernel's chi-square drop as a cost for Nelder-Mead, in scaled
 /// coordinates: position in units of the start's distance, velocity in
 /// units of its speed.
-struct KernelCost<'k> {
-    kernel: &'k LinearKernel,
+struct KernelCost<'k, K: ?Sized> {
+    kernel: &'k K,
     r0: f64,
     v0: f64,
     gm_max: f64,
@@ -338,7 +348,7 @@ struct KernelCost<'k> {
     distance_au: (f64, f64),
 }
 
-impl CostFunction for KernelCost<'_> {
+impl<K: SignalKernel + ?Sized> CostFunction for KernelCost<'_, K> {
     type Param = Vec<f64>;
     type Output = f64;
 
@@ -358,8 +368,8 @@ impl CostFunction for KernelCost<'_> {
 
 /// Improves a grid cell by Nelder-Mead (argmin) on its 6-dimensional state
 /// through the kernel; keeps the cell when nothing better is found.
-fn refine_in_kernel(
-    kernel: &LinearKernel,
+fn refine_in_kernel<K: SignalKernel + ?Sized>(
+    kernel: &K,
     start: &Scored,
     gm_max: f64,
     min_sep: f64,
@@ -399,7 +409,12 @@ fn refine_in_kernel(
 /// An orthonormal basis (columns) of the subspace holding the normalised,
 /// projected signals: the leading left singular vectors of a sample of them,
 /// as many as hold 99.99% of the sample's energy (at most 120).
-fn signal_subspace(kernel: &LinearKernel, hyps: &[Hypothesis], settings: &SearchSettings, gm_max: f64) -> Mat<f64> {
+fn signal_subspace<K: SignalKernel + ?Sized>(
+    kernel: &K,
+    hyps: &[Hypothesis],
+    settings: &SearchSettings,
+    gm_max: f64,
+) -> Mat<f64> {
     let n_res = kernel.n_residuals();
     let stride = (hyps.len() / 1000).max(1);
     let sample: Vec<Vec<f64>> = hyps

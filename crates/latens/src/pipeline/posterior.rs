@@ -16,7 +16,7 @@ use crate::frames::angular_separation;
 use crate::io::results::{
     DiagnosticsFile, EstimateFile, EvidenceFile, ExplanationFile, ImpostorFile, IntervalFile, PosteriorFile, PriorFile,
 };
-use crate::perturber::{KeplerOrbit, LinearKernel};
+use crate::perturber::{KeplerOrbit, Scored, SignalKernel};
 use crate::posterior::impostors::{self, ImpostorPriors};
 use crate::posterior::sampler::{self, Checkpoint, SamplerError, SamplerSettings, SamplerState};
 use crate::posterior::{
@@ -324,7 +324,7 @@ pub fn next_months(t: f64) -> Vec<(f64, String)> {
 }
 
 /// FNV-1a hash of the problem: residuals, prior, settings.
-fn fingerprint(kernel: &LinearKernel, prior: &PerturberPrior, settings: &SamplerSettings) -> String {
+pub(super) fn fingerprint(residuals: &[f64], prior: &PerturberPrior, settings: &SamplerSettings) -> String {
     let mut h: u64 = 0xcbf2_9ce4_8422_2325;
     let mut eat = |x: f64| {
         for b in x.to_le_bytes() {
@@ -332,7 +332,7 @@ fn fingerprint(kernel: &LinearKernel, prior: &PerturberPrior, settings: &Sampler
             h = h.wrapping_mul(0x0100_0000_01b3);
         }
     };
-    kernel.residuals.iter().for_each(|&r| eat(r));
+    residuals.iter().for_each(|&r| eat(r));
     for v in [prior.mass_earth.0, prior.mass_earth.1, prior.distance_au.0, prior.distance_au.1, prior.max_eccentricity]
     {
         eat(v);
@@ -399,13 +399,107 @@ pub fn posterior(
     if !settings.sample || detection.basins.is_empty() {
         return Ok(PosteriorOutcome { explanation: explain(None, &alternatives), alternatives, run: None, warnings });
     }
-    let sampler_settings = settings.sampler();
-    let burn_in = sampler_settings.burn_in;
     let posterior = PerturberPosterior::new(kernel, prior);
+    let fp = fingerprint(kernel.residuals(), &prior, &settings.sampler());
+    let sampled = sample(&posterior, &detection.basins, settings, &fp, observer)?;
+    let (mut diagnostics, mut sampling_warnings) = diagnose(&sampled, settings);
+    warnings.append(&mut sampling_warnings);
+    let evidence = evidence_of(&sampled, settings.runs, delta_chi2_offset);
+
+    // The nonlinear check.
+    let burn_in = sampled.sampler.burn_in;
+    let linear: Vec<(Vec<f64>, f64)> = sampled.states.iter().flat_map(|s| s.posterior_samples(burn_in)).collect();
+    let stride = (linear.len() / CHECKED).max(1);
+    let checked: Vec<(Vec<f64>, f64)> = linear.iter().step_by(stride).take(CHECKED).cloned().collect();
+    observer.note(&format!("Checking {} posterior samples against the full nonlinear model...", checked.len()));
+    let nonlinear =
+        NonlinearLikelihood::new(&detection.null, kernel, observations, &detection.geometry, model, ephemeris)
+            .map_err(PipelineError::failed("nonlinear check"))?;
+    let log_w = importance_log_weights(&checked, &nonlinear);
+    let ess = effective_sample_size(&log_w);
+    let share = ess / checked.len().max(1) as f64;
+    diagnostics.reweighting_effective_samples = ess;
+    diagnostics.reweighting_checked = checked.len();
+    let (source, chosen): (SampleSource, Vec<(Vec<f64>, f64)>) = if share >= 0.9 {
+        (SampleSource::Linear, capped(&linear))
+    } else if share >= 0.1 {
+        warnings.push(format!(
+            "the nonlinear model reweights the linear posterior (effective share {:.0}%): the samples are resampled by weight",
+            100.0 * share
+        ));
+        let idx = resample(&log_w, checked.len(), settings.seed ^ 0x7e5a);
+        (SampleSource::Reweighted, idx.iter().map(|&i| checked[i].clone()).collect())
+    } else {
+        warnings.push(format!(
+            "the linear posterior collapses under the nonlinear model (effective share {:.1}%): running MCMC steps on the full model around the modes",
+            100.0 * share
+        ));
+        (SampleSource::Nonlinear, nonlinear_steps(&posterior, &nonlinear, &checked, &log_w, settings.seed, observer)?)
+    };
+
+    let search = SearchGeometry::new(study.wide.as_ref(), study.search_epoch_tdb_days)?;
+    let derived = derive_all(&search, &chosen, kernel.epoch_tdb_days, kernel.central_gm());
+    let posterior_file = summarise(&derived, &prior, source);
+    if let Some(path) = &settings.checkpoint {
+        let _ = std::fs::remove_file(path);
+    }
+    let explanation =
+        explain(evidence.as_ref().map(|e| (e.log10_bayes_factor, e.log10_bayes_factor_error)), &alternatives);
+    Ok(PosteriorOutcome {
+        alternatives,
+        explanation,
+        run: Some(PosteriorRun {
+            summary: posterior_file,
+            evidence,
+            diagnostics,
+            source,
+            samples: derived,
+            states: sampled.states,
+            sampler: sampled.sampler,
+        }),
+        warnings,
+    })
+}
+
+/// The linear samples thinned to at most 5000.
+fn capped(linear: &[(Vec<f64>, f64)]) -> Vec<(Vec<f64>, f64)> {
+    let step = (linear.len() / 5000).max(1);
+    linear.iter().step_by(step).cloned().collect()
+}
+
+/// Derived quantities of sampled parameter vectors at the search epoch
+/// (`t0` and `gm_sun`: the kernel's epoch and central GM).
+pub(super) fn derive_all(
+    search: &SearchGeometry,
+    chosen: &[(Vec<f64>, f64)],
+    t0: f64,
+    gm_sun: f64,
+) -> Vec<DerivedSample> {
+    chosen.iter().filter_map(|(x, ll)| search.derive(&PerturberSample::from_params(x), *ll, t0, gm_sun)).collect()
+}
+
+/// A finished run of the tempered ensemble sampler.
+pub(super) struct Sampled {
+    pub states: Vec<SamplerState>,
+    pub sampler: SamplerSettings,
+    pub seconds: f64,
+    pub evaluations: u64,
+}
+
+/// Runs the tempered ensemble sampler on a perturber posterior (any
+/// kernel), started from the basins or resumed from the checkpoint.
+pub(super) fn sample<K: SignalKernel + ?Sized>(
+    posterior: &PerturberPosterior<'_, K>,
+    basins: &[Scored],
+    settings: &PosteriorSettings,
+    fingerprint: &str,
+    observer: &dyn Observer,
+) -> Result<Sampled, PipelineError> {
+    let sampler_settings = settings.sampler();
     let checkpoint = settings.checkpoint.as_ref().map(|path| Checkpoint {
         path: path.as_path(),
         every: 100,
-        fingerprint: fingerprint(kernel, &prior, &sampler_settings),
+        fingerprint: fingerprint.to_string(),
     });
     let states = match (&checkpoint, settings.resume) {
         (Some(c), true) => {
@@ -427,13 +521,13 @@ pub fn posterior(
             (0..settings.runs as u64)
                 .map(|r| {
                     let start = posterior.starting_walkers(
-                        &detection.basins,
+                        basins,
                         &betas,
                         sampler_settings.n_walkers,
                         settings.seed.wrapping_add(r),
                         r % 2 == 1,
                     );
-                    SamplerState::new(&posterior, &sampler_settings, r, &start)
+                    SamplerState::new(posterior, &sampler_settings, r, &start)
                 })
                 .collect::<Result<Vec<_>, _>>()
                 .map_err(PipelineError::failed("starting the sampler"))?
@@ -445,14 +539,22 @@ pub fn posterior(
     }
     let started = Instant::now();
     let start_step = states[0].step;
-    let states = sampler::run(&posterior, &sampler_settings, states, checkpoint.as_ref(), Stage::Sampling, observer)
+    let states = sampler::run(posterior, &sampler_settings, states, checkpoint.as_ref(), Stage::Sampling, observer)
         .map_err(interrupted)?;
     let seconds = started.elapsed().as_secs_f64();
     let evaluations = (sampler_settings.n_steps - start_step) as u64
         * settings.runs as u64
         * sampler_settings.n_temperatures as u64
         * sampler_settings.n_walkers as u64;
+    Ok(Sampled { states, sampler: sampler_settings, seconds, evaluations })
+}
 
+/// Convergence diagnostics of a run (the reweighting fields are left at
+/// zero for the caller), and the warning when it has not converged.
+pub(super) fn diagnose(sampled: &Sampled, settings: &PosteriorSettings) -> (DiagnosticsFile, Vec<String>) {
+    let (states, sampler_settings) = (&sampled.states, &sampled.sampler);
+    let burn_in = sampler_settings.burn_in;
+    let mut warnings = Vec::new();
     // Diagnostics.
     let post_steps = (sampler_settings.n_steps - burn_in) as f64;
     let tau: Vec<f64> = (0..PARAMETERS.len())
@@ -515,12 +617,41 @@ pub fn posterior(
         .map(|t| sum(&|s| &s.swaps_accepted, t) / sum(&|s| &s.swaps_proposed, t).max(1.0))
         .collect();
 
+    let diagnostics = DiagnosticsFile {
+        runs: settings.runs,
+        walkers: sampler_settings.n_walkers,
+        steps: sampler_settings.n_steps,
+        burn_in,
+        thin: sampler_settings.thin,
+        likelihood_evaluations: sampled.evaluations,
+        sampling_seconds: sampled.seconds,
+        betas: states[0].betas.clone(),
+        acceptance,
+        swap_rates,
+        parameters: PARAMETERS.iter().map(|s| s.to_string()).collect(),
+        autocorrelation_steps: tau,
+        split_r_hat: r_hat,
+        effective_samples: effective,
+        effective_samples_per_second: if sampled.seconds > 0.0 { effective / sampled.seconds } else { f64::NAN },
+        reweighting_effective_samples: 0.0,
+        reweighting_checked: 0,
+        converged,
+        advice,
+    };
+    (diagnostics, warnings)
+}
+
+/// The evidence of a run against no perturber, from thermodynamic
+/// integration and stepping stones; `delta_chi2_offset` puts a recentred
+/// kernel's likelihood against the null model.
+pub(super) fn evidence_of(sampled: &Sampled, runs: usize, delta_chi2_offset: f64) -> Option<EvidenceFile> {
+    let (states, n_t) = (&sampled.states, sampled.sampler.n_temperatures);
     // Evidence.
     // A recentred kernel's likelihood is relative to its own residuals y';
     // against the null model it is higher by (|y|^2 - |y'|^2) / 2.
     let shift = 0.5 * delta_chi2_offset;
-    let (ln_z, ln_z_err) = sampler::combined_evidence(&states, sampler::thermodynamic_evidence);
-    let (ss_z, ss_err) = sampler::combined_evidence(&states, sampler::stepping_stone_evidence);
+    let (ln_z, ln_z_err) = sampler::combined_evidence(states, sampler::thermodynamic_evidence);
+    let (ss_z, ss_err) = sampler::combined_evidence(states, sampler::stepping_stone_evidence);
     let (ln_z, ss_z) = (ln_z + shift, ss_z + shift);
     // Two estimates of the same number: thermodynamic integration (whose
     // discretisation error grows with the signal) and stepping stones over
@@ -540,56 +671,24 @@ pub fn posterior(
             "thermodynamic integration, its error widened to its disagreement with stepping stones",
         )
     };
-    let evidence = (n_t >= 2).then(|| EvidenceFile {
+    (n_t >= 2).then(|| EvidenceFile {
         ln_bayes_factor: z,
         ln_bayes_factor_error: z_err,
         log10_bayes_factor: z / std::f64::consts::LN_10,
         log10_bayes_factor_error: z_err / std::f64::consts::LN_10,
         method: format!(
             "{chosen}, mean of {} runs over {n_t} rungs, the linear kernel's likelihood; thermodynamic integration (trapezoid in ln beta; stepping stone to the prior) gives ln B = {ln_z:.2} +- {ln_z_err:.2}, stepping stones over the whole ladder ln B = {ss_z:.2} +- {ss_err:.2}",
-            settings.runs
+            runs
         ),
-    });
+    })
+}
 
-    // The nonlinear check.
-    let linear: Vec<(Vec<f64>, f64)> = states.iter().flat_map(|s| s.posterior_samples(burn_in)).collect();
-    let stride = (linear.len() / CHECKED).max(1);
-    let checked: Vec<(Vec<f64>, f64)> = linear.iter().step_by(stride).take(CHECKED).cloned().collect();
-    observer.note(&format!("Checking {} posterior samples against the full nonlinear model...", checked.len()));
-    let nonlinear =
-        NonlinearLikelihood::new(&detection.null, kernel, observations, &detection.geometry, model, ephemeris)
-            .map_err(PipelineError::failed("nonlinear check"))?;
-    let log_w = importance_log_weights(&checked, &nonlinear);
-    let ess = effective_sample_size(&log_w);
-    let share = ess / checked.len().max(1) as f64;
-    let (source, chosen): (SampleSource, Vec<(Vec<f64>, f64)>) = if share >= 0.9 {
-        let cap = 5000;
-        let step = (linear.len() / cap).max(1);
-        (SampleSource::Linear, linear.iter().step_by(step).cloned().collect())
-    } else if share >= 0.1 {
-        warnings.push(format!(
-            "the nonlinear model reweights the linear posterior (effective share {:.0}%): the samples are resampled by weight",
-            100.0 * share
-        ));
-        let idx = resample(&log_w, checked.len(), settings.seed ^ 0x7e5a);
-        (SampleSource::Reweighted, idx.iter().map(|&i| checked[i].clone()).collect())
-    } else {
-        warnings.push(format!(
-            "the linear posterior collapses under the nonlinear model (effective share {:.1}%): running MCMC steps on the full model around the modes",
-            100.0 * share
-        ));
-        (SampleSource::Nonlinear, nonlinear_steps(&posterior, &nonlinear, &checked, &log_w, settings.seed, observer)?)
-    };
-
-    let search = SearchGeometry::new(study.wide.as_ref(), study.search_epoch_tdb_days)?;
-    let t0 = kernel.epoch_tdb_days;
-    let gm_sun = kernel.central_gm();
-    let derived: Vec<DerivedSample> =
-        chosen.iter().filter_map(|(x, ll)| search.derive(&PerturberSample::from_params(x), *ll, t0, gm_sun)).collect();
+/// The posterior's summary (intervals and prior) from its samples.
+pub(super) fn summarise(derived: &[DerivedSample], prior: &PerturberPrior, source: SampleSource) -> PosteriorFile {
     let col = |f: &dyn Fn(&DerivedSample) -> f64| derived.iter().map(f).collect::<Vec<f64>>();
     let mean_dir = derived.iter().fold(Vec3::ZERO, |acc, d| acc + d.direction).unit();
     let radius: Vec<f64> = derived.iter().map(|d| angular_separation(d.direction, mean_dir) / RAD_PER_DEG).collect();
-    let posterior_file = PosteriorFile {
+    PosteriorFile {
         method: source.name().into(),
         n_samples: derived.len(),
         mass_earth: interval(&col(&|d| d.sample.mass_earth())),
@@ -608,48 +707,7 @@ pub fn posterior(
             min_separation_au: prior.min_separation_au,
             description: "mass log-uniform; position isotropic with log-uniform heliocentric distance; eccentricity uniform on [0, max_eccentricity], the velocity given e spread as in a uniform ball of bound velocities; orbits passing within min_separation_au of the tracked body excluded".into(),
         },
-    };
-    let diagnostics = DiagnosticsFile {
-        runs: settings.runs,
-        walkers: sampler_settings.n_walkers,
-        steps: sampler_settings.n_steps,
-        burn_in,
-        thin: sampler_settings.thin,
-        likelihood_evaluations: evaluations,
-        sampling_seconds: seconds,
-        betas: states[0].betas.clone(),
-        acceptance,
-        swap_rates,
-        parameters: PARAMETERS.iter().map(|s| s.to_string()).collect(),
-        autocorrelation_steps: tau,
-        split_r_hat: r_hat,
-        effective_samples: effective,
-        effective_samples_per_second: if seconds > 0.0 { effective / seconds } else { f64::NAN },
-        reweighting_effective_samples: ess,
-        reweighting_checked: checked.len(),
-        converged,
-        advice,
-    };
-
-    if let Some(path) = &settings.checkpoint {
-        let _ = std::fs::remove_file(path);
     }
-    let explanation =
-        explain(evidence.as_ref().map(|e| (e.log10_bayes_factor, e.log10_bayes_factor_error)), &alternatives);
-    Ok(PosteriorOutcome {
-        alternatives,
-        explanation,
-        run: Some(PosteriorRun {
-            summary: posterior_file,
-            evidence,
-            diagnostics,
-            source,
-            samples: derived,
-            states,
-            sampler: sampler_settings,
-        }),
-        warnings,
-    })
 }
 
 /// MCMC on the full nonlinear model, started from the samples the

@@ -33,7 +33,7 @@ use rand::{RngExt, SeedableRng};
 use rand_distr::{Distribution, StandardNormal};
 
 use super::sampler::Target;
-use crate::perturber::{KeplerOrbit, LinearKernel, Scored};
+use crate::perturber::{KeplerOrbit, LinearKernel, Scored, SignalKernel};
 use crate::units::JULIAN_YEAR_DAYS;
 use crate::vec3::Vec3;
 
@@ -118,8 +118,11 @@ pub fn draw_velocity(r: Vec3, gm_sun: f64, e_max: f64, rng: &mut impl rand::Rng)
 }
 
 /// The perturber's posterior for one kernel and prior.
-pub struct PerturberPosterior<'k> {
-    pub kernel: &'k LinearKernel,
+///
+/// The kernel is one body's ([`LinearKernel`], the default) or several
+/// bodies' together ([`crate::perturber::JointKernel`]).
+pub struct PerturberPosterior<'k, K: SignalKernel + ?Sized = LinearKernel> {
+    pub kernel: &'k K,
     pub prior: PerturberPrior,
     gm_sun: f64,
 }
@@ -149,8 +152,8 @@ impl PerturberSample {
     }
 }
 
-impl<'k> PerturberPosterior<'k> {
-    pub fn new(kernel: &'k LinearKernel, prior: PerturberPrior) -> Self {
+impl<'k, K: SignalKernel + ?Sized> PerturberPosterior<'k, K> {
+    pub fn new(kernel: &'k K, prior: PerturberPrior) -> Self {
         PerturberPosterior { kernel, prior, gm_sun: kernel.central_gm() }
     }
 
@@ -249,7 +252,7 @@ fn random_unit(rng: &mut impl rand::Rng) -> Vec3 {
     }
 }
 
-impl Target for PerturberPosterior<'_> {
+impl<K: SignalKernel + ?Sized> Target for PerturberPosterior<'_, K> {
     fn dim(&self) -> usize {
         DIM
     }
@@ -275,7 +278,7 @@ impl Target for PerturberPosterior<'_> {
     fn log_likelihood(&self, x: &[f64]) -> Option<f64> {
         let s = PerturberSample::from_params(x);
         let orbit =
-            KeplerOrbit::from_state(self.gm_sun, s.position_au, s.velocity_au_per_day, self.kernel.epoch_tdb_days)?;
+            KeplerOrbit::from_state(self.gm_sun, s.position_au, s.velocity_au_per_day, self.kernel.epoch_tdb_days())?;
         thread_local! {
             static SIGNAL: std::cell::RefCell<Vec<f64>> = const { std::cell::RefCell::new(Vec::new()) };
         }
