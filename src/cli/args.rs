@@ -127,8 +127,11 @@ pub enum SensitivityCommand {
 #[derive(Debug, Clone, clap::Args)]
 pub struct InputArgs {
     /// Observations: Latens CSV or IAU ADES PSV (see docs/formats.md).
-    #[arg(long, value_name = "FILE")]
-    pub obs: PathBuf,
+    /// `infer` takes several tracked bodies that share one perturber:
+    /// repeat --obs, or give a directory holding one file per body (.csv
+    /// or .psv); each body is named after its file.
+    #[arg(long, value_name = "FILE|DIR", required = true)]
+    pub obs: Vec<PathBuf>,
     /// Observing sites: CSV with name, lon_deg, lat_deg, height_m.
     #[arg(long, value_name = "FILE")]
     pub sites: Option<PathBuf>,
@@ -148,6 +151,46 @@ pub struct InputArgs {
     /// --tracked-mass (a named planet is a planet, otherwise a small body).
     #[arg(long, value_name = "KIND")]
     pub kind: Option<String>,
+}
+
+impl InputArgs {
+    /// The observation files: each --obs, directories expanded to their
+    /// .csv and .psv files in name order.
+    pub fn obs_files(&self) -> Result<Vec<PathBuf>, String> {
+        let mut out = Vec::new();
+        for p in &self.obs {
+            if p.is_dir() {
+                let entries = std::fs::read_dir(p).map_err(|e| format!("--obs {}: cannot read: {e}", p.display()))?;
+                let mut files: Vec<PathBuf> = entries
+                    .filter_map(|e| e.ok().map(|e| e.path()))
+                    .filter(|f| {
+                        f.is_file()
+                            && f.extension()
+                                .is_some_and(|x| x.eq_ignore_ascii_case("csv") || x.eq_ignore_ascii_case("psv"))
+                    })
+                    .collect();
+                files.sort();
+                if files.is_empty() {
+                    return Err(format!("--obs {}: the directory holds no .csv or .psv file", p.display()));
+                }
+                out.extend(files);
+            } else {
+                out.push(p.clone());
+            }
+        }
+        Ok(out)
+    }
+
+    /// The one observation file of a command that takes one body.
+    pub fn single_obs(&self, command: &str) -> Result<PathBuf, String> {
+        match self.obs_files()?.as_slice() {
+            [one] => Ok(one.clone()),
+            more => Err(format!(
+                "`latens {command}` takes one tracked body; --obs gives {} files (only `infer` searches several bodies jointly)",
+                more.len()
+            )),
+        }
+    }
 }
 
 #[derive(Debug, clap::Args)]

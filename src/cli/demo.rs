@@ -83,7 +83,7 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
     // 3. The search, the verdict, the posterior and the search products.
     println!("3. Searching the residuals for an unseen perturber (latens infer):");
     let input = InputArgs {
-        obs: sim.observations_path.clone(),
+        obs: vec![sim.observations_path.clone()],
         sites: Some(sim.sites_path.clone()),
         known: scenario.model.known.clone(),
         ephemeris: "builtin".into(),

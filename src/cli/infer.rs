@@ -31,7 +31,8 @@ use latens_charts::residual_chart::ResidualChart;
 
 /// Everything `infer` was asked to do, typed and checked before any work.
 pub(super) struct InferPlan {
-    pub obs: PathBuf,
+    /// One file per tracked body; several make a joint study.
+    pub obs: Vec<PathBuf>,
     pub sites: Option<PathBuf>,
     pub known: Vec<Body>,
     pub tracked: TrackedBody,
@@ -101,8 +102,19 @@ impl InferPlan {
         let tracked = TrackedBody::parse(&args.input.tracked_mass, args.input.kind.as_deref())
             .map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
         let posterior = super::posterior::settings(args, &out, tracked.kind)?;
+        let obs = args.input.obs_files().map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+        if obs.len() > 1 {
+            for (given, option) in [(args.exclude.is_some(), "--exclude"), (args.resume.is_some(), "--resume")] {
+                if given {
+                    return Err(CliError::bad_input(anyhow::anyhow!(
+                        "{option} applies to one tracked body; --obs gives {} files for a joint study",
+                        obs.len()
+                    )));
+                }
+            }
+        }
         Ok(InferPlan {
-            obs: args.input.obs.clone(),
+            obs,
             sites: args.input.sites.clone(),
             known,
             tracked,
@@ -116,8 +128,10 @@ impl InferPlan {
     }
 }
 
-pub(super) fn run(args: &InferArgs) -> Result<InferSummary, CliError> {
-    execute(&InferPlan::from_args(args)?)
+/// `latens infer`: one body, or several searched jointly.
+pub(super) fn run(args: &InferArgs) -> Result<(), CliError> {
+    let plan = InferPlan::from_args(args)?;
+    if plan.obs.len() > 1 { super::joint::execute(&plan) } else { execute(&plan).map(|_| ()) }
 }
 
 /// Runs a checked plan: the study, the stages, the files and the report.
@@ -129,7 +143,7 @@ pub(super) fn execute(plan: &InferPlan) -> Result<InferSummary, CliError> {
     let posterior_settings = &plan.posterior;
 
     // The study: read once, passed to every stage.
-    let mut arc = TrackedArc::load(&plan.obs, plan.sites.as_deref(), &plan.known, plan.tracked.clone())
+    let mut arc = TrackedArc::load(&plan.obs[0], plan.sites.as_deref(), &plan.known, plan.tracked.clone())
         .map_err(super::pipeline_error)?;
     arc.exclude_lines(&plan.excluded_lines).map_err(|e| CliError::bad_input(anyhow::anyhow!("--exclude: {e}")))?;
     let study = Study::new(vec![arc], &plan.ephemeris, plan.search_epoch).map_err(super::pipeline_error)?;

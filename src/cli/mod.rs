@@ -6,6 +6,7 @@
 mod args;
 mod demo;
 mod infer;
+mod joint;
 mod posterior;
 mod predict;
 mod progress;
@@ -78,7 +79,7 @@ fn run(args: Args) -> Result<(), CliError> {
     match args.command {
         Command::Demo(demo_args) => demo::run(&demo_args),
         Command::Residuals(r) => residuals::run(&r),
-        Command::Infer(i) => infer::run(&i).map(|_| ()),
+        Command::Infer(i) => infer::run(&i),
         Command::Sensitivity(s) => sensitivity::run(&s),
         Command::Predict(p) => predict::run(&p),
         Command::Simulate(s) => simulate::run(&s),

@@ -62,7 +62,8 @@ fn input_error(e: InputError) -> CliError {
 }
 
 pub(super) fn run(args: &ResidualsArgs) -> Result<(), CliError> {
-    let (observations, sites) = read_inputs(&args.input.obs, args.input.sites.as_ref())?;
+    let obs = args.input.single_obs("residuals").map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+    let (observations, sites) = read_inputs(&obs, args.input.sites.as_ref())?;
     let (model, _tracked) = model_from_input(&args.input)?;
     let ephemeris = load_ephemeris(&args.input.ephemeris, &model, &observations)?;
     let epoch = match &args.epoch {

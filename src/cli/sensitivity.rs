@@ -63,14 +63,15 @@ pub(super) fn run(args: &SensitivityArgs) -> Result<(), CliError> {
     let tracked = TrackedBody::parse(&input.tracked_mass, input.kind.as_deref())
         .map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
     let source = EphemerisSource::parse(&input.ephemeris);
+    let obs = input.single_obs("sensitivity").map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
     let study = match &args.orbit {
         None => {
-            let arc = TrackedArc::load(&input.obs, input.sites.as_deref(), &known, tracked)?;
+            let arc = TrackedArc::load(&obs, input.sites.as_deref(), &known, tracked)?;
             Study::new(vec![arc], &source, None)?
         }
         Some(orbit_path) => {
             let (t0, state) = read_orbit(orbit_path)?;
-            let arc = TrackedArc::load_schedule(&input.obs, input.sites.as_deref(), &known, tracked)?;
+            let arc = TrackedArc::load_schedule(&obs, input.sites.as_deref(), &known, tracked)?;
             let mut study = Study::new(vec![arc], &source, None)?;
             // Positions the planned survey would measure of this orbit (no noise).
             study.place_on_orbit(0, t0, &state)?;

@@ -3,7 +3,8 @@
 //! (the hidden perturber included) with seeded noise, plus the truth.
 //!
 //! Writes `observations.csv` (Latens CSV), `sites.csv`, `truth.json` and
-//! `track.csv` (the body's monthly geocentric track).
+//! `track.csv` (the body's monthly geocentric track); a scenario with
+//! several tracked bodies also writes `bodies/NAME.csv` for each.
 
 use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
@@ -15,7 +16,7 @@ use latens::io::observations::Observation;
 use latens::io::results::TruthFile;
 use latens::io::scenario::{ScenarioFile, read};
 use latens::io::write_atomically;
-use latens::pipeline::simulate_scenario;
+use latens::pipeline::simulate_population;
 use latens::time::{epoch_from_tdb_days, utc_iso_from_epoch};
 use latens::units::RAD_PER_DEG;
 
@@ -33,18 +34,11 @@ pub(super) struct Simulated {
     pub largest_planetary_shift_arcsec: f64,
 }
 
-/// Simulates a scenario and writes it into `out` (`name` is the scenario
-/// file's name, for messages): observations.csv, sites.csv, track.csv and
-/// truth.json.
-pub(super) fn simulate(s: &ScenarioFile, name: &str, out: &Path) -> Result<Simulated, CliError> {
-    let sim = simulate_scenario(s, name)?;
-    std::fs::create_dir_all(out).map_err(|e| CliError::failed(anyhow::anyhow!("creating {}: {e}", out.display())))?;
-    let mut csv = format!(
-        "# Simulated by latens simulate from scenario \"{}\": {}; {} arcsec Gaussian noise, seed {}\n",
-        s.name, s.survey.name, s.survey.sigma_arcsec, s.survey.seed
-    );
-    csv.push_str("epoch_utc,ra_deg,dec_deg,sigma_ra_arcsec,sigma_dec_arcsec,site\n");
-    for o in &sim.observations {
+/// The observations as Latens CSV (the scenario, noise and seed are in
+/// truth.json, so the file holds nothing but the table).
+fn observations_csv(observations: &[Observation]) -> String {
+    let mut csv = String::from("epoch_utc,ra_deg,dec_deg,sigma_ra_arcsec,sigma_dec_arcsec,site\n");
+    for o in observations {
         let _ = writeln!(
             csv,
             "{},{:.9},{:.9},{},{},{}",
@@ -56,6 +50,32 @@ pub(super) fn simulate(s: &ScenarioFile, name: &str, out: &Path) -> Result<Simul
             o.site
         );
     }
+    csv
+}
+
+/// The file name of a body's observations in a population's `bodies/`.
+pub(super) fn body_file_name(name: &str) -> String {
+    format!("{}.csv", name.replace(' ', "_"))
+}
+
+/// Simulates a scenario and writes it into `out` (`name` is the scenario
+/// file's name, for messages): observations.csv, sites.csv, track.csv and
+/// truth.json; with `[[more_bodies]]`, also bodies/NAME.csv for every
+/// tracked body (the first one's is observations.csv again).
+pub(super) fn simulate(s: &ScenarioFile, name: &str, out: &Path) -> Result<Simulated, CliError> {
+    let mut all = simulate_population(s, name)?;
+    std::fs::create_dir_all(out).map_err(|e| CliError::failed(anyhow::anyhow!("creating {}: {e}", out.display())))?;
+    if all.len() > 1 {
+        let dir = out.join("bodies");
+        std::fs::create_dir_all(&dir)
+            .map_err(|e| CliError::failed(anyhow::anyhow!("creating {}: {e}", dir.display())))?;
+        for (sim, body) in all.iter().zip(s.all_bodies()) {
+            write_atomically(&dir.join(body_file_name(&body.name)), observations_csv(&sim.observations).as_bytes())
+                .map_err(CliError::failed)?;
+        }
+    }
+    let sim = all.swap_remove(0);
+    let csv = observations_csv(&sim.observations);
     let observations_path = out.join("observations.csv");
     let sites_path = out.join("sites.csv");
     write_atomically(&observations_path, csv.as_bytes()).map_err(CliError::failed)?;
@@ -101,10 +121,11 @@ pub(super) fn simulate(s: &ScenarioFile, name: &str, out: &Path) -> Result<Simul
 pub(super) fn run(args: &super::args::SimulateArgs) -> Result<(), CliError> {
     let scenario = read(&args.scenario).map_err(CliError::bad_input)?;
     let sim = simulate(&scenario, &args.scenario.display().to_string(), &args.out)?;
+    let names: Vec<String> = scenario.all_bodies().into_iter().map(|b| b.name).collect();
     println!(
         "Simulated {} observations of {} from {} ({}), seed {}",
-        sim.observations.len(),
-        scenario.tracked.name,
+        sim.truth.n_observations,
+        names.join(", "),
         scenario.survey.name,
         scenario.name,
         scenario.survey.seed
@@ -118,7 +139,15 @@ pub(super) fn run(args: &super::args::SimulateArgs) -> Result<(), CliError> {
         None => println!("  with no hidden perturber"),
     }
     println!("Files written in {}:", args.out.display());
-    println!("  observations.csv     the simulated astrometry (Latens CSV), input to residuals, infer, sensitivity");
+    println!(
+        "  observations.csv     the simulated astrometry of {} (Latens CSV), input to residuals, infer, sensitivity",
+        names[0]
+    );
+    if names.len() > 1 {
+        println!(
+            "  bodies/              one such file per tracked body; `latens infer --obs DIR/bodies` searches them jointly"
+        );
+    }
     println!("  sites.csv            the survey's sites");
     println!("  truth.json           the true orbits, and the perturber's true place at the search epoch");
     println!("  track.csv            the body's monthly geocentric track and the planets' shift of it");

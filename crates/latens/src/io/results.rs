@@ -453,6 +453,9 @@ pub struct TruthFile {
     pub epoch_utc: String,
     pub epoch_tdb_jd: f64,
     pub tracked: TruthBodyFile,
+    /// The scenario's further tracked bodies (joint studies).
+    #[serde(skip_serializing_if = "Vec::is_empty", default)]
+    pub more_bodies: Vec<TruthBodyFile>,
     pub perturber: Option<TruthBodyFile>,
     pub survey: String,
     pub n_observations: usize,
@@ -485,4 +488,79 @@ pub struct PlaceFile {
     pub distance_au: f64,
     pub heliocentric_distance_au: f64,
     pub solar_elongation_deg: f64,
+}
+
+/// `summary.json` of a joint study (several tracked bodies, one perturber).
+#[derive(Debug, Serialize, Clone)]
+pub struct JointSummaryFile {
+    /// Always "joint": tells this file from a one-body summary.
+    pub study: String,
+    pub n_bodies: usize,
+    /// The common epoch of every body's reference orbit and of the
+    /// perturber states.
+    pub reference_epoch_utc: String,
+    pub reference_epoch_tdb_jd: f64,
+    pub search_epoch_utc: String,
+    pub seed: u64,
+    pub settings: InferSettingsFile,
+    pub bodies: Vec<JointBodyFile>,
+    pub detection: DetectionFile,
+    pub search: SearchStatsFile,
+    /// The best solution and the distinct basins near it, best first.
+    pub basins: Vec<JointBasinFile>,
+    /// The search without the body that carries most of the signal.
+    pub leave_one_out: Option<LeaveOneOutFile>,
+    /// What a joint run does not give (yet), so nobody looks for it.
+    pub not_computed: Vec<String>,
+    pub warnings: Vec<String>,
+}
+
+/// One body of a joint study.
+#[derive(Debug, Serialize, Clone)]
+pub struct JointBodyFile {
+    pub name: String,
+    pub file: String,
+    pub n_observations: usize,
+    pub null_chi2: f64,
+    pub null_dof: usize,
+    /// Its part of the best joint solution's chi-square drop (at the joint mass).
+    pub delta_chi2_at_best: f64,
+    /// That part over the joint drop.
+    pub share_of_best: f64,
+    /// The body searched alone (null when not run).
+    pub alone_delta_chi2: Option<f64>,
+    pub alone_false_alarm_probability: Option<f64>,
+    pub orbit: OrbitFile,
+}
+
+/// A basin of a joint search (linear kernel).
+#[derive(Debug, Serialize, Clone)]
+pub struct JointBasinFile {
+    pub delta_chi2: f64,
+    pub mass_earth: f64,
+    pub frame: String,
+    pub epoch_tdb_jd: f64,
+    pub a_au: f64,
+    pub e: f64,
+    pub inc_deg: f64,
+    pub node_deg: f64,
+    pub peri_deg: f64,
+    pub mean_anomaly_deg: f64,
+    pub state_icrf: [f64; 6],
+    /// Geocentric astrometric place at the search epoch.
+    pub ra_deg: f64,
+    pub dec_deg: f64,
+    pub distance_au: f64,
+    pub heliocentric_distance_au: f64,
+    pub solar_elongation_deg: f64,
+    /// Closest approach to any tracked body, au.
+    pub closest_approach_au: f64,
+}
+
+#[derive(Debug, Serialize, Clone)]
+pub struct LeaveOneOutFile {
+    pub left_out: String,
+    pub delta_chi2: f64,
+    pub false_alarm_probability: f64,
+    pub detected: bool,
 }

@@ -14,6 +14,10 @@ pub struct ScenarioFile {
     #[serde(default)]
     pub description: String,
     pub tracked: BodyFile,
+    /// Further tracked bodies followed by the same survey and pulled by the
+    /// same perturber (`[[more_bodies]]`), for joint studies.
+    #[serde(default)]
+    pub more_bodies: Vec<MoreBodyFile>,
     #[serde(default)]
     pub model: ModelFile,
     pub survey: SurveyFile,
@@ -35,6 +39,39 @@ pub struct BodyFile {
     pub node_deg: f64,
     pub peri_deg: f64,
     pub mean_anomaly_deg: f64,
+}
+
+/// A further tracked body: osculating heliocentric elements, ecliptic and
+/// equinox J2000, at the `[tracked]` body's epoch.
+#[derive(Clone, Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct MoreBodyFile {
+    pub name: String,
+    pub a_au: f64,
+    pub e: f64,
+    pub inc_deg: f64,
+    pub node_deg: f64,
+    pub peri_deg: f64,
+    pub mean_anomaly_deg: f64,
+}
+
+impl ScenarioFile {
+    /// Every tracked body, the `[tracked]` one first, each with the epoch
+    /// of its elements.
+    pub fn all_bodies(&self) -> Vec<BodyFile> {
+        let mut out = vec![self.tracked.clone()];
+        out.extend(self.more_bodies.iter().map(|b| BodyFile {
+            name: b.name.clone(),
+            epoch: self.tracked.epoch.clone(),
+            a_au: b.a_au,
+            e: b.e,
+            inc_deg: b.inc_deg,
+            node_deg: b.node_deg,
+            peri_deg: b.peri_deg,
+            mean_anomaly_deg: b.mean_anomaly_deg,
+        }));
+        out
+    }
 }
 
 #[derive(Clone, Debug, Deserialize)]
@@ -145,9 +182,24 @@ pub fn parse(text: &str, file: &str) -> Result<ScenarioFile, InputError> {
     let positive = |v: f64, field: &str| -> Result<(), InputError> {
         if v.is_finite() && v > 0.0 { Ok(()) } else { Err(invalid(file, field, format!("must be positive, got {v}"))) }
     };
-    positive(s.tracked.a_au, "tracked.a_au")?;
-    if !(0.0..1.0).contains(&s.tracked.e) {
-        return Err(invalid(file, "tracked.e", format!("must lie in [0, 1), got {}", s.tracked.e)));
+    let mut names = std::collections::HashSet::new();
+    for (k, b) in s.all_bodies().iter().enumerate() {
+        let key = if k == 0 { "tracked".to_string() } else { format!("more_bodies[{}]", k - 1) };
+        positive(b.a_au, &format!("{key}.a_au"))?;
+        if !(0.0..1.0).contains(&b.e) {
+            return Err(invalid(file, &format!("{key}.e"), format!("must lie in [0, 1), got {}", b.e)));
+        }
+        if !names.insert(b.name.to_lowercase()) {
+            return Err(invalid(file, &format!("{key}.name"), format!("the name `{}` is used twice", b.name)));
+        }
+        let safe = !b.name.is_empty() && b.name.chars().all(|c| c.is_ascii_alphanumeric() || "-_ ".contains(c));
+        if !safe {
+            return Err(invalid(
+                file,
+                &format!("{key}.name"),
+                format!("`{}`: use letters, digits, spaces, - and _ (it names the body's file)", b.name),
+            ));
+        }
     }
     positive(s.survey.visit_every_days, "survey.visit_every_days")?;
     positive(s.survey.sigma_arcsec, "survey.sigma_arcsec")?;

@@ -17,6 +17,7 @@
 //! Long stages report to a [`crate::progress::Observer`] the caller passes.
 
 mod detection;
+mod joint;
 mod posterior;
 mod predict;
 mod sensitivity;
@@ -29,13 +30,17 @@ pub use detection::{
     AnnualCheck, DETECTION_FAP, Detection, DetectionSettings, OutlierJudge, OutlierReport, Verdict, detect,
     linearisation_error,
 };
+pub use joint::{
+    AloneResult, BodyEvidence, BodyFit, JointDetection, JointSettings, LeaveOneOut, detect_joint, fit_bodies,
+    joint_epoch,
+};
 pub use posterior::{
     Best, DerivedSample, Explanation, PERTURBER, PosteriorOutcome, PosteriorRun, PosteriorSettings, SAMPLE_COLUMNS,
     SampleSource, SearchGeometry, geometry_at, next_months, posterior,
 };
 pub use predict::{OrbitSample, Prediction, predict};
 pub use sensitivity::{SensitivityMap, SensitivityPlan, sensitivity};
-pub use simulation::{SimulatedScenario, TRACK_SPACING_DAYS, TrackPoint, simulate_scenario};
+pub use simulation::{SimulatedScenario, TRACK_SPACING_DAYS, TrackPoint, simulate_population, simulate_scenario};
 pub use sky::{SUN_WARNING_DEG, SkyProducts, sky_products};
 pub use study::{EphemerisSource, Study, TrackedArc, force_model, parse_known};
 pub use table::Table;

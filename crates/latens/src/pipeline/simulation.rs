@@ -69,6 +69,29 @@ fn when(text: &str, what: &str) -> Result<f64, PipelineError> {
     parse_epoch(text).map(tdb_days_from_j2000).map_err(|e| bad(format!("{what}: {e}")))
 }
 
+/// Simulates every tracked body of a scenario (the `[tracked]` one first,
+/// then `[[more_bodies]]`): each as [`simulate_scenario`] would, the same
+/// survey and hidden perturber, its own noise (body k uses the survey's
+/// seed plus 1000 k). The first result's truth lists the other bodies.
+pub fn simulate_population(s: &ScenarioFile, name: &str) -> Result<Vec<SimulatedScenario>, PipelineError> {
+    let bodies = s.all_bodies();
+    let mut out: Vec<SimulatedScenario> = bodies
+        .iter()
+        .enumerate()
+        .map(|(k, b)| {
+            let mut one = s.clone();
+            one.tracked = b.clone();
+            one.more_bodies.clear();
+            one.survey.seed = s.survey.seed.wrapping_add(1000 * k as u64);
+            simulate_scenario(&one, &format!("{name} ({})", b.name))
+        })
+        .collect::<Result<_, _>>()?;
+    let more: Vec<_> = out[1..].iter().map(|o| o.truth.tracked.clone()).collect();
+    out[0].truth.more_bodies = more;
+    out[0].truth.n_observations = out.iter().map(|o| o.observations.len()).sum();
+    Ok(out)
+}
+
 /// Simulates a scenario's survey (`name` is the scenario file's name, for
 /// messages): the observations from the full model with the hidden
 /// perturber and seeded noise, the body's monthly track and the truth.
@@ -247,6 +270,7 @@ pub fn simulate_scenario(s: &ScenarioFile, name: &str) -> Result<SimulatedScenar
             r0,
             v0,
         ),
+        more_bodies: Vec::new(),
         perturber,
         survey: s.survey.name.clone(),
         n_observations: observations.len(),

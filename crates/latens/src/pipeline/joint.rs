@@ -1,0 +1,334 @@
+//! Joint detection: one perturber shared by several tracked bodies.
+//!
+//! Each body's orbit is fitted on its own (in parallel over bodies), all at
+//! one reference epoch, the whole TDB day nearest the middle of all the
+//! arcs together, so that one perturber hypothesis (a state at that epoch)
+//! means the same orbit for every body. Each body gets its own linear
+//! kernel, with its own 6 orbit corrections projected out; the joint
+//! kernel puts their signals side by side and profiles one mass for all
+//! (see [`crate::perturber::JointKernel`]). The grid search, its basins and
+//! its null simulations (look-elsewhere effect included) run on the joint
+//! kernel exactly as on one body's.
+//!
+//! Then, which bodies carry the signal: each body's part of the best
+//! solution's chi-square drop, each body searched alone (its own best drop
+//! and false-alarm probability), and the search run again without the body
+//! that carries most: does the detection survive without it?
+//!
+//! The joint stage works in the linear kernel throughout; the full-model
+//! refinement and the recentred kernel of the one-body stage are not run
+//! (joint detection matters most where each body's signal is weak, which is
+//! where the linear kernel holds best).
+
+use rayon::prelude::*;
+
+use super::detection::{DETECTION_FAP, Verdict};
+use super::{PipelineError, Study};
+use crate::astrometry::ObservingGeometry;
+use crate::io::observations::Observation;
+use crate::perturber::{JointKernel, LinearKernel, SearchResult, SearchSettings, SignalKernel, grid_search};
+use crate::progress::{Observer, Quiet};
+use crate::reference::{ReferenceFit, ReferenceSettings, fit_reference_orbit, observing_geometry};
+
+/// How joint detection runs.
+#[derive(Clone, Debug)]
+pub struct JointSettings {
+    /// The grid, the priors' ranges, the null simulations and the seed.
+    pub search: SearchSettings,
+    /// Also search each body alone (its own false-alarm probability): one
+    /// more search per body, each as costly as the joint one divided by the
+    /// number of bodies.
+    pub each_alone: bool,
+    /// Search again without the body that carries most of the signal.
+    pub leave_one_out: bool,
+}
+
+/// One body's part of a joint study after its reference fit.
+pub struct BodyFit {
+    pub name: String,
+    pub observations: Vec<Observation>,
+    pub null: ReferenceFit,
+    pub geometry: Vec<ObservingGeometry>,
+}
+
+/// A body searched alone.
+#[derive(Clone, Copy, Debug)]
+pub struct AloneResult {
+    pub delta_chi2: f64,
+    pub false_alarm_probability: f64,
+}
+
+/// What one body contributes to the joint detection.
+#[derive(Clone, Debug)]
+pub struct BodyEvidence {
+    pub name: String,
+    pub n_observations: usize,
+    /// Its part of the best joint solution's chi-square drop, at the joint
+    /// profiled mass (the parts sum to the joint drop; a part may be
+    /// negative when the shared mass overshoots what this body alone
+    /// would want).
+    pub delta_chi2_at_best: f64,
+    /// Its search alone, when run.
+    pub alone: Option<AloneResult>,
+}
+
+/// The search run again without the strongest body.
+#[derive(Clone, Debug)]
+pub struct LeaveOneOut {
+    /// The body left out (index into the study's bodies).
+    pub body: usize,
+    pub delta_chi2: f64,
+    pub false_alarm_probability: f64,
+}
+
+/// Everything joint detection found.
+pub struct JointDetection {
+    pub settings: JointSettings,
+    /// The common reference epoch of every body's fit and of the
+    /// hypotheses' states, TDB days.
+    pub epoch_tdb_days: f64,
+    pub bodies: Vec<BodyFit>,
+    pub kernel: JointKernel,
+    pub search: SearchResult,
+    /// Per body, in the study's order.
+    pub evidence: Vec<BodyEvidence>,
+    pub leave_one_out: Option<LeaveOneOut>,
+    pub verdict: Verdict,
+}
+
+impl JointDetection {
+    pub fn best_delta_chi2(&self) -> f64 {
+        self.search.grid_best_delta_chi2
+    }
+
+    pub fn false_alarm_probability(&self) -> f64 {
+        self.search.false_alarm_probability()
+    }
+
+    /// The verdict in one sentence, with the bodies that carry it.
+    pub fn verdict_text(&self) -> String {
+        let (best, fap) = (self.best_delta_chi2(), self.false_alarm_probability());
+        let n = self.bodies.len();
+        let mut text = match self.verdict {
+            Verdict::Detected | Verdict::AnnualSystematic => format!(
+                "detected jointly: one perturber lowers the chi-square of the {n} bodies together by {best:.1}, which {} of {} simulated noise-only data sets reached (false-alarm probability {fap:.2e})",
+                self.search.null_maxima.iter().filter(|&&m| m >= best).count(),
+                self.search.null_maxima.len()
+            ),
+            Verdict::Marginal => format!(
+                "suspicious: one perturber lowers the chi-square of the {n} bodies together by {best:.1} (false-alarm probability {fap:.3}); not enough for a detection"
+            ),
+            Verdict::NotDetected => format!(
+                "not detected: the best perturber lowers the chi-square of the {n} bodies together by {best:.1}, as noise alone often does (false-alarm probability {fap:.2})"
+            ),
+        };
+        let alone: Vec<&BodyEvidence> = self.evidence.iter().filter(|e| e.alone.is_some()).collect();
+        if self.verdict.detected() && alone.len() == n {
+            let single = alone.iter().filter(|e| e.alone.is_some_and(|a| a.false_alarm_probability < DETECTION_FAP));
+            let names: Vec<&str> = single.map(|e| e.name.as_str()).collect();
+            if names.is_empty() {
+                text.push_str("; no body alone reaches the detection threshold");
+            } else {
+                text.push_str(&format!("; alone, {} of {n} bodies reach it ({})", names.len(), names.join(", ")));
+            }
+        }
+        if let Some(l) = &self.leave_one_out
+            && self.verdict.detected()
+        {
+            let name = &self.bodies[l.body].name;
+            if l.false_alarm_probability < DETECTION_FAP {
+                text.push_str(&format!(
+                    "; without {name}, which carries most of it, the detection stands (false-alarm probability {:.2e})",
+                    l.false_alarm_probability
+                ));
+            } else {
+                text.push_str(&format!(
+                    "; without {name}, which carries most of it, it falls to a false-alarm probability of {:.2}: the detection rests on that body",
+                    l.false_alarm_probability
+                ));
+            }
+        }
+        text
+    }
+
+    /// The warnings of the bodies' reference fits, each named.
+    pub fn warnings(&self) -> Vec<String> {
+        self.bodies.iter().flat_map(|b| b.null.warnings.iter().map(move |w| format!("{}: {w}", b.name))).collect()
+    }
+}
+
+/// The common reference epoch of a joint study: the whole TDB day nearest
+/// the middle of all the arcs together.
+pub fn joint_epoch(study: &Study) -> f64 {
+    let times = study.bodies.iter().flat_map(|b| b.observations.iter().map(|o| o.t_tdb_days));
+    let (lo, hi) = times.fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), t| (a.min(t), b.max(t)));
+    (0.5 * (lo + hi)).round()
+}
+
+/// Each body's null fit and kernel at the common epoch, in parallel over
+/// bodies. Nothing is set aside in these fits (as in the one-body
+/// detection: a perturber's signal would be set aside with the outliers).
+pub fn fit_bodies(study: &Study, observer: &dyn Observer) -> Result<(f64, Vec<BodyFit>, JointKernel), PipelineError> {
+    if study.bodies.is_empty() {
+        return Err(PipelineError::Input("the study has no tracked body".into()));
+    }
+    let epoch = joint_epoch(study);
+    let settings = ReferenceSettings {
+        epoch_tdb_days: Some(epoch),
+        reject_chi2: f64::INFINITY,
+        readmit_chi2: f64::INFINITY,
+        max_rounds: 10,
+    };
+    observer.note(&format!("Fitting the reference orbits (no perturber) of {} bodies...", study.bodies.len()));
+    let ephemeris = study.ephemeris.as_ref();
+    let fitted: Vec<Result<(BodyFit, LinearKernel), PipelineError>> = study
+        .bodies
+        .par_iter()
+        .map(|arc| {
+            let failed = |stage: &'static str| {
+                let name = arc.name.clone();
+                move |e: Box<dyn std::error::Error + Send + Sync>| PipelineError::failure(stage, format!("{name}: {e}"))
+            };
+            let null = fit_reference_orbit(&arc.observations, &arc.sites, &arc.model, ephemeris, &settings, None)
+                .map_err(|e| failed("reference fit")(e.into()))?;
+            let geometry = observing_geometry(&arc.observations, &arc.sites, ephemeris)
+                .map_err(|e| failed("observing geometry")(e.into()))?;
+            let kernel = LinearKernel::build(&null, &arc.observations, geometry.clone(), &arc.model, ephemeris)
+                .map_err(|e| failed("linear kernel")(e.into()))?;
+            Ok((BodyFit { name: arc.name.clone(), observations: arc.observations.clone(), null, geometry }, kernel))
+        })
+        .collect();
+    let mut bodies = Vec::with_capacity(fitted.len());
+    let mut kernels = Vec::with_capacity(fitted.len());
+    for f in fitted {
+        let (b, k) = f?;
+        bodies.push(b);
+        kernels.push(k);
+    }
+    let kernel = JointKernel::new(kernels).map_err(|e| PipelineError::failure("joint kernel", e))?;
+    Ok((epoch, bodies, kernel))
+}
+
+/// Runs joint detection on a study of one or more bodies.
+pub fn detect_joint(
+    study: &Study,
+    settings: &JointSettings,
+    observer: &dyn Observer,
+) -> Result<JointDetection, PipelineError> {
+    check_bodies(study)?;
+    let (epoch, bodies, kernel) = fit_bodies(study, observer)?;
+    observer.note(&format!(
+        "Searching {} bodies together ({} residuals)...",
+        bodies.len(),
+        SignalKernel::n_residuals(&kernel)
+    ));
+    let search = grid_search(&kernel, &settings.search, observer);
+    let fap = search.false_alarm_probability();
+    let detected = fap < DETECTION_FAP && search.grid_best_delta_chi2 > 0.0;
+    let verdict = if detected {
+        Verdict::Detected
+    } else if fap < 0.05 {
+        Verdict::Marginal
+    } else {
+        Verdict::NotDetected
+    };
+
+    // Each body's part of the best solution's drop.
+    let gm_max = settings.search.mass_earth.1 * crate::units::GM_EARTH_MASS_AU3_PER_DAY2;
+    let parts: Vec<f64> = match search.best() {
+        Some(best) => {
+            let mut s = vec![0.0; SignalKernel::n_residuals(&kernel)];
+            match crate::perturber::search::score(&kernel, &best.hypothesis, gm_max, 0.0, &mut s) {
+                Some(scored) => kernel.drops_by_body(&s, scored.gm_au3_per_day2),
+                None => vec![0.0; bodies.len()],
+            }
+        }
+        None => vec![0.0; bodies.len()],
+    };
+
+    // Each body alone.
+    let alone: Vec<Option<AloneResult>> = if settings.each_alone && bodies.len() > 1 {
+        observer.note("Searching each body alone...");
+        kernel
+            .bodies()
+            .iter()
+            .map(|k| {
+                let r = grid_search(k, &settings.search, &Quiet);
+                Some(AloneResult {
+                    delta_chi2: r.grid_best_delta_chi2,
+                    false_alarm_probability: r.false_alarm_probability(),
+                })
+            })
+            .collect()
+    } else {
+        vec![None; bodies.len()]
+    };
+
+    // Without the strongest body.
+    let leave_one_out = if settings.leave_one_out && bodies.len() > 1 && search.best().is_some() {
+        let strongest = (0..bodies.len()).max_by(|&a, &b| parts[a].total_cmp(&parts[b])).unwrap_or(0);
+        observer
+            .note(&format!("Searching again without {}, which carries most of the signal...", bodies[strongest].name));
+        let rest = kernel.without(strongest).expect("more than one body");
+        let r = grid_search(&rest, &settings.search, &Quiet);
+        Some(LeaveOneOut {
+            body: strongest,
+            delta_chi2: r.grid_best_delta_chi2,
+            false_alarm_probability: r.false_alarm_probability(),
+        })
+    } else {
+        None
+    };
+
+    let evidence = bodies
+        .iter()
+        .zip(parts.iter().zip(alone))
+        .map(|(b, (&part, alone))| BodyEvidence {
+            name: b.name.clone(),
+            n_observations: b.observations.len(),
+            delta_chi2_at_best: part,
+            alone,
+        })
+        .collect();
+    Ok(JointDetection {
+        settings: settings.clone(),
+        epoch_tdb_days: epoch,
+        bodies,
+        kernel,
+        search,
+        evidence,
+        leave_one_out,
+        verdict,
+    })
+}
+
+/// The bodies of a joint study must be told apart and each must be fittable.
+fn check_bodies(study: &Study) -> Result<(), PipelineError> {
+    let mut seen = std::collections::HashSet::new();
+    for b in &study.bodies {
+        if !seen.insert(b.name.as_str()) {
+            let files: Vec<&str> = study
+                .bodies
+                .iter()
+                .filter(|o| o.name == b.name)
+                .filter_map(|o| o.observations.first().map(|x| x.source.rsplit_once(':').map_or("", |(f, _)| f)))
+                .collect();
+            return Err(PipelineError::Input(format!(
+                "two bodies are both named `{}` ({}): each body needs its own name",
+                b.name,
+                files.join(" and ")
+            )));
+        }
+        // 6 orbit parameters need more than 3 two-coordinate observations to
+        // leave any freedom for a perturber's signal.
+        if b.observations.len() < 4 {
+            let file = b.observations.first().map_or("", |x| x.source.rsplit_once(':').map_or("", |(f, _)| f));
+            return Err(PipelineError::Input(format!(
+                "body `{}` ({file}) has {} observation(s); a joint study needs at least 4 per body",
+                b.name,
+                b.observations.len()
+            )));
+        }
+    }
+    Ok(())
+}

@@ -1,0 +1,256 @@
+//! `latens infer` with several tracked bodies: one perturber searched
+//! jointly over all their residuals (see `latens::pipeline::detect_joint`).
+//!
+//! Writes `summary.json` (the joint verdict, each body's share, the basins
+//! and the search without the strongest body), `bodies.csv` (one row per
+//! body) and, per body, its reference fit under `bodies/NAME/` as
+//! `latens residuals` writes it.
+
+use std::fmt::Write as _;
+use std::path::Path;
+
+use super::CliError;
+use super::infer::InferPlan;
+use super::residuals::{ResidualProducts, orbit_file};
+use latens::dynamics::kepler::{OUTPUT_FRAME, OutputElements};
+use latens::io::results::{
+    DetectionFile, InferSettingsFile, JointBasinFile, JointBodyFile, JointSummaryFile, LeaveOneOutFile, SearchStatsFile,
+};
+use latens::io::write_atomically;
+use latens::perturber::{KeplerOrbit, Scored, SignalKernel};
+use latens::pipeline::{
+    DETECTION_FAP, JointDetection, JointSettings, SUN_WARNING_DEG, SearchGeometry, Study, TrackedArc, detect_joint,
+};
+use latens::time::{epoch_from_tdb_days, utc_iso_from_epoch};
+use latens::units::{J2000_JD, RAD_PER_DEG};
+
+/// What a joint run does not give yet.
+const NOT_COMPUTED: [&str; 3] = [
+    "the posterior sampling and the sky search region (the joint study stops at detection and its basins)",
+    "the refinement on the full nonlinear model (the joint figures are the linear kernel's)",
+    "outlier rejection (every observation is used)",
+];
+
+/// Runs a joint study of the plan's bodies and writes its files.
+pub(super) fn execute(plan: &InferPlan) -> Result<(), CliError> {
+    let out = plan.out.as_path();
+    let arcs = plan
+        .obs
+        .iter()
+        .map(|p| TrackedArc::load(p, plan.sites.as_deref(), &plan.known, plan.tracked.clone()))
+        .collect::<Result<Vec<_>, _>>()?;
+    let study = Study::new(arcs, &plan.ephemeris, plan.search_epoch)?;
+    let settings = JointSettings { search: plan.detection.search.clone(), each_alone: true, leave_one_out: true };
+    let found = detect_joint(&study, &settings, &crate::cli::progress::Bars::new())?;
+
+    let search = SearchGeometry::new(study.wide.as_ref(), study.search_epoch_tdb_days)?;
+    let basins: Vec<JointBasinFile> =
+        found.search.basins.iter().filter_map(|b| basin_file(b, &found, &search)).collect();
+    let mut warnings = found.warnings();
+    let detected = found.verdict.detected();
+    for (k, b) in basins.iter().enumerate() {
+        if detected && b.solar_elongation_deg < SUN_WARNING_DEG {
+            warnings.push(format!(
+                "basin {} lies {:.0} deg from the Sun at the search epoch: pointing a telescope near the Sun can destroy eyes \
+                 and instruments; observe it only with proper solar safeguards, after sunset, or wait for it to move away",
+                k + 1,
+                b.solar_elongation_deg
+            ));
+        }
+    }
+    let best = found.best_delta_chi2();
+    let total_part: f64 = found.evidence.iter().map(|e| e.delta_chi2_at_best).sum();
+    let model = &study.bodies[0].model;
+    let bodies: Vec<JointBodyFile> = found
+        .bodies
+        .iter()
+        .zip(&found.evidence)
+        .zip(&plan.obs)
+        .map(|((b, e), file)| JointBodyFile {
+            name: b.name.clone(),
+            file: file.display().to_string(),
+            n_observations: b.observations.len(),
+            null_chi2: b.null.chi2,
+            null_dof: b.null.dof,
+            delta_chi2_at_best: e.delta_chi2_at_best,
+            share_of_best: if total_part > 0.0 { e.delta_chi2_at_best / total_part } else { 0.0 },
+            alone_delta_chi2: e.alone.map(|a| a.delta_chi2),
+            alone_false_alarm_probability: e.alone.map(|a| a.false_alarm_probability),
+            orbit: orbit_file(&b.null),
+        })
+        .collect();
+    let s = &plan.detection.search;
+    let summary = JointSummaryFile {
+        study: "joint".into(),
+        n_bodies: bodies.len(),
+        reference_epoch_utc: utc_iso_from_epoch(epoch_from_tdb_days(found.epoch_tdb_days)),
+        reference_epoch_tdb_jd: J2000_JD + found.epoch_tdb_days,
+        search_epoch_utc: utc_iso_from_epoch(epoch_from_tdb_days(study.search_epoch_tdb_days)),
+        seed: s.seed,
+        settings: InferSettingsFile {
+            mass_earth: [s.mass_earth.0, s.mass_earth.1],
+            distance_au: [s.distance_au.0, s.distance_au.1],
+            n_directions: s.n_directions,
+            n_distances: s.n_distances,
+            n_orientations: s.n_orientations,
+            speed_factors: s.speed_factors.clone(),
+            min_separation_au: s.min_separation_au,
+            basin_delta_chi2: s.basin_delta_chi2,
+            known_bodies: model.known.iter().map(|k| k.body.name().to_string()).collect(),
+            folded_into_sun: model.folded.iter().map(|k| k.body.name().to_string()).collect(),
+            ephemeris: study.ephemeris.description(),
+        },
+        bodies,
+        detection: DetectionFile {
+            delta_chi2: best,
+            false_alarm_probability: found.false_alarm_probability(),
+            n_null_simulations: found.search.null_maxima.len(),
+            largest_null_delta_chi2: found.search.null_maxima.iter().copied().fold(0.0, f64::max),
+            detected,
+            verdict: found.verdict_text(),
+        },
+        search: SearchStatsFile {
+            n_hypotheses: found.search.n_hypotheses,
+            n_skipped_close_approach: found.search.n_skipped_close,
+            signal_subspace_dimension: found.search.subspace_dimension,
+            signal_subspace_energy: found.search.subspace_energy,
+        },
+        basins,
+        leave_one_out: found.leave_one_out.as_ref().map(|l| LeaveOneOutFile {
+            left_out: found.bodies[l.body].name.clone(),
+            delta_chi2: l.delta_chi2,
+            false_alarm_probability: l.false_alarm_probability,
+            detected: l.false_alarm_probability < DETECTION_FAP,
+        }),
+        not_computed: NOT_COMPUTED.iter().map(|s| s.to_string()).collect(),
+        warnings,
+    };
+    write_outputs(out, &summary, &found, &study).map_err(CliError::failed)?;
+    print!("{}", report(&summary, out));
+    Ok(())
+}
+
+/// A basin's orbit and its place at the search epoch (`None` if unbound).
+fn basin_file(b: &Scored, found: &JointDetection, search: &SearchGeometry) -> Option<JointBasinFile> {
+    let h = &b.hypothesis;
+    let t0 = found.epoch_tdb_days;
+    let orbit = KeplerOrbit::from_state(found.kernel.central_gm(), h.position_au, h.velocity_au_per_day, t0)?;
+    let el = OutputElements::from_icrf_state(h.position_au, h.velocity_au_per_day).ok()?;
+    let (direction, distance, heliocentric, elongation) = search.place_at(&orbit, search.epoch, &search.geometry);
+    let radec = latens::frames::radec_from_vector(direction);
+    let (r, v) = (h.position_au, h.velocity_au_per_day);
+    Some(JointBasinFile {
+        delta_chi2: b.delta_chi2,
+        mass_earth: b.mass_earth(),
+        frame: OUTPUT_FRAME.into(),
+        epoch_tdb_jd: J2000_JD + t0,
+        a_au: el.a_au,
+        e: el.e,
+        inc_deg: el.inc_deg,
+        node_deg: el.node_deg,
+        peri_deg: el.peri_deg,
+        mean_anomaly_deg: el.mean_anomaly_deg,
+        state_icrf: [r.x, r.y, r.z, v.x, v.y, v.z],
+        ra_deg: radec.ra_rad / RAD_PER_DEG,
+        dec_deg: radec.dec_rad / RAD_PER_DEG,
+        distance_au: distance,
+        heliocentric_distance_au: heliocentric,
+        solar_elongation_deg: elongation,
+        closest_approach_au: b.closest_approach_au,
+    })
+}
+
+/// A CSV field, quoted when it holds a separator, a quote or a line break.
+fn field(text: &str) -> String {
+    if text.contains([',', '"', '\n', '\r']) { format!("\"{}\"", text.replace('"', "\"\"")) } else { text.into() }
+}
+
+fn write_outputs(out: &Path, summary: &JointSummaryFile, found: &JointDetection, study: &Study) -> anyhow::Result<()> {
+    std::fs::create_dir_all(out).map_err(|e| anyhow::anyhow!("creating {}: {e}", out.display()))?;
+    let json = serde_json::to_string_pretty(summary)? + "\n";
+    write_atomically(&out.join("summary.json"), json.as_bytes())?;
+    let opt = |x: Option<f64>| x.map_or(String::new(), |v| format!("{v:.6e}"));
+    let mut csv = String::from(
+        "name,file,n_observations,null_chi2,null_dof,delta_chi2_at_best,share_of_best,alone_delta_chi2,alone_false_alarm_probability\n",
+    );
+    for b in &summary.bodies {
+        let _ = writeln!(
+            csv,
+            "{},{},{},{:.4},{},{:.4},{:.4},{},{}",
+            field(&b.name),
+            field(&b.file),
+            b.n_observations,
+            b.null_chi2,
+            b.null_dof,
+            b.delta_chi2_at_best,
+            b.share_of_best,
+            opt(b.alone_delta_chi2),
+            opt(b.alone_false_alarm_probability)
+        );
+    }
+    write_atomically(&out.join("bodies.csv"), csv.as_bytes())?;
+    for (b, arc) in found.bodies.iter().zip(&study.bodies) {
+        let dir = out.join("bodies").join(&b.name);
+        std::fs::create_dir_all(&dir).map_err(|e| anyhow::anyhow!("creating {}: {e}", dir.display()))?;
+        ResidualProducts::build(&b.null, &b.observations, &arc.model, study.ephemeris.description()).write(&dir)?;
+    }
+    Ok(())
+}
+
+/// The report printed at the end.
+fn report(s: &JointSummaryFile, out: &Path) -> String {
+    let mut text = String::new();
+    let _ = writeln!(
+        text,
+        "Joint study of {} tracked bodies, reference orbits at {} (one epoch for all)",
+        s.n_bodies, s.reference_epoch_utc
+    );
+    let _ = writeln!(text, "Verdict: {}", s.detection.verdict);
+    let _ = writeln!(
+        text,
+        "  {:<20} {:>6} {:>12} {:>10} {:>12} {:>10}",
+        "body", "obs", "null chi2", "share", "alone dchi2", "alone FAP"
+    );
+    for b in &s.bodies {
+        let _ = writeln!(
+            text,
+            "  {:<20} {:>6} {:>12.1} {:>9.0}% {:>12} {:>10}",
+            b.name,
+            b.n_observations,
+            b.null_chi2,
+            100.0 * b.share_of_best,
+            b.alone_delta_chi2.map_or("-".into(), |v| format!("{v:.1}")),
+            b.alone_false_alarm_probability.map_or("-".into(), |v| format!("{v:.3}"))
+        );
+    }
+    for (k, b) in s.basins.iter().enumerate() {
+        let _ = writeln!(
+            text,
+            "  basin {}: delta chi2 {:.1}, {:.2} Earth masses {:.0} au from the Sun at the reference epoch; at the search epoch \
+             RA {:.2} deg, Dec {:+.2} deg, {:.0} au away, {:.0} deg from the Sun",
+            k + 1,
+            b.delta_chi2,
+            b.mass_earth,
+            b.heliocentric_distance_au,
+            b.ra_deg,
+            b.dec_deg,
+            b.distance_au,
+            b.solar_elongation_deg
+        );
+    }
+    for w in &s.warnings {
+        let _ = writeln!(text, "Warning: {w}");
+    }
+    let _ = writeln!(text, "Not computed in a joint study yet: {}.", s.not_computed.join("; "));
+    let _ = writeln!(text, "Files written in {}:", out.display());
+    let _ = writeln!(
+        text,
+        "  summary.json    the joint verdict, each body's share, the basins, the search without the strongest body"
+    );
+    let _ = writeln!(
+        text,
+        "  bodies.csv      one row per body: observations, null chi-square, share of the signal, the body searched alone"
+    );
+    let _ = writeln!(text, "  bodies/NAME/    each body's reference fit (fit.json, residuals.csv, residuals.png)");
+    text
+}
