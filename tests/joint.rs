@@ -148,8 +148,10 @@ fn separation_deg(a: (f64, f64), b: (f64, f64)) -> f64 {
 fn a_perturber_no_single_body_reveals_is_found_jointly() {
     // Injection and recovery through the command line, over three noise
     // seeds of the population scenario: the joint search detects Tamsin and
-    // its best basin lies near Tamsin's true place, while the bodies
-    // searched alone mostly do not detect it (each seed's tally printed).
+    // its 90% credible region holds Tamsin's true place, while the bodies
+    // searched alone mostly see nothing (at most one of twelve reaches the
+    // threshold in a seed, most are far from it, and the joint drop stands
+    // well above the best single body's). Each seed's tally is printed.
     let root = std::env::temp_dir().join(format!("latens-joint-{}", std::process::id()));
     let text = std::fs::read_to_string(population_file()).unwrap();
     let mut rows = Vec::new();
@@ -171,34 +173,37 @@ fn a_perturber_no_single_body_reveals_is_found_jointly() {
         let truth = json(&dir.join("sim/truth.json"));
         let summary = json(&dir.join("infer/summary.json"));
         let place = &truth["perturber"]["at_search_epoch"];
+        assert_eq!(place["epoch_utc"], summary["search_epoch_utc"], "the truth's place is at the search epoch");
         let true_place = (place["ra_deg"].as_f64().unwrap(), place["dec_deg"].as_f64().unwrap());
         let best = &summary["basins"][0];
         let found = (best["ra_deg"].as_f64().unwrap(), best["dec_deg"].as_f64().unwrap());
         let off = separation_deg(found, true_place);
+        let (ra, dec) = (true_place.0.to_radians(), true_place.1.to_radians());
+        let d = latens::vec3::Vec3::new(dec.cos() * ra.cos(), dec.cos() * ra.sin(), dec.sin());
+        let moc = std::fs::read_to_string(dir.join("infer/region90.json")).unwrap();
+        let inside = latens::skymap::moc_json_contains(&moc, d).unwrap();
+        let area90 = summary["sky"]["area90_deg2"].as_f64().unwrap();
         let bodies = summary["bodies"].as_array().unwrap();
         assert_eq!(bodies.len(), 12);
-        let alone_detected = bodies
-            .iter()
-            .filter(|b| b["alone_false_alarm_probability"].as_f64().unwrap() < latens::pipeline::DETECTION_FAP)
-            .count();
+        let mut alone: Vec<f64> = bodies.iter().map(|b| b["alone_false_alarm_probability"].as_f64().unwrap()).collect();
+        alone.sort_by(f64::total_cmp);
+        let alone_detected = alone.iter().filter(|&&p| p < latens::pipeline::DETECTION_FAP).count();
+        let best_alone = bodies.iter().map(|b| b["alone_delta_chi2"].as_f64().unwrap()).fold(0.0, f64::max);
         let fap = summary["detection"]["false_alarm_probability"].as_f64().unwrap();
         let delta = summary["detection"]["delta_chi2"].as_f64().unwrap();
         eprintln!(
-            "seed {seed}: joint delta chi2 {delta:.1}, FAP {fap:.2e}, best basin {off:.1} deg from the truth, {alone_detected} of 12 bodies detect it alone"
+            "seed {seed}: joint delta chi2 {delta:.1} (FAP {fap:.2e}), best body alone {best_alone:.1}; {alone_detected} of 12 bodies detect it alone (median alone FAP {:.2}); best basin {off:.1} deg from the truth; truth inside the 90% region ({area90:.0} sq deg): {inside}",
+            alone[6]
         );
-        rows.push((seed, fap, off, alone_detected));
+        rows.push((seed, fap, inside, alone_detected, alone[6], delta / best_alone));
     }
-    for (seed, fap, off, _) in &rows {
+    for (seed, fap, inside, alone_detected, median_alone, ratio) in &rows {
         assert!(*fap < latens::pipeline::DETECTION_FAP, "seed {seed}: not detected jointly (FAP {fap})");
-        // The data pin the direction only to a few degrees along the
-        // mass-distance ridge (the basins of one run span 85-250 au); 10 deg
-        // is a loose bar for a best basin, not a credible region.
-        assert!(*off < 10.0, "seed {seed}: best basin {off:.1} deg from the truth");
+        assert!(*inside, "seed {seed}: the 90% credible region misses the truth");
+        assert!(*alone_detected <= 1, "seed {seed}: {alone_detected} bodies detect it alone");
+        assert!(*median_alone > 0.05, "seed {seed}: the median body alone has FAP {median_alone}");
+        assert!(*ratio > 1.4, "seed {seed}: the joint drop is only {ratio:.2} times the best single body's");
     }
-    // No body alone detects Tamsin in most seeds, and never more than one.
-    let none_alone = rows.iter().filter(|r| r.3 == 0).count();
-    assert!(none_alone >= 2, "bodies alone detected it too often: {rows:?}");
-    assert!(rows.iter().all(|r| r.3 <= 1), "{rows:?}");
     let _ = std::fs::remove_dir_all(&root);
 }
 
@@ -260,4 +265,83 @@ fn a_joint_study_names_the_body_and_file_of_bad_input() {
     assert_eq!(o.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&o.stderr).contains("takes one tracked body"));
     let _ = std::fs::remove_dir_all(&dir);
+}
+
+/// The mass (Earth masses) at which the detection probability first reaches
+/// one half, per distance, from a sensitivity.csv (log-interpolated).
+fn half_masses(csv: &Path) -> Vec<(f64, f64)> {
+    let text = std::fs::read_to_string(csv).unwrap();
+    let mut lines = text.lines().filter(|l| !l.starts_with('#'));
+    let header: Vec<&str> = lines.next().unwrap().split(',').collect();
+    let col = |name: &str| header.iter().position(|h| *h == name).unwrap();
+    let (cm, cd, cp) = (col("mass_earth"), col("distance_au"), col("detection_probability"));
+    let mut by_distance: std::collections::BTreeMap<u64, Vec<(f64, f64)>> = Default::default();
+    let mut distance_of = std::collections::BTreeMap::new();
+    for l in lines {
+        let f: Vec<f64> = l.split(',').map(|x| x.parse().unwrap()).collect();
+        let key = (f[cd] * 1000.0).round() as u64;
+        distance_of.insert(key, f[cd]);
+        by_distance.entry(key).or_default().push((f[cm], f[cp]));
+    }
+    by_distance
+        .into_iter()
+        .filter_map(|(key, mut col)| {
+            col.sort_by(|a, b| a.0.total_cmp(&b.0));
+            let w = col.windows(2).find(|w| w[0].1 < 0.5 && w[1].1 >= 0.5)?;
+            let f = (0.5 - w[0].1) / (w[1].1 - w[0].1);
+            Some((distance_of[&key], (w[0].0.ln() + f * (w[1].0.ln() - w[0].0.ln())).exp()))
+        })
+        .collect()
+}
+
+#[test]
+fn population_sensitivity_follows_the_tidal_cube_law_and_beats_any_one_body() {
+    // A perturber far beyond the tracked bodies acts through its tidal
+    // field, G M r / d^3 across a body's orbit of size r, so the smallest
+    // detectable mass grows as the cube of its distance d. This is the
+    // scaling of published dynamical limits on distant masses (Hogg,
+    // Quinlan & Tremaine 1991, AJ 101, 2274, from memory) and of Fisher
+    // forecasts of what surveys could detect. Through `latens sensitivity`
+    // on the population's observation files, the half-detection mass must
+    // rise as d^(3 +- 0.4) between 150 and 800 au, and the whole population
+    // must reach lower masses than any one of its bodies alone.
+    let root = std::env::temp_dir().join(format!("latens-joint-sens-{}", std::process::id()));
+    std::fs::create_dir_all(&root).unwrap();
+    run_ok(latens().arg("simulate").arg(population_file()).arg("--out").arg(root.join("sim")));
+    let map = |obs: &Path, out: &str| -> Vec<(f64, f64)> {
+        run_ok(
+            latens()
+                .args(["sensitivity", "--obs"])
+                .arg(obs)
+                .arg("--sites")
+                .arg(root.join("sim/sites.csv"))
+                .args(["--mass-earth", "1:1000000", "--distance-au", "150:800", "--grid", "25:5", "--trials", "24"])
+                .args(["--nulls", "100", "--directions", "192", "--distances", "12", "--out"])
+                .arg(root.join(out)),
+        );
+        half_masses(&root.join(out).join("sensitivity.csv"))
+    };
+    let population = map(&root.join("sim/bodies"), "population");
+    assert_eq!(population.len(), 5, "{population:?}");
+    // Least-squares slope of ln M50 against ln d.
+    let n = population.len() as f64;
+    let (sx, sy) = population.iter().fold((0.0, 0.0), |(a, b), (d, m)| (a + d.ln(), b + m.ln()));
+    let (mx, my) = (sx / n, sy / n);
+    let (sxy, sxx) = population
+        .iter()
+        .fold((0.0, 0.0), |(a, b), (d, m)| (a + (d.ln() - mx) * (m.ln() - my), b + (d.ln() - mx).powi(2)));
+    let slope = sxy / sxx;
+    eprintln!("population half-detection masses {population:?}; slope {slope:.2}");
+    assert!((slope - 3.0).abs() < 0.4, "half-detection mass grows as d^{slope:.2}, not d^3");
+    for name in ["Lumen", "Arvel"] {
+        let alone = map(&root.join(format!("sim/bodies/{name}.csv")), name);
+        eprintln!("{name} alone: {alone:?}");
+        for ((d, m_all), (_, m_one)) in population.iter().zip(&alone) {
+            assert!(
+                m_all < m_one,
+                "at {d:.0} au the population needs {m_all:.0} Earth masses, {name} alone {m_one:.0}"
+            );
+        }
+    }
+    let _ = std::fs::remove_dir_all(&root);
 }

@@ -113,6 +113,22 @@ fn kernel_signal_matches_the_full_nonlinear_model() {
     );
     assert!(norm(&nonlinear) > 10.0, "the test signal is too weak to compare");
     assert!(rel < 0.01, "{rel}");
+
+    // The orbit correction the kernel infers for the whole signal is the
+    // shift of a full nonlinear reference fit to the perturbed data (the
+    // fit absorbs what it can of the perturber's pull).
+    let shifted = fit_reference_orbit(&perturbed, &s.sites, &s.model, &s.ephemeris, &settings, Some(start)).unwrap();
+    let mut whole = vec![0.0; nonlinear.len()];
+    kernel.signal(&orbit, &mut whole);
+    whole.iter_mut().for_each(|x| *x *= p.gm_au3_per_day2);
+    let dx = kernel.orbit_correction(&whole).unwrap();
+    for (part, range) in [("position", 0..3), ("velocity", 3..6)] {
+        let want: Vec<f64> = range.clone().map(|i| shifted.state[i] - start[i]).collect();
+        let err: Vec<f64> = range.clone().zip(&want).map(|(i, w)| dx[i] - w).collect();
+        let rel = norm(&err) / norm(&want);
+        eprintln!("orbit correction, {part}: shift {:.3e}, relative difference {rel:.2e}", norm(&want));
+        assert!(rel < 0.03, "{part}: {rel}");
+    }
 }
 
 fn small_search(seed: u64) -> SearchSettings {

@@ -103,15 +103,11 @@ impl InferPlan {
             .map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
         let posterior = super::posterior::settings(args, &out, tracked.kind)?;
         let obs = args.input.obs_files().map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
-        if obs.len() > 1 {
-            for (given, option) in [(args.exclude.is_some(), "--exclude"), (args.resume.is_some(), "--resume")] {
-                if given {
-                    return Err(CliError::bad_input(anyhow::anyhow!(
-                        "{option} applies to one tracked body; --obs gives {} files for a joint study",
-                        obs.len()
-                    )));
-                }
-            }
+        if obs.len() > 1 && args.exclude.is_some() {
+            return Err(CliError::bad_input(anyhow::anyhow!(
+                "--exclude applies to one tracked body; --obs gives {} files for a joint study",
+                obs.len()
+            )));
         }
         Ok(InferPlan {
             obs,
@@ -567,7 +563,7 @@ fn parse_exclude(spec: Option<&str>) -> Result<Vec<usize>, CliError> {
 /// 95% upper limits on the mass, per band of heliocentric distance, from
 /// the posterior samples of a non-detection (log-spaced bands over the
 /// prior's range; bands with fewer than 50 samples are left out).
-fn upper_limits(
+pub(super) fn upper_limits(
     samples: &[latens::pipeline::DerivedSample],
     distance_au: (f64, f64),
 ) -> Vec<latens::io::results::UpperLimitFile> {

@@ -19,16 +19,17 @@ use latens::io::results::{
 use latens::io::write_atomically;
 use latens::perturber::{KeplerOrbit, Scored, SignalKernel};
 use latens::pipeline::{
-    DETECTION_FAP, JointDetection, JointSettings, SUN_WARNING_DEG, SearchGeometry, Study, TrackedArc, detect_joint,
+    Best, DETECTION_FAP, JointDetection, JointPosteriorOutcome, JointSettings, SUN_WARNING_DEG, SearchGeometry, Study,
+    TrackedArc, detect_joint,
 };
 use latens::time::{epoch_from_tdb_days, utc_iso_from_epoch};
 use latens::units::{J2000_JD, RAD_PER_DEG};
 
 /// What a joint run does not give yet.
 const NOT_COMPUTED: [&str; 3] = [
-    "the posterior sampling and the sky search region (the joint study stops at detection and its basins)",
-    "the refinement on the full nonlinear model (the joint figures are the linear kernel's)",
+    "the refinement and the posterior check on the full nonlinear model (the joint figures are the linear kernel's)",
     "outlier rejection (every observation is used)",
+    "prediction (latens predict takes one body's summary)",
 ];
 
 /// Runs a joint study of the plan's bodies and writes its files.
@@ -42,12 +43,32 @@ pub(super) fn execute(plan: &InferPlan) -> Result<(), CliError> {
     let study = Study::new(arcs, &plan.ephemeris, plan.search_epoch)?;
     let settings = JointSettings { search: plan.detection.search.clone(), each_alone: true, leave_one_out: true };
     let found = detect_joint(&study, &settings, &crate::cli::progress::Bars::new())?;
+    let detected = found.verdict.detected();
+
+    // The shared perturber's posterior; where to look only for a detection.
+    let (posterior, posterior_text, mut files) = super::posterior::run_joint(out, &study, &found, &plan.posterior)?;
+    let samples = posterior.run.as_ref().map_or(&[][..], |r| r.samples.as_slice());
+    let upper_limits =
+        if detected { Vec::new() } else { super::infer::upper_limits(samples, settings.search.distance_au) };
+    let sky = match &posterior.run {
+        Some(run) if detected && !run.samples.is_empty() => {
+            let kernel = &found.kernel;
+            Some(super::search::run_at(out, &study, kernel.epoch_tdb_days(), kernel.central_gm(), run)?)
+        }
+        _ => None,
+    };
+    if let Some(s) = &sky {
+        files.extend(s.files.iter().copied());
+    }
 
     let search = SearchGeometry::new(study.wide.as_ref(), study.search_epoch_tdb_days)?;
     let basins: Vec<JointBasinFile> =
         found.search.basins.iter().filter_map(|b| basin_file(b, &found, &search)).collect();
     let mut warnings = found.warnings();
-    let detected = found.verdict.detected();
+    warnings.extend(posterior.warnings.iter().cloned());
+    if let Some(s) = &sky {
+        warnings.extend(s.warnings.iter().cloned());
+    }
     for (k, b) in basins.iter().enumerate() {
         if detected && b.solar_elongation_deg < SUN_WARNING_DEG {
             warnings.push(format!(
@@ -66,7 +87,8 @@ pub(super) fn execute(plan: &InferPlan) -> Result<(), CliError> {
         .iter()
         .zip(&found.evidence)
         .zip(&plan.obs)
-        .map(|((b, e), file)| JointBodyFile {
+        .enumerate()
+        .map(|(k, ((b, e), file))| JointBodyFile {
             name: b.name.clone(),
             file: file.display().to_string(),
             n_observations: b.observations.len(),
@@ -76,6 +98,9 @@ pub(super) fn execute(plan: &InferPlan) -> Result<(), CliError> {
             share_of_best: if total_part > 0.0 { e.delta_chi2_at_best / total_part } else { 0.0 },
             alone_delta_chi2: e.alone.map(|a| a.delta_chi2),
             alone_false_alarm_probability: e.alone.map(|a| a.false_alarm_probability),
+            orbit_correction_km: posterior.corrections.get(k).map(|c| c.position_km),
+            orbit_correction_m_per_s: posterior.corrections.get(k).map(|c| c.velocity_m_per_s),
+            alternatives: posterior.body_alternatives.get(k).cloned().unwrap_or_default(),
             orbit: orbit_file(&b.null),
         })
         .collect();
@@ -107,7 +132,7 @@ pub(super) fn execute(plan: &InferPlan) -> Result<(), CliError> {
             n_null_simulations: found.search.null_maxima.len(),
             largest_null_delta_chi2: found.search.null_maxima.iter().copied().fold(0.0, f64::max),
             detected,
-            verdict: found.verdict_text(),
+            verdict: verdict_with_explanation(found.verdict_text(), detected, &posterior),
         },
         search: SearchStatsFile {
             n_hypotheses: found.search.n_hypotheses,
@@ -122,12 +147,37 @@ pub(super) fn execute(plan: &InferPlan) -> Result<(), CliError> {
             false_alarm_probability: l.false_alarm_probability,
             detected: l.false_alarm_probability < DETECTION_FAP,
         }),
+        posterior: posterior.run.as_ref().map(|r| r.summary.clone()),
+        evidence: posterior.run.as_ref().and_then(|r| r.evidence.clone()),
+        alternatives: posterior.alternatives.clone(),
+        explanation: Some(posterior.explanation.file()),
+        diagnostics: posterior.run.as_ref().map(|r| r.diagnostics.clone()),
+        sky: sky.as_ref().map(|s| s.sky.clone()),
+        upper_limits,
         not_computed: NOT_COMPUTED.iter().map(|s| s.to_string()).collect(),
         warnings,
     };
     write_outputs(out, &summary, &found, &study).map_err(CliError::failed)?;
-    print!("{}", report(&summary, out));
+    let sky_text = sky.as_ref().map_or("", |s| s.text.as_str());
+    print!("{}", report(&summary, out, &posterior_text, sky_text, &files));
     Ok(())
+}
+
+/// The verdict, with the explanation when the data prefer another one.
+fn verdict_with_explanation(mut verdict: String, detected: bool, posterior: &JointPosteriorOutcome) -> String {
+    let ex = &posterior.explanation;
+    if detected && posterior.run.as_ref().is_some_and(|r| r.evidence.is_some()) {
+        match &ex.best {
+            Best::Perturber => {}
+            Best::Undecided => verdict.push_str(&format!("; which explanation is best is undecided: {}", ex.text)),
+            Best::Alternative(name) => {
+                verdict.push_str(&format!("; but the data favour another explanation: {name} ({})", ex.strength))
+            }
+            Best::NoneNeeded => verdict
+                .push_str(&format!("; but the data favour another explanation: no extra effect ({})", ex.strength)),
+        }
+    }
+    verdict
 }
 
 /// A basin's orbit and its place at the search epoch (`None` if unbound).
@@ -171,12 +221,14 @@ fn write_outputs(out: &Path, summary: &JointSummaryFile, found: &JointDetection,
     write_atomically(&out.join("summary.json"), json.as_bytes())?;
     let opt = |x: Option<f64>| x.map_or(String::new(), |v| format!("{v:.6e}"));
     let mut csv = String::from(
-        "name,file,n_observations,null_chi2,null_dof,delta_chi2_at_best,share_of_best,alone_delta_chi2,alone_false_alarm_probability\n",
+        "name,file,n_observations,null_chi2,null_dof,delta_chi2_at_best,share_of_best,alone_delta_chi2,alone_false_alarm_probability,orbit_correction_km_median,orbit_correction_m_per_s_median,nongrav_log10_bayes_factor\n",
     );
     for b in &summary.bodies {
+        let nongrav =
+            b.alternatives.iter().find(|a| a.name.starts_with("non-gravitational")).map(|a| a.log10_bayes_factor);
         let _ = writeln!(
             csv,
-            "{},{},{},{:.4},{},{:.4},{:.4},{},{}",
+            "{},{},{},{:.4},{},{:.4},{:.4},{},{},{},{},{}",
             field(&b.name),
             field(&b.file),
             b.n_observations,
@@ -185,7 +237,10 @@ fn write_outputs(out: &Path, summary: &JointSummaryFile, found: &JointDetection,
             b.delta_chi2_at_best,
             b.share_of_best,
             opt(b.alone_delta_chi2),
-            opt(b.alone_false_alarm_probability)
+            opt(b.alone_false_alarm_probability),
+            opt(b.orbit_correction_km.map(|c| c.median)),
+            opt(b.orbit_correction_m_per_s.map(|c| c.median)),
+            opt(nongrav)
         );
     }
     write_atomically(&out.join("bodies.csv"), csv.as_bytes())?;
@@ -198,7 +253,13 @@ fn write_outputs(out: &Path, summary: &JointSummaryFile, found: &JointDetection,
 }
 
 /// The report printed at the end.
-fn report(s: &JointSummaryFile, out: &Path) -> String {
+fn report(
+    s: &JointSummaryFile,
+    out: &Path,
+    posterior_text: &str,
+    sky_text: &str,
+    files: &[(&'static str, &'static str)],
+) -> String {
     let mut text = String::new();
     let _ = writeln!(
         text,
@@ -238,6 +299,8 @@ fn report(s: &JointSummaryFile, out: &Path) -> String {
             b.solar_elongation_deg
         );
     }
+    text.push_str(posterior_text);
+    text.push_str(sky_text);
     for w in &s.warnings {
         let _ = writeln!(text, "Warning: {w}");
     }
@@ -252,5 +315,8 @@ fn report(s: &JointSummaryFile, out: &Path) -> String {
         "  bodies.csv      one row per body: observations, null chi-square, share of the signal, the body searched alone"
     );
     let _ = writeln!(text, "  bodies/NAME/    each body's reference fit (fit.json, residuals.csv, residuals.png)");
+    for (name, what) in files {
+        let _ = writeln!(text, "  {name:<15} {what}");
+    }
     text
 }

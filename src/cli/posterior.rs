@@ -9,7 +9,8 @@ use super::CliError;
 use super::args::InferArgs;
 use latens::io::write_atomically;
 use latens::pipeline::{
-    DerivedSample, Detection, PipelineError, PosteriorOutcome, PosteriorRun, PosteriorSettings, Study, posterior,
+    DerivedSample, Detection, JointDetection, JointPosteriorOutcome, PipelineError, PosteriorOutcome, PosteriorRun,
+    PosteriorSettings, Study, posterior, posterior_joint,
 };
 use latens::posterior::impostors::{self, ImpostorPriors};
 use latens::units::RAD_PER_DEG;
@@ -64,61 +65,115 @@ pub(super) fn run(
     settings: &PosteriorSettings,
 ) -> Result<Outcome, CliError> {
     let bars = super::progress::Bars::interruptible();
-    let result = posterior(study, detection, settings, &bars).map_err(|e| match e {
+    let result = posterior(study, detection, settings, &bars).map_err(|e| stopped(e, out))?;
+    let mut text = String::new();
+    let mut files = Vec::new();
+    if let Some(run) = &result.run {
+        write_run(out, run, &mut text, &mut files)?;
+    }
+    let _ = writeln!(text, "Explanation: {}", result.explanation.text);
+    Ok(Outcome { result, text, files })
+}
+
+/// The files a stage wrote: name and what it holds.
+pub(super) type Files = Vec<(&'static str, &'static str)>;
+
+/// Runs the posterior of a joint study, writes its files into `out` and
+/// says what it found (the bodies' own orbit corrections included).
+pub(super) fn run_joint(
+    out: &Path,
+    study: &Study,
+    detection: &JointDetection,
+    settings: &PosteriorSettings,
+) -> Result<(JointPosteriorOutcome, String, Files), CliError> {
+    let bars = super::progress::Bars::interruptible();
+    let result = posterior_joint(study, detection, settings, &bars).map_err(|e| stopped(e, out))?;
+    let mut text = String::new();
+    let mut files = Vec::new();
+    if let Some(run) = &result.run {
+        write_run(out, run, &mut text, &mut files)?;
+        let _ = writeln!(
+            text,
+            "Each body's fitted orbit under the perturber moves at the reference epoch by (median, 68%):"
+        );
+        for c in &result.corrections {
+            let _ = writeln!(
+                text,
+                "  {:<20} {:>10.0} km ({:.0} to {:.0}), {:>8.3} m/s ({:.3} to {:.3})",
+                c.name,
+                c.position_km.median,
+                c.position_km.lo68,
+                c.position_km.hi68,
+                c.velocity_m_per_s.median,
+                c.velocity_m_per_s.lo68,
+                c.velocity_m_per_s.hi68
+            );
+        }
+    }
+    let _ = writeln!(text, "Explanation: {}", result.explanation.text);
+    Ok((result, text, files))
+}
+
+/// An interrupted stage says how to finish it; any other error as it is.
+fn stopped(e: PipelineError, out: &Path) -> CliError {
+    match e {
         PipelineError::Interrupted { step, of, checkpoint: Some(checkpoint) } => CliError::failed(anyhow::anyhow!(
             "interrupted at step {step} of {of}; the progress is saved in {checkpoint}: run the same command with --resume {} to finish it",
             out.display()
         )),
         e => super::pipeline_error(e),
-    })?;
-    let mut text = String::new();
-    let mut files = Vec::new();
-    if let Some(run) = &result.run {
-        std::fs::create_dir_all(out)
-            .map_err(|e| CliError::failed(anyhow::anyhow!("creating {}: {e}", out.display())))?;
-        write_posterior_files(out, run)?;
-        files.push((
-            "posterior.csv",
-            "equally weighted posterior samples: mass, elements, sky position at the search epoch",
-        ));
-        files.push(("posterior_corner.png (.svg)", "the posterior of mass, distance and sky position, pair by pair"));
-        files.push((
-            "posterior_trace.png (.svg)",
-            "walkers' paths through the sampler's steps (a convergence check by eye)",
-        ));
-        let pf = &run.summary;
+    }
+}
+
+/// Writes a run's samples and charts and describes the run.
+fn write_run(
+    out: &Path,
+    run: &PosteriorRun,
+    text: &mut String,
+    files: &mut Vec<(&'static str, &'static str)>,
+) -> Result<(), CliError> {
+    std::fs::create_dir_all(out).map_err(|e| CliError::failed(anyhow::anyhow!("creating {}: {e}", out.display())))?;
+    write_posterior_files(out, run)?;
+    files.push((
+        "posterior.csv",
+        "equally weighted posterior samples: mass, elements, sky position at the search epoch",
+    ));
+    files.push(("posterior_corner.png (.svg)", "the posterior of mass, distance and sky position, pair by pair"));
+    files.push((
+        "posterior_trace.png (.svg)",
+        "walkers' paths through the sampler's steps (a convergence check by eye)",
+    ));
+    let pf = &run.summary;
+    let _ = writeln!(
+        text,
+        "Posterior ({} samples, {}): mass {:.2} Earth masses (68%: {:.2} to {:.2}); {:.0} au away at the search epoch (68%: {:.0} to {:.0}); \
+         centred at RA {:.2} deg, Dec {:+.2} deg, half the samples within {:.1} deg",
+        pf.n_samples,
+        run.source.name(),
+        pf.mass_earth.median,
+        pf.mass_earth.lo68,
+        pf.mass_earth.hi68,
+        pf.distance_au.median,
+        pf.distance_au.lo68,
+        pf.distance_au.hi68,
+        pf.mean_ra_deg,
+        pf.mean_dec_deg,
+        pf.sky_radius_deg.median
+    );
+    if let Some(ev) = &run.evidence {
         let _ = writeln!(
             text,
-            "Posterior ({} samples, {}): mass {:.2} Earth masses (68%: {:.2} to {:.2}); {:.0} au away at the search epoch (68%: {:.0} to {:.0}); \
-             centred at RA {:.2} deg, Dec {:+.2} deg, half the samples within {:.1} deg",
-            pf.n_samples,
-            run.source.name(),
-            pf.mass_earth.median,
-            pf.mass_earth.lo68,
-            pf.mass_earth.hi68,
-            pf.distance_au.median,
-            pf.distance_au.lo68,
-            pf.distance_au.hi68,
-            pf.mean_ra_deg,
-            pf.mean_dec_deg,
-            pf.sky_radius_deg.median
-        );
-        if let Some(ev) = &run.evidence {
-            let _ = writeln!(
-                text,
-                "Evidence for a perturber: log10 Bayes factor {:.1} +- {:.1} against none",
-                ev.log10_bayes_factor, ev.log10_bayes_factor_error
-            );
-        }
-        let d = &run.diagnostics;
-        let _ = writeln!(
-            text,
-            "Sampler: {} likelihood evaluations in {:.1} s, {:.0} effective samples; {}",
-            d.likelihood_evaluations, d.sampling_seconds, d.effective_samples, d.advice
+            "Evidence for a perturber: log10 Bayes factor {:.1} +- {:.1} against none",
+            ev.log10_bayes_factor, ev.log10_bayes_factor_error
         );
     }
-    let _ = writeln!(text, "Explanation: {}", result.explanation.text);
-    Ok(Outcome { result, text, files })
+    let d = &run.diagnostics;
+    let _ = writeln!(
+        text,
+        "Sampler: {} likelihood evaluations in {:.1} s, {:.0} effective samples; {}",
+        d.likelihood_evaluations, d.sampling_seconds, d.effective_samples, d.advice
+    );
+    Ok(())
 }
 
 fn write_posterior_files(out: &Path, run: &PosteriorRun) -> Result<(), CliError> {

@@ -10,7 +10,7 @@ use super::posterior::save_chart;
 use latens::frames::{angular_separation, icrf_from_ecliptic};
 use latens::io::results::{ModeFile, SkyFile};
 use latens::io::write_atomically;
-use latens::pipeline::{Detection, PosteriorRun, SUN_WARNING_DEG, SkyProducts, Study, sky_products};
+use latens::pipeline::{Detection, PosteriorRun, SUN_WARNING_DEG, SkyProducts, Study, sky_products_at};
 use latens::skymap::observe::icrs_from_galactic_deg;
 use latens::skymap::{self, DEG2_PER_SR, SkyMap};
 use latens::vec3::Vec3;
@@ -26,9 +26,16 @@ pub(super) struct Outcome {
 /// Computes the sky products of a posterior, writes them into `out` and
 /// says where to look.
 pub(super) fn run(out: &Path, study: &Study, detection: &Detection, run: &PosteriorRun) -> Result<Outcome, CliError> {
+    let (kernel, _) = detection.posterior_kernel();
+    run_at(out, study, kernel.epoch_tdb_days, kernel.central_gm(), run)
+}
+
+/// [`run`] for a posterior whose perturber states are at `t0` (TDB days)
+/// about a central body of GM `gm_sun` (a joint study's).
+pub(super) fn run_at(out: &Path, study: &Study, t0: f64, gm_sun: f64, run: &PosteriorRun) -> Result<Outcome, CliError> {
     let mut text = String::new();
     let fail = |e: String| CliError::failed(anyhow::anyhow!(e));
-    let products = sky_products(study, detection, run)?;
+    let products = sky_products_at(study, t0, gm_sun, run)?;
     let SkyProducts { map, region50: r50, region90: r90, mode_of_leaf: comp, sun, sky, warnings } = products;
     let (area50, area90, modes, safety) = (sky.area50_deg2, sky.area90_deg2, &sky.modes, &sky.safety_warning);
     let epoch_text = sky.search_epoch_utc.clone();

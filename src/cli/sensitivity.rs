@@ -63,13 +63,24 @@ pub(super) fn run(args: &SensitivityArgs) -> Result<(), CliError> {
     let tracked = TrackedBody::parse(&input.tracked_mass, input.kind.as_deref())
         .map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
     let source = EphemerisSource::parse(&input.ephemeris);
-    let obs = input.single_obs("sensitivity").map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+    let files = input.obs_files().map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+    if files.len() > 1 && args.orbit.is_some() {
+        return Err(CliError::bad_input(anyhow::anyhow!(
+            "--orbit places one planned schedule on one orbit; --obs gives {} files (a population's sensitivity is mapped from its observation files)",
+            files.len()
+        )));
+    }
     let study = match &args.orbit {
         None => {
-            let arc = TrackedArc::load(&obs, input.sites.as_deref(), &known, tracked)?;
-            Study::new(vec![arc], &source, None)?
+            // One body, or a population mapped together.
+            let arcs = files
+                .iter()
+                .map(|f| TrackedArc::load(f, input.sites.as_deref(), &known, tracked.clone()))
+                .collect::<Result<Vec<_>, _>>()?;
+            Study::new(arcs, &source, None)?
         }
         Some(orbit_path) => {
+            let obs = input.single_obs("sensitivity").map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
             let (t0, state) = read_orbit(orbit_path)?;
             let arc = TrackedArc::load_schedule(&obs, input.sites.as_deref(), &known, tracked)?;
             let mut study = Study::new(vec![arc], &source, None)?;

@@ -510,6 +510,18 @@ pub struct JointSummaryFile {
     pub basins: Vec<JointBasinFile>,
     /// The search without the body that carries most of the signal.
     pub leave_one_out: Option<LeaveOneOutFile>,
+    /// The shared perturber's posterior (null when not sampled).
+    pub posterior: Option<PosteriorFile>,
+    pub evidence: Option<EvidenceFile>,
+    /// The alternatives over all bodies together: a push or offsets per
+    /// body (their Bayes factors multiply), the known planets' GMs shared.
+    pub alternatives: Vec<ImpostorFile>,
+    pub explanation: Option<ExplanationFile>,
+    pub diagnostics: Option<DiagnosticsFile>,
+    /// Where to look (a detection with a posterior only).
+    pub sky: Option<SkyFile>,
+    /// 95% mass limits by distance (a non-detection with a posterior only).
+    pub upper_limits: Vec<UpperLimitFile>,
     /// What a joint run does not give (yet), so nobody looks for it.
     pub not_computed: Vec<String>,
     pub warnings: Vec<String>,
@@ -530,6 +542,13 @@ pub struct JointBodyFile {
     /// The body searched alone (null when not run).
     pub alone_delta_chi2: Option<f64>,
     pub alone_false_alarm_probability: Option<f64>,
+    /// How far the shared perturber moves this body's fitted position
+    /// (km) and velocity (m/s) at the reference epoch, over the posterior
+    /// (null without a posterior).
+    pub orbit_correction_km: Option<IntervalFile>,
+    pub orbit_correction_m_per_s: Option<IntervalFile>,
+    /// The alternatives that are this body's own, weighed on it alone.
+    pub alternatives: Vec<ImpostorFile>,
     pub orbit: OrbitFile,
 }
 

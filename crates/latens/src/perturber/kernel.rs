@@ -455,6 +455,55 @@ impl LinearKernel {
         }
     }
 
+    /// The orbit correction (au, au/day at the epoch) that absorbs the most
+    /// of an unprojected whitened signal: the least-squares solution of
+    /// M dx = s over the used observations (M: the whitened partials of the
+    /// observations with respect to the state at the epoch). A reference
+    /// fit made without the perturber has its orbit shifted by this much;
+    /// `None` when the partials are degenerate.
+    pub fn orbit_correction(&self, signal: &[f64]) -> Option<[f64; 6]> {
+        let mut ata = [[0.0; 6]; 6];
+        let mut atb = [0.0; 6];
+        for (k, m) in self.obs_m.iter().enumerate() {
+            if !self.used[k] {
+                continue;
+            }
+            for (row, s) in m.iter().zip(&signal[2 * k..2 * k + 2]) {
+                for i in 0..6 {
+                    atb[i] += row[i] * s;
+                    for j in 0..6 {
+                        ata[i][j] += row[i] * row[j];
+                    }
+                }
+            }
+        }
+        // The normal matrix spans scales from au to au/day: scale it to a
+        // unit diagonal, then solve by eigen-decomposition (a pseudo-inverse
+        // where a direction is not constrained).
+        let d: Vec<f64> = (0..6).map(|i| ata[i][i].sqrt()).collect();
+        if d.iter().any(|&x| x.is_nan() || x <= 0.0) {
+            return None;
+        }
+        let scaled = faer::Mat::from_fn(6, 6, |i, j| ata[i][j] / (d[i] * d[j]));
+        let eig = scaled.self_adjoint_eigen(faer::Side::Lower).ok()?;
+        let (lambda, q) = (eig.S().column_vector(), eig.U());
+        let lmax = (0..6).map(|i| lambda[i]).fold(0.0, f64::max);
+        let mut x = [0.0; 6];
+        for j in 0..6 {
+            if lambda[j] <= 1e-12 * lmax {
+                continue;
+            }
+            let qb: f64 = (0..6).map(|i| q[(i, j)] * atb[i] / d[i]).sum();
+            for (i, xi) in x.iter_mut().enumerate() {
+                *xi += q[(i, j)] * qb / lambda[j];
+            }
+        }
+        for (xi, di) in x.iter_mut().zip(&d) {
+            *xi /= di;
+        }
+        Some(x)
+    }
+
     /// (s.y, s.s) of a projected signal s against the residuals y.
     pub fn signal_products(&self, projected: &[f64]) -> (f64, f64) {
         (dot(projected, &self.residuals), dot(projected, projected))

@@ -22,7 +22,7 @@
 use rand::SeedableRng;
 use rand_distr::{Distribution, StandardNormal};
 
-use super::kernel::LinearKernel;
+use super::kernel::{KeplerOrbit, SignalKernel};
 use crate::frames::icrf_from_ecliptic;
 use crate::vec3::Vec3;
 
@@ -104,11 +104,16 @@ pub struct Configuration {
 
 /// The configurations drawn at distance index `di` (seeded by distance
 /// index, so every shard draws the same ones).
-pub fn configurations(kernel: &LinearKernel, settings: &SensitivitySettings, di: usize) -> Vec<Configuration> {
+pub fn configurations<K: SignalKernel + ?Sized>(
+    kernel: &K,
+    settings: &SensitivitySettings,
+    di: usize,
+) -> Vec<Configuration> {
     let d = log_grid(settings.distance_au, settings.n_distances, di);
     let pole = icrf_from_ecliptic(Vec3::new(0.0, 0.0, 1.0));
     let mut rng = rand::rngs::StdRng::seed_from_u64(settings.seed.wrapping_mul(0x9E37_79B9).wrapping_add(di as u64));
     let mut out = Vec::with_capacity(settings.n_trials);
+    let mut signal = vec![0.0; kernel.n_residuals()];
     let mut attempts = 0;
     while out.len() < settings.n_trials && attempts < 50 * settings.n_trials {
         attempts += 1;
@@ -130,10 +135,13 @@ pub fn configurations(kernel: &LinearKernel, settings: &SensitivitySettings, di:
         let psi = std::f64::consts::TAU * rand_unit(&mut rng);
         let speed = (0.75 + 0.5 * rand_unit(&mut rng)) * (kernel.central_gm() / d).sqrt();
         let v = (e1 * psi.cos() + e2 * psi.sin()) * speed;
-        let Some(signal) = kernel.projected_signal(r, v, 1.0) else { continue };
-        if kernel.closest_approach(r, v) < settings.min_separation_au {
+        let Some(orbit) = KeplerOrbit::from_state(kernel.central_gm(), r, v, kernel.epoch_tdb_days()) else {
+            continue;
+        };
+        if kernel.signal(&orbit, &mut signal) < settings.min_separation_au {
             continue;
         }
+        kernel.project(&mut signal);
         out.push(Configuration {
             position_au: r,
             velocity_au_per_day: v,
@@ -144,7 +152,7 @@ pub fn configurations(kernel: &LinearKernel, settings: &SensitivitySettings, di:
 }
 
 /// Signal amplitudes (per unit GM) of the trials at distance index `di`.
-pub fn trial_amplitudes(kernel: &LinearKernel, settings: &SensitivitySettings, di: usize) -> Vec<f64> {
+pub fn trial_amplitudes<K: SignalKernel + ?Sized>(kernel: &K, settings: &SensitivitySettings, di: usize) -> Vec<f64> {
     configurations(kernel, settings, di).iter().map(|c| c.amplitude_per_gm).collect()
 }
 
@@ -164,8 +172,8 @@ fn rand_unit(rng: &mut rand::rngs::StdRng) -> f64 {
 }
 
 /// The cells with indices in `cells` (mass index, distance index).
-pub fn compute_cells(
-    kernel: &LinearKernel,
+pub fn compute_cells<K: SignalKernel + ?Sized>(
+    kernel: &K,
     settings: &SensitivitySettings,
     threshold_delta_chi2: f64,
     cells: &[(usize, usize)],

@@ -18,6 +18,7 @@
 
 mod detection;
 mod joint;
+mod joint_posterior;
 mod posterior;
 mod predict;
 mod sensitivity;
@@ -34,6 +35,7 @@ pub use joint::{
     AloneResult, BodyEvidence, BodyFit, JointDetection, JointSettings, LeaveOneOut, detect_joint, fit_bodies,
     joint_epoch,
 };
+pub use joint_posterior::{BodyCorrection, JointPosteriorOutcome, posterior_joint};
 pub use posterior::{
     Best, DerivedSample, Explanation, PERTURBER, PosteriorOutcome, PosteriorRun, PosteriorSettings, SAMPLE_COLUMNS,
     SampleSource, SearchGeometry, geometry_at, next_months, posterior,
@@ -41,7 +43,7 @@ pub use posterior::{
 pub use predict::{OrbitSample, Prediction, predict};
 pub use sensitivity::{SensitivityMap, SensitivityPlan, sensitivity};
 pub use simulation::{SimulatedScenario, TRACK_SPACING_DAYS, TrackPoint, simulate_population, simulate_scenario};
-pub use sky::{SUN_WARNING_DEG, SkyProducts, sky_products};
+pub use sky::{SUN_WARNING_DEG, SkyProducts, sky_products, sky_products_at};
 pub use study::{EphemerisSource, Study, TrackedArc, force_model, parse_known};
 pub use table::Table;
 

@@ -342,7 +342,7 @@ pub(super) fn fingerprint(residuals: &[f64], prior: &PerturberPrior, settings: &
     format!("{h:016x}")
 }
 
-fn interval(values: &[f64]) -> IntervalFile {
+pub(super) fn interval(values: &[f64]) -> IntervalFile {
     let q = quantiles(values, &[0.5, 0.16, 0.84, 0.025, 0.975]);
     IntervalFile { median: q[0], lo68: q[1], hi68: q[2], lo95: q[3], hi95: q[4] }
 }
@@ -374,21 +374,7 @@ pub fn posterior(
         None => warnings.push("the known-planet mass alternative could not be weighed (no planet with a published GM uncertainty, or the ephemeris does not cover the arc)".into()),
     }
     let compared: Vec<impostors::Comparison> = models.iter().map(|m| impostors::compare(null_kernel, m)).collect();
-    let alternatives: Vec<ImpostorFile> = compared
-        .iter()
-        .map(|c| ImpostorFile {
-            name: c.name.clone(),
-            description: c.description.clone(),
-            n_parameters: c.n_parameters,
-            delta_chi2: c.delta_chi2,
-            log10_bayes_factor: c.ln_bayes_factor / std::f64::consts::LN_10,
-            estimates: c
-                .estimates
-                .iter()
-                .map(|(p, m, s, u)| EstimateFile { parameter: p.clone(), mean: *m, sigma: *s, unit: u.clone() })
-                .collect(),
-        })
-        .collect();
+    let alternatives: Vec<ImpostorFile> = compared.iter().map(impostor_file).collect();
 
     let prior = PerturberPrior {
         mass_earth: search_settings.mass_earth,
@@ -461,8 +447,24 @@ pub fn posterior(
     })
 }
 
+/// The file form of an alternative's comparison.
+pub(super) fn impostor_file(c: &impostors::Comparison) -> ImpostorFile {
+    ImpostorFile {
+        name: c.name.clone(),
+        description: c.description.clone(),
+        n_parameters: c.n_parameters,
+        delta_chi2: c.delta_chi2,
+        log10_bayes_factor: c.ln_bayes_factor / std::f64::consts::LN_10,
+        estimates: c
+            .estimates
+            .iter()
+            .map(|(p, m, s, u)| EstimateFile { parameter: p.clone(), mean: *m, sigma: *s, unit: u.clone() })
+            .collect(),
+    }
+}
+
 /// The linear samples thinned to at most 5000.
-fn capped(linear: &[(Vec<f64>, f64)]) -> Vec<(Vec<f64>, f64)> {
+pub(super) fn capped(linear: &[(Vec<f64>, f64)]) -> Vec<(Vec<f64>, f64)> {
     let step = (linear.len() / 5000).max(1);
     linear.iter().step_by(step).cloned().collect()
 }
@@ -760,7 +762,7 @@ pub const PERTURBER: &str = "an unseen perturber";
 /// of the evidences it compares; inside that the verdict is "undecided".
 /// Without a posterior the perturber was not weighed, and the text says
 /// so instead of ranking the others above it.
-fn explain(perturber: Option<(f64, f64)>, impostors: &[ImpostorFile]) -> Explanation {
+pub(super) fn explain(perturber: Option<(f64, f64)>, impostors: &[ImpostorFile]) -> Explanation {
     let mut options: Vec<(String, f64, f64)> = vec![("no extra effect (noise alone)".into(), 0.0, 0.0)];
     if let Some((b, err)) = perturber {
         options.push((PERTURBER.into(), b, err));

@@ -5,7 +5,7 @@
 use super::{PipelineError, Study};
 use crate::perturber::search::SearchSettings;
 use crate::perturber::sensitivity::{Cell, SensitivitySettings, compute_cells, probability_grid};
-use crate::perturber::{LinearKernel, grid_search};
+use crate::perturber::{LinearKernel, SignalKernel, grid_search};
 use crate::progress::Observer;
 use crate::reference::{ReferenceSettings, fit_reference_orbit, observing_geometry};
 
@@ -80,15 +80,23 @@ impl SensitivityMap {
     }
 }
 
-/// Maps the detection probability over mass and distance for a one-body
-/// study: the reference fit, the kernel, the threshold from the search's
-/// maxima on noise alone, then the cells.
+/// Maps the detection probability over mass and distance: the reference
+/// fit, the kernel, the threshold from the search's maxima on noise alone,
+/// then the cells. A study of several bodies maps what they reveal
+/// together: their kernels at one common epoch side by side (the joint
+/// kernel of [`super::detect_joint`]), the threshold from the joint
+/// search's nulls, and each trial's signal amplitude over all bodies.
 pub fn sensitivity(
     study: &Study,
     plan: &SensitivityPlan,
     observer: &dyn Observer,
 ) -> Result<SensitivityMap, PipelineError> {
     plan.check()?;
+    if study.bodies.len() > 1 {
+        let (_, _, kernel) = super::joint::fit_bodies(study, observer)?;
+        let zeros = vec![0.0; kernel.n_residuals()];
+        return Ok(map_with(&kernel.with_residuals(&zeros), plan, observer));
+    }
     let arc = study.single()?;
     let ephemeris = study.ephemeris.as_ref();
     observer.note("Fitting the reference orbit and building the kernel...");
@@ -99,18 +107,25 @@ pub fn sensitivity(
         .map_err(PipelineError::failed("observing geometry"))?;
     let kernel = LinearKernel::build(&null, &arc.observations, geometry, &arc.model, ephemeris)
         .map_err(PipelineError::failed("linear kernel"))?;
-    // The detection threshold of `detect` for these data: the (1 - fap)
-    // quantile of its search maxima on noise alone.
-    observer.note("Calibrating the detection threshold with null simulations of the search...");
     let zeros = vec![0.0; kernel.n_residuals()];
-    let nulls = grid_search(&kernel.with_residuals(&zeros), &plan.search, &crate::progress::Quiet);
+    Ok(map_with(&kernel.with_residuals(&zeros), plan, observer))
+}
+
+/// The map of a plan through any kernel (one body's or several bodies').
+fn map_with<K: SignalKernel + ?Sized>(kernel: &K, plan: &SensitivityPlan, observer: &dyn Observer) -> SensitivityMap {
+    // The detection threshold of `detect` for these data: the (1 - fap)
+    // quantile of its search maxima on noise alone (the null simulations
+    // draw their own noise: the kernel comes with zero residuals, so the
+    // search of the data themselves costs nothing).
+    observer.note("Calibrating the detection threshold with null simulations of the search...");
+    let nulls = grid_search(kernel, &plan.search, &crate::progress::Quiet);
     let mut maxima = nulls.null_maxima.clone();
     maxima.sort_by(f64::total_cmp);
     let q = ((1.0 - plan.false_alarm_probability) * maxima.len() as f64).ceil() as usize;
     let threshold = maxima[q.clamp(1, maxima.len()) - 1];
     let settings = SensitivitySettings { min_separation_au: plan.search.min_separation_au, ..plan.map.clone() };
-    let cells = compute_cells(&kernel, &settings, threshold, &plan.cells(), observer);
-    Ok(SensitivityMap { threshold_delta_chi2: threshold, cells, settings })
+    let cells = compute_cells(kernel, &settings, threshold, &plan.cells(), observer);
+    SensitivityMap { threshold_delta_chi2: threshold, cells, settings }
 }
 
 impl Study {

@@ -75,17 +75,27 @@ fn when(text: &str, what: &str) -> Result<f64, PipelineError> {
 /// seed plus 1000 k). The first result's truth lists the other bodies.
 pub fn simulate_population(s: &ScenarioFile, name: &str) -> Result<Vec<SimulatedScenario>, PipelineError> {
     let bodies = s.all_bodies();
-    let mut out: Vec<SimulatedScenario> = bodies
-        .iter()
-        .enumerate()
-        .map(|(k, b)| {
-            let mut one = s.clone();
-            one.tracked = b.clone();
-            one.more_bodies.clear();
-            one.survey.seed = s.survey.seed.wrapping_add(1000 * k as u64);
-            simulate_scenario(&one, &format!("{name} ({})", b.name))
-        })
-        .collect::<Result<_, _>>()?;
+    let one_body = |k: usize, search_epoch: Option<String>| {
+        let mut one = s.clone();
+        one.tracked = bodies[k].clone();
+        one.more_bodies.clear();
+        one.survey.seed = s.survey.seed.wrapping_add(1000 * k as u64);
+        if search_epoch.is_some() {
+            one.search.epoch = search_epoch;
+        }
+        simulate_scenario(&one, &format!("{name} ({})", bodies[k].name))
+    };
+    let mut out: Vec<SimulatedScenario> = (0..bodies.len()).map(|k| one_body(k, None)).collect::<Result<_, _>>()?;
+    // The truth's place at the search epoch a joint study takes by default:
+    // the last observation of any body (the first body alone may end
+    // earlier). Its observations do not change beyond rounding (same seed).
+    if s.search.epoch.is_none() {
+        let last = out.iter().flat_map(|o| o.observations.last()).map(|o| o.t_tdb_days).fold(f64::MIN, f64::max);
+        let first_last = out[0].observations.last().map_or(last, |o| o.t_tdb_days);
+        if last > first_last {
+            out[0] = one_body(0, Some(format!("JD {:.9} TDB", J2000_JD + last)))?;
+        }
+    }
     let more: Vec<_> = out[1..].iter().map(|o| o.truth.tracked.clone()).collect();
     out[0].truth.more_bodies = more;
     out[0].truth.n_observations = out.iter().map(|o| o.observations.len()).sum();

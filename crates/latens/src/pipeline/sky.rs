@@ -36,11 +36,17 @@ pub struct SkyProducts {
 /// credible regions, the modes with what an observer needs of each, and the
 /// safety and crowding warnings.
 pub fn sky_products(study: &Study, detection: &Detection, run: &PosteriorRun) -> Result<SkyProducts, PipelineError> {
+    let (kernel, _) = detection.posterior_kernel();
+    sky_products_at(study, kernel.epoch_tdb_days, kernel.central_gm(), run)
+}
+
+/// [`sky_products`] of a posterior whose perturber states are at `t0`
+/// (TDB days) about a central body of GM `gm_sun`: any study's, one body's
+/// or several bodies' together.
+pub fn sky_products_at(study: &Study, t0: f64, gm_sun: f64, run: &PosteriorRun) -> Result<SkyProducts, PipelineError> {
     let samples = run.samples.as_slice();
     let wide = study.wide.as_ref();
     let search = SearchGeometry::new(wide, study.search_epoch_tdb_days)?;
-    let (kernel, _) = detection.posterior_kernel();
-    let (t0, gm_sun) = (kernel.epoch_tdb_days, kernel.central_gm());
     let mut warnings = Vec::new();
     let directions: Vec<Vec3> = samples.iter().map(|s| s.direction).collect();
     let map = SkyMap::from_directions(&directions);

@@ -237,8 +237,14 @@ pub fn offset_model(kernel: &LinearKernel, observations: &[Observation], priors:
 
 /// Fits and weighs a linear model against the whitened residuals.
 pub fn compare(kernel: &LinearKernel, model: &LinearModel) -> Comparison {
+    compare_with(&kernel.residuals, model)
+}
+
+/// Fits and weighs a linear model against whitened residuals `y` (the
+/// model's columns laid out as `y` is: one body's, or several bodies' side
+/// by side).
+pub fn compare_with(y: &[f64], model: &LinearModel) -> Comparison {
     let k = model.columns.len();
-    let y = &kernel.residuals;
     let dot = |a: &[f64], b: &[f64]| a.iter().zip(b).map(|(x, y)| x * y).sum::<f64>();
     let f = Mat::from_fn(k, k, |i, j| dot(&model.columns[i], &model.columns[j]));
     let b: Vec<f64> = model.columns.iter().map(|c| dot(c, y)).collect();
