@@ -65,7 +65,7 @@ fn main() {
                 .flat_map(|year| {
                     (0..10).map(move |night| T0 - 15.0 * 365.25 + 365.25 * year as f64 + 3.0 * night as f64)
                 })
-                .map(|t| t + 120.0 + 11.0 * k as f64)
+                .map(|t| t + 120.0 + (11 * k % 240) as f64)
                 .collect();
             let plan = SurveyPlan {
                 times_tdb_days: times,

@@ -345,3 +345,85 @@ fn population_sensitivity_follows_the_tidal_cube_law_and_beats_any_one_body() {
     }
     let _ = std::fs::remove_dir_all(&root);
 }
+
+#[test]
+fn one_ades_file_with_designations_is_the_same_study_as_one_file_per_body() {
+    // Three bodies of the population, written once as one Latens CSV file
+    // per body and once as a single ADES PSV file whose `permID` column
+    // tells them apart (ADES: the IAU's Astrometry Data Exchange Standard,
+    // PSV form): `latens infer` must see the same three bodies, named by
+    // their designations, and give the same joint figures.
+    let mut s = scenario::read(&population_file()).unwrap();
+    s.more_bodies.truncate(2);
+    let sims = simulate_population(&s, "population.toml").unwrap();
+    let names: Vec<String> = s.all_bodies().into_iter().map(|b| b.name).collect();
+    let dir = std::env::temp_dir().join(format!("latens-joint-ades-{}", std::process::id()));
+    let each = dir.join("each");
+    std::fs::create_dir_all(&each).unwrap();
+    let site = &s.survey.sites[0];
+    std::fs::write(
+        dir.join("sites.csv"),
+        format!("name,lon_deg,lat_deg,height_m\n{},{},{},{}\n", site.name, site.lon_deg, site.lat_deg, site.height_m),
+    )
+    .unwrap();
+    let mut psv = String::from("# version=2017\npermID|obsTime|ra|dec|rmsRA|rmsDec|stn\n");
+    for (sim, name) in sims.iter().zip(&names) {
+        let mut csv = String::from("epoch_utc,ra_deg,dec_deg,sigma_ra_arcsec,sigma_dec_arcsec,site\n");
+        for o in &sim.observations {
+            let (ra, dec) = (o.ra_rad.to_degrees(), o.dec_rad.to_degrees());
+            csv.push_str(&format!(
+                "{},{ra:.10},{dec:.10},{},{},{}\n",
+                o.epoch_text, o.sigma_ra_arcsec, o.sigma_dec_arcsec, o.site
+            ));
+            psv.push_str(&format!(
+                "{name}|{}|{ra:.10}|{dec:.10}|{}|{}|{}\n",
+                o.epoch_text, o.sigma_ra_arcsec, o.sigma_dec_arcsec, o.site
+            ));
+        }
+        std::fs::write(each.join(format!("{name}.csv")), csv).unwrap();
+    }
+    std::fs::write(dir.join("all.psv"), psv).unwrap();
+    let infer = |obs: &Path, out: &str| -> serde_json::Value {
+        run_ok(
+            latens()
+                .args(["infer", "--obs"])
+                .arg(obs)
+                .arg("--sites")
+                .arg(dir.join("sites.csv"))
+                .args(["--directions", "48", "--distances", "4", "--nulls", "400", "--no-posterior", "--out"])
+                .arg(dir.join(out)),
+        );
+        json(&dir.join(out).join("summary.json"))
+    };
+    let (a, b) = (infer(&each, "from_files"), infer(&dir.join("all.psv"), "from_ades"));
+    let bodies = |v: &serde_json::Value| -> Vec<(String, f64)> {
+        v["bodies"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|b| (b["name"].as_str().unwrap().to_string(), b["null_chi2"].as_f64().unwrap()))
+            .collect()
+    };
+    let (ba, bb) = (bodies(&a), bodies(&b));
+    assert_eq!(ba.iter().map(|x| &x.0).collect::<Vec<_>>(), names.iter().collect::<Vec<_>>());
+    assert_eq!(bb.iter().map(|x| &x.0).collect::<Vec<_>>(), names.iter().collect::<Vec<_>>());
+    for ((_, x), (_, y)) in ba.iter().zip(&bb) {
+        assert!((x - y).abs() <= 1e-9 * x.abs(), "null chi-square {x} from files, {y} from ADES");
+    }
+    let (da, db) = (a["detection"]["delta_chi2"].as_f64().unwrap(), b["detection"]["delta_chi2"].as_f64().unwrap());
+    assert!((da - db).abs() <= 1e-6 * da.abs().max(1.0), "joint delta chi2 {da} from files, {db} from ADES");
+    assert!(b["bodies"][0]["file"].as_str().unwrap().ends_with("all.psv"));
+
+    // A row without a designation among rows with one is refused, naming
+    // the file, the line and the field.
+    let mut text = std::fs::read_to_string(dir.join("all.psv")).unwrap();
+    let third = text.lines().nth(4).unwrap().to_string();
+    let (_, rest) = third.split_once('|').unwrap();
+    text = text.replacen(&third, &format!("|{rest}"), 1);
+    std::fs::write(dir.join("unnamed.psv"), &text).unwrap();
+    let o = latens().args(["infer", "--obs"]).arg(dir.join("unnamed.psv")).output().unwrap();
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert_eq!(o.status.code(), Some(2), "{err}");
+    assert!(err.contains("unnamed.psv") && err.contains('5') && err.contains("permID"), "{err}");
+    let _ = std::fs::remove_dir_all(&dir);
+}

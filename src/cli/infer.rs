@@ -127,7 +127,27 @@ impl InferPlan {
 /// `latens infer`: one body, or several searched jointly.
 pub(super) fn run(args: &InferArgs) -> Result<(), CliError> {
     let plan = InferPlan::from_args(args)?;
-    if plan.obs.len() > 1 { super::joint::execute(&plan) } else { execute(&plan).map(|_| ()) }
+    // Every body of every file: several make a joint study (a file may hold
+    // several, told apart by a designation column).
+    let arcs = plan
+        .obs
+        .iter()
+        .map(|p| TrackedArc::load_all(p, plan.sites.as_deref(), &plan.known, plan.tracked.clone()))
+        .collect::<Result<Vec<_>, _>>()?
+        .into_iter()
+        .flatten()
+        .collect::<Vec<_>>();
+    if arcs.len() > 1 {
+        if !plan.excluded_lines.is_empty() {
+            return Err(CliError::bad_input(anyhow::anyhow!(
+                "--exclude applies to one tracked body; the observations hold {} bodies",
+                arcs.len()
+            )));
+        }
+        super::joint::execute(&plan, arcs)
+    } else {
+        execute(&plan).map(|_| ())
+    }
 }
 
 /// Runs a checked plan: the study, the stages, the files and the report.

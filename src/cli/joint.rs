@@ -33,13 +33,12 @@ const NOT_COMPUTED: [&str; 3] = [
 ];
 
 /// Runs a joint study of the plan's bodies and writes its files.
-pub(super) fn execute(plan: &InferPlan) -> Result<(), CliError> {
+pub(super) fn execute(plan: &InferPlan, arcs: Vec<TrackedArc>) -> Result<(), CliError> {
     let out = plan.out.as_path();
-    let arcs = plan
-        .obs
+    let sources: Vec<String> = arcs
         .iter()
-        .map(|p| TrackedArc::load(p, plan.sites.as_deref(), &plan.known, plan.tracked.clone()))
-        .collect::<Result<Vec<_>, _>>()?;
+        .map(|a| a.observations.first().and_then(|o| o.source.rsplit_once(':')).map_or("", |(f, _)| f).to_string())
+        .collect();
     let study = Study::new(arcs, &plan.ephemeris, plan.search_epoch)?;
     let settings = JointSettings { search: plan.detection.search.clone(), each_alone: true, leave_one_out: true };
     let found = detect_joint(&study, &settings, &crate::cli::progress::Bars::new())?;
@@ -86,11 +85,11 @@ pub(super) fn execute(plan: &InferPlan) -> Result<(), CliError> {
         .bodies
         .iter()
         .zip(&found.evidence)
-        .zip(&plan.obs)
+        .zip(&sources)
         .enumerate()
         .map(|(k, ((b, e), file))| JointBodyFile {
             name: b.name.clone(),
-            file: file.display().to_string(),
+            file: file.clone(),
             n_observations: b.observations.len(),
             null_chi2: b.null.chi2,
             null_dof: b.null.dof,
@@ -210,6 +209,13 @@ fn basin_file(b: &Scored, found: &JointDetection, search: &SearchGeometry) -> Op
     })
 }
 
+/// A body's directory name: its name with path separators, spaces and
+/// other characters a file system may refuse replaced by `_`.
+fn dir_name(name: &str) -> String {
+    let safe: String = name.chars().map(|c| if c.is_alphanumeric() || "-_.+".contains(c) { c } else { '_' }).collect();
+    if safe.trim_matches('.').is_empty() { format!("body_{safe}") } else { safe }
+}
+
 /// A CSV field, quoted when it holds a separator, a quote or a line break.
 fn field(text: &str) -> String {
     if text.contains([',', '"', '\n', '\r']) { format!("\"{}\"", text.replace('"', "\"\"")) } else { text.into() }
@@ -245,7 +251,7 @@ fn write_outputs(out: &Path, summary: &JointSummaryFile, found: &JointDetection,
     }
     write_atomically(&out.join("bodies.csv"), csv.as_bytes())?;
     for (b, arc) in found.bodies.iter().zip(&study.bodies) {
-        let dir = out.join("bodies").join(&b.name);
+        let dir = out.join("bodies").join(dir_name(&b.name));
         std::fs::create_dir_all(&dir).map_err(|e| anyhow::anyhow!("creating {}: {e}", dir.display()))?;
         ResidualProducts::build(&b.null, &b.observations, &arc.model, study.ephemeris.description()).write(&dir)?;
     }

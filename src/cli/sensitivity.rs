@@ -73,10 +73,13 @@ pub(super) fn run(args: &SensitivityArgs) -> Result<(), CliError> {
     let study = match &args.orbit {
         None => {
             // One body, or a population mapped together.
-            let arcs = files
+            let arcs: Vec<TrackedArc> = files
                 .iter()
-                .map(|f| TrackedArc::load(f, input.sites.as_deref(), &known, tracked.clone()))
-                .collect::<Result<Vec<_>, _>>()?;
+                .map(|f| TrackedArc::load_all(f, input.sites.as_deref(), &known, tracked.clone()))
+                .collect::<Result<Vec<_>, _>>()?
+                .into_iter()
+                .flatten()
+                .collect();
             Study::new(arcs, &source, None)?
         }
         Some(orbit_path) => {

@@ -140,9 +140,103 @@ pub fn read_schedule(path: &Path, sites: &SiteTable, min_count: usize) -> Result
     read(path, sites, min_count, false)
 }
 
+/// The columns that name the body an observation is of: ADES's permanent
+/// designation, provisional designation and tracklet name (the first filled
+/// one names the body), and Latens CSV's `body`.
+const ADES_DESIGNATIONS: [&str; 3] = ["permID", "provID", "trkSub"];
+const CSV_DESIGNATION: &str = "body";
+
+/// One body's observations in a file of several, with its designation.
+pub type BodyObservations = (Option<String>, Vec<Observation>);
+
+/// Reads a file that may hold several bodies' observations, told apart by
+/// a designation column (ADES `permID`, `provID` or `trkSub`, the first
+/// filled; Latens CSV `body`): one list per body, in order of first
+/// appearance, each with its designation (None when the file names no
+/// body). Every body needs `min_count` observations; a row without a
+/// designation in a file where others have one is refused. Errors name the
+/// file and the line as in the file.
+pub fn read_bodies(path: &Path, sites: &SiteTable, min_count: usize) -> Result<Vec<BodyObservations>, InputError> {
+    let file = path.display().to_string();
+    let text = read_text(path)?;
+    let ades = text
+        .lines()
+        .map(str::trim)
+        .find(|l| !l.is_empty() && !l.starts_with('#') && !l.starts_with('!'))
+        .is_some_and(|h| h.contains('|'));
+    let table = Table::parse(&text, &file, if ades { '|' } else { ',' })?;
+    let designation = |row: &Row| -> Option<String> {
+        let names: &[&str] = if ades { &ADES_DESIGNATIONS } else { &[CSV_DESIGNATION] };
+        names.iter().filter_map(|n| row.optional_text(n)).find(|t| !t.is_empty()).map(str::to_string)
+    };
+    let mut order: Vec<String> = Vec::new();
+    let mut line_body: HashMap<usize, usize> = HashMap::new();
+    let mut unnamed: Option<usize> = None;
+    for row in &table.rows {
+        match designation(row) {
+            Some(d) => {
+                let k = order.iter().position(|o| *o == d).unwrap_or_else(|| {
+                    order.push(d.clone());
+                    order.len() - 1
+                });
+                line_body.insert(row.line, k);
+            }
+            None => unnamed = unnamed.or(Some(row.line)),
+        }
+    }
+    if order.is_empty() {
+        return Ok(vec![(None, read_table_text(&text, &file, sites, min_count, true)?)]);
+    }
+    if let Some(line) = unnamed {
+        let field = if ades { ADES_DESIGNATIONS.join("/") } else { CSV_DESIGNATION.to_string() };
+        return Err(InputError {
+            file,
+            line,
+            field: Some(field),
+            message: "this row names no body while other rows do: every row of a file with several bodies needs its designation".into(),
+        });
+    }
+    // Each body read from the file with the other bodies' rows blanked, so
+    // that every message keeps the file's own line numbers.
+    let lines: Vec<&str> = text.split('\n').collect();
+    order
+        .iter()
+        .enumerate()
+        .map(|(k, name)| {
+            let own: String = lines
+                .iter()
+                .enumerate()
+                .map(|(i, l)| match line_body.get(&(i + 1)) {
+                    Some(&b) if b != k => "",
+                    _ => l,
+                })
+                .collect::<Vec<&str>>()
+                .join("\n");
+            let list = read_table_text(&own, &file, sites, min_count, true).map_err(|mut e| {
+                if e.line == 0 {
+                    e.message = format!("body `{name}`: {}", e.message);
+                }
+                e
+            })?;
+            Ok((Some(name.clone()), list))
+        })
+        .collect()
+}
+
 fn read(path: &Path, sites: &SiteTable, min_count: usize, positions: bool) -> Result<Vec<Observation>, InputError> {
     let file = path.display().to_string();
     let text = read_text(path)?;
+    read_table_text(&text, &file, sites, min_count, positions)
+}
+
+fn read_table_text(
+    text: &str,
+    file: &str,
+    sites: &SiteTable,
+    min_count: usize,
+    positions: bool,
+) -> Result<Vec<Observation>, InputError> {
+    let file = file.to_string();
     let header = text.lines().map(str::trim).find(|l| !l.is_empty() && !l.starts_with('#') && !l.starts_with('!'));
     let Some(header) = header else {
         return Err(InputError {
@@ -153,7 +247,7 @@ fn read(path: &Path, sites: &SiteTable, min_count: usize, positions: bool) -> Re
         });
     };
     let ades = header.contains('|');
-    let table = Table::parse(&text, &file, if ades { '|' } else { ',' })?;
+    let table = Table::parse(text, &file, if ades { '|' } else { ',' })?;
     let names = if ades {
         // ADES defines many more fields (permID, mode, mag, ...): they are
         // allowed and ignored.
@@ -170,7 +264,7 @@ fn read(path: &Path, sites: &SiteTable, min_count: usize, positions: bool) -> Re
     } else if positions {
         table.require(
             &["epoch_utc", "ra_deg", "dec_deg", "sigma_ra_arcsec", "sigma_dec_arcsec"],
-            &["site", "corr"],
+            &["site", "corr", CSV_DESIGNATION],
             false,
         )?;
         csv_names()

@@ -214,24 +214,44 @@ pub fn grid_search<K: SignalKernel + ?Sized>(
     let basis = signal_subspace(kernel, &hyps, settings, gm_max);
     let k = basis.ncols();
 
-    // Score every hypothesis and its coordinates in the subspace.
-    let chunk = 256;
+    // Score every hypothesis and its coordinates in the subspace. The
+    // coordinates of a chunk of hypotheses come from one matrix product
+    // (basis^T times the chunk's signals, through faer), which for a joint
+    // kernel of many bodies costs far more than the scoring itself when
+    // done one signal at a time. A chunk holds up to 8 million numbers.
+    let chunk = (8_000_000 / n_res.max(1)).clamp(8, 256);
     let done = std::sync::atomic::AtomicUsize::new(0);
     let results: Vec<(Option<Scored>, Vec<f32>, f64)> = hyps
         .par_chunks(chunk)
         .flat_map_iter(|hs| {
             let mut scratch = vec![0.0; n_res];
-            let out: Vec<_> = hs
+            let mut signals = Mat::<f64>::zeros(n_res, hs.len());
+            let mut norms = vec![0.0; hs.len()];
+            let scored: Vec<Option<Scored>> = hs
                 .iter()
-                .map(|h| match score(kernel, h, gm_max, settings.min_separation_au, &mut scratch) {
+                .enumerate()
+                .map(|(j, h)| {
+                    let s = score(kernel, h, gm_max, settings.min_separation_au, &mut scratch)?;
+                    norms[j] = scratch.iter().map(|x| x * x).sum::<f64>().sqrt();
+                    for (i, x) in scratch.iter().enumerate() {
+                        signals[(i, j)] = *x;
+                    }
+                    Some(s)
+                })
+                .collect();
+            let coords = if k > 0 { basis.transpose() * &signals } else { Mat::zeros(0, hs.len()) };
+            let out: Vec<_> = scored
+                .into_iter()
+                .enumerate()
+                .map(|(j, s)| match s {
                     Some(s) => {
-                        let norm = scratch.iter().map(|x| x * x).sum::<f64>().sqrt();
+                        let norm = norms[j];
                         let mut c = vec![0.0f32; k];
                         let mut energy = 0.0;
                         if norm > 0.0 {
-                            for (j, cj) in c.iter_mut().enumerate() {
-                                let v: f64 = (0..n_res).map(|i| basis[(i, j)] * scratch[i]).sum::<f64>() / norm;
-                                *cj = v as f32;
+                            for (i, ci) in c.iter_mut().enumerate() {
+                                let v = coords[(i, j)] / norm;
+                                *ci = v as f32;
                                 energy += v * v;
                             }
                         }

@@ -181,6 +181,25 @@ impl TrackedArc {
         known: &[Body],
         tracked: TrackedBody,
     ) -> Result<TrackedArc, PipelineError> {
+        let (sites, model) = Self::setting(sites, known, &tracked)?;
+        let list = read_observations(observations, &sites, 3)?;
+        Ok(TrackedArc {
+            name: observations.file_stem().map_or("tracked body".into(), |s| s.to_string_lossy().into_owned()),
+            observations: list,
+            sites,
+            model,
+            tracked,
+            excluded_by_hand: Vec::new(),
+        })
+    }
+
+    /// The sites and the force model of an arc, the tracked body checked
+    /// against the known planets.
+    fn setting(
+        sites: Option<&Path>,
+        known: &[Body],
+        tracked: &TrackedBody,
+    ) -> Result<(SiteTable, ForceModel), PipelineError> {
         if let Some(b) = tracked.named
             && known.contains(&b)
         {
@@ -192,15 +211,32 @@ impl TrackedArc {
             Some(p) => SiteTable::read(p)?,
             None => SiteTable::new(),
         };
-        let list = read_observations(observations, &sites, 3)?;
-        Ok(TrackedArc {
-            name: observations.file_stem().map_or("tracked body".into(), |s| s.to_string_lossy().into_owned()),
-            observations: list,
-            sites,
-            model: force_model(known).with_tracked_gm(tracked.gm_au3_per_day2),
-            tracked,
-            excluded_by_hand: Vec::new(),
-        })
+        Ok((sites, force_model(known).with_tracked_gm(tracked.gm_au3_per_day2)))
+    }
+
+    /// Reads every body a file holds: one arc per designation in a file
+    /// with a designation column (ADES `permID`/`provID`/`trkSub`, Latens
+    /// CSV `body`), named by it; otherwise one arc named after the file.
+    pub fn load_all(
+        observations: &Path,
+        sites: Option<&Path>,
+        known: &[Body],
+        tracked: TrackedBody,
+    ) -> Result<Vec<TrackedArc>, PipelineError> {
+        let (sites, model) = Self::setting(sites, known, &tracked)?;
+        let lists = crate::io::observations::read_bodies(observations, &sites, 3)?;
+        let stem = observations.file_stem().map_or("tracked body".into(), |s| s.to_string_lossy().into_owned());
+        Ok(lists
+            .into_iter()
+            .map(|(name, list)| TrackedArc {
+                name: name.unwrap_or_else(|| stem.clone()),
+                observations: list,
+                sites: sites.clone(),
+                tracked: tracked.clone(),
+                model: model.clone(),
+                excluded_by_hand: Vec::new(),
+            })
+            .collect())
     }
 
     /// Reads a planned schedule (epochs, sigmas, sites; no positions) for
