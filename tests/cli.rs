@@ -68,8 +68,24 @@ fn demo_writes_its_track_and_says_what_it_did() {
     names.sort();
     assert_eq!(
         names,
-        ["observations.csv", "residuals", "search", "sensitivity", "sites.csv", "track.csv", "truth.json"]
+        [
+            "observations.csv",
+            "population",
+            "residuals",
+            "search",
+            "sensitivity",
+            "sites.csv",
+            "track.csv",
+            "truth.json"
+        ]
     );
+    // The joint section: twelve bodies' files and a joint study of them.
+    assert_eq!(std::fs::read_dir(dir.join("population/bodies")).unwrap().count(), 12);
+    let joint: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(dir.join("population/search/summary.json")).unwrap()).unwrap();
+    assert_eq!(joint["study"], "joint");
+    assert_eq!(joint["bodies"].as_array().unwrap().len(), 12);
+    assert!(stdout.contains("Twelve bodies together: detected jointly"), "{stdout}");
     assert!(dir.join("sensitivity/sensitivity.png").exists());
     let search: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(dir.join("search/summary.json")).unwrap()).unwrap();
