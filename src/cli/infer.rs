@@ -153,7 +153,7 @@ pub(super) fn run(args: &InferArgs) -> Result<(), CliError> {
 /// Runs a checked plan: the study, the stages, the files and the report.
 pub(super) fn execute(plan: &InferPlan) -> Result<InferSummary, CliError> {
     let out = plan.out.as_path();
-    let (mass, distance) = (plan.detection.search.mass_earth, plan.detection.search.distance_au);
+    let distance = plan.detection.search.distance_au;
     let settings = &plan.detection.search;
     let reject_sigma = plan.detection.reject_sigma;
     let posterior_settings = &plan.posterior;
@@ -182,12 +182,7 @@ pub(super) fn execute(plan: &InferPlan) -> Result<InferSummary, CliError> {
     for (k, d) in described.iter().enumerate() {
         // Only a detection sends anyone to the telescope.
         if d.solar_elongation_deg < latens::pipeline::SUN_WARNING_DEG && fap < DETECTION_FAP {
-            warnings.push(format!(
-                "basin {} lies {:.0} deg from the Sun at the search epoch: pointing a telescope near the Sun can destroy eyes \
-                 and instruments; observe it only with proper solar safeguards, after sunset, or wait for it to move away",
-                k + 1,
-                d.solar_elongation_deg
-            ));
+            warnings.push(sun_warning(k + 1, d.solar_elongation_deg));
         }
         // Only worth saying for a solution that stands out from the noise
         // and that the recentred kernel did not take over.
@@ -229,40 +224,13 @@ pub(super) fn execute(plan: &InferPlan) -> Result<InferSummary, CliError> {
 
     let ex = &stage.result.explanation;
     if detected && stage.result.run.as_ref().is_some_and(|r| r.evidence.is_some()) {
-        match &ex.best {
-            Best::Perturber => {}
-            Best::Undecided => verdict.push_str(&format!("; which explanation is best is undecided: {}", ex.text)),
-            other => {
-                let lead = if yearly {
-                    "; the best-supported explanation is"
-                } else {
-                    "; but the data favour another explanation:"
-                };
-                let name = match other {
-                    Best::Alternative(name) => name.as_str(),
-                    _ => "no extra effect (noise alone)",
-                };
-                verdict.push_str(&format!("{lead} {name} ({})", ex.strength));
-            }
-        }
+        verdict.push_str(&explanation_clause(ex, yearly));
     }
 
     let summary = InferSummary {
         search_epoch_utc: utc_iso_from_epoch(epoch_from_tdb_days(search_epoch)),
         seed: settings.seed,
-        settings: InferSettingsFile {
-            mass_earth: [mass.0, mass.1],
-            distance_au: [distance.0, distance.1],
-            n_directions: settings.n_directions,
-            n_distances: settings.n_distances,
-            n_orientations: settings.n_orientations,
-            speed_factors: settings.speed_factors.clone(),
-            min_separation_au: settings.min_separation_au,
-            basin_delta_chi2: settings.basin_delta_chi2,
-            known_bodies: model.known.iter().map(|k| k.body.name().to_string()).collect(),
-            folded_into_sun: model.folded.iter().map(|k| k.body.name().to_string()).collect(),
-            ephemeris: ephemeris.description(),
-        },
+        settings: settings_file(settings, model, ephemeris.description()),
         null_model: NullModelFile { chi2: null.chi2, dof: null.dof, orbit: orbit_file(null) },
         best_fit: described.first().map(clone_perturber),
         refined_best_fit: refined_summary,
@@ -466,6 +434,59 @@ fn describe(
         linearisation_error_arcsec: err_arcsec,
         linearisation_error_fraction: err_fraction,
     })
+}
+
+/// The search settings as summary.json records them.
+pub(super) fn settings_file(
+    s: &SearchSettings,
+    model: &latens::dynamics::ForceModel,
+    ephemeris: String,
+) -> InferSettingsFile {
+    InferSettingsFile {
+        mass_earth: [s.mass_earth.0, s.mass_earth.1],
+        distance_au: [s.distance_au.0, s.distance_au.1],
+        n_directions: s.n_directions,
+        n_distances: s.n_distances,
+        n_orientations: s.n_orientations,
+        speed_factors: s.speed_factors.clone(),
+        min_separation_au: s.min_separation_au,
+        basin_delta_chi2: s.basin_delta_chi2,
+        known_bodies: model.known.iter().map(|k| k.body.name().to_string()).collect(),
+        folded_into_sun: model.folded.iter().map(|k| k.body.name().to_string()).collect(),
+        ephemeris,
+    }
+}
+
+/// The safety warning for basin `number` of a detection lying
+/// `elongation_deg` from the Sun.
+pub(super) fn sun_warning(number: usize, elongation_deg: f64) -> String {
+    format!(
+        "basin {number} lies {elongation_deg:.0} deg from the Sun at the search epoch: pointing a telescope near the Sun can destroy eyes \
+         and instruments; observe it only with proper solar safeguards, after sunset, or wait for it to move away"
+    )
+}
+
+/// What the verdict of a detection adds when the evidence prefers another
+/// explanation or cannot decide (empty when the perturber is best);
+/// `yearly`: the residuals carry a one-year pattern, so the alternative is
+/// named as the best-supported one rather than as a contradiction.
+pub(super) fn explanation_clause(ex: &latens::pipeline::Explanation, yearly: bool) -> String {
+    match &ex.best {
+        Best::Perturber => String::new(),
+        Best::Undecided => format!("; which explanation is best is undecided: {}", ex.text),
+        other => {
+            let lead = if yearly {
+                "; the best-supported explanation is"
+            } else {
+                "; but the data favour another explanation:"
+            };
+            let name = match other {
+                Best::Alternative(name) => name.as_str(),
+                _ => "no extra effect (noise alone)",
+            };
+            format!("{lead} {name} ({})", ex.strength)
+        }
+    }
 }
 
 /// Residuals of the best solution: the null residuals minus its linear

@@ -14,12 +14,12 @@ use super::infer::InferPlan;
 use super::residuals::{ResidualProducts, orbit_file};
 use latens::dynamics::kepler::{OUTPUT_FRAME, OutputElements};
 use latens::io::results::{
-    DetectionFile, InferSettingsFile, JointBasinFile, JointBodyFile, JointSummaryFile, LeaveOneOutFile, SearchStatsFile,
+    DetectionFile, JointBasinFile, JointBodyFile, JointSummaryFile, LeaveOneOutFile, SearchStatsFile,
 };
 use latens::io::write_atomically;
 use latens::perturber::{KeplerOrbit, Scored, SignalKernel};
 use latens::pipeline::{
-    Best, DETECTION_FAP, JointDetection, JointPosteriorOutcome, JointSettings, SUN_WARNING_DEG, SearchGeometry, Study,
+    DETECTION_FAP, JointDetection, JointPosteriorOutcome, JointSettings, SUN_WARNING_DEG, SearchGeometry, Study,
     TrackedArc, detect_joint,
 };
 use latens::time::{epoch_from_tdb_days, utc_iso_from_epoch};
@@ -35,10 +35,8 @@ const NOT_COMPUTED: [&str; 3] = [
 /// Runs a joint study of the plan's bodies and writes its files.
 pub(super) fn execute(plan: &InferPlan, arcs: Vec<TrackedArc>) -> Result<(), CliError> {
     let out = plan.out.as_path();
-    let sources: Vec<String> = arcs
-        .iter()
-        .map(|a| a.observations.first().and_then(|o| o.source.rsplit_once(':')).map_or("", |(f, _)| f).to_string())
-        .collect();
+    let sources: Vec<String> =
+        arcs.iter().map(|a| a.observations.first().map_or("", |o| o.file()).to_string()).collect();
     let study = Study::new(arcs, &plan.ephemeris, plan.search_epoch)?;
     let settings = JointSettings { search: plan.detection.search.clone(), each_alone: true, leave_one_out: true };
     let found = detect_joint(&study, &settings, &crate::cli::progress::Bars::new())?;
@@ -70,12 +68,7 @@ pub(super) fn execute(plan: &InferPlan, arcs: Vec<TrackedArc>) -> Result<(), Cli
     }
     for (k, b) in basins.iter().enumerate() {
         if detected && b.solar_elongation_deg < SUN_WARNING_DEG {
-            warnings.push(format!(
-                "basin {} lies {:.0} deg from the Sun at the search epoch: pointing a telescope near the Sun can destroy eyes \
-                 and instruments; observe it only with proper solar safeguards, after sunset, or wait for it to move away",
-                k + 1,
-                b.solar_elongation_deg
-            ));
+            warnings.push(super::infer::sun_warning(k + 1, b.solar_elongation_deg));
         }
     }
     let best = found.best_delta_chi2();
@@ -111,19 +104,7 @@ pub(super) fn execute(plan: &InferPlan, arcs: Vec<TrackedArc>) -> Result<(), Cli
         reference_epoch_tdb_jd: J2000_JD + found.epoch_tdb_days,
         search_epoch_utc: utc_iso_from_epoch(epoch_from_tdb_days(study.search_epoch_tdb_days)),
         seed: s.seed,
-        settings: InferSettingsFile {
-            mass_earth: [s.mass_earth.0, s.mass_earth.1],
-            distance_au: [s.distance_au.0, s.distance_au.1],
-            n_directions: s.n_directions,
-            n_distances: s.n_distances,
-            n_orientations: s.n_orientations,
-            speed_factors: s.speed_factors.clone(),
-            min_separation_au: s.min_separation_au,
-            basin_delta_chi2: s.basin_delta_chi2,
-            known_bodies: model.known.iter().map(|k| k.body.name().to_string()).collect(),
-            folded_into_sun: model.folded.iter().map(|k| k.body.name().to_string()).collect(),
-            ephemeris: study.ephemeris.description(),
-        },
+        settings: super::infer::settings_file(s, model, study.ephemeris.description()),
         bodies,
         detection: DetectionFile {
             delta_chi2: best,
@@ -164,17 +145,8 @@ pub(super) fn execute(plan: &InferPlan, arcs: Vec<TrackedArc>) -> Result<(), Cli
 
 /// The verdict, with the explanation when the data prefer another one.
 fn verdict_with_explanation(mut verdict: String, detected: bool, posterior: &JointPosteriorOutcome) -> String {
-    let ex = &posterior.explanation;
     if detected && posterior.run.as_ref().is_some_and(|r| r.evidence.is_some()) {
-        match &ex.best {
-            Best::Perturber => {}
-            Best::Undecided => verdict.push_str(&format!("; which explanation is best is undecided: {}", ex.text)),
-            Best::Alternative(name) => {
-                verdict.push_str(&format!("; but the data favour another explanation: {name} ({})", ex.strength))
-            }
-            Best::NoneNeeded => verdict
-                .push_str(&format!("; but the data favour another explanation: no extra effect ({})", ex.strength)),
-        }
+        verdict.push_str(&super::infer::explanation_clause(&posterior.explanation, false));
     }
     verdict
 }

@@ -126,6 +126,13 @@ pub struct Observation {
     pub epoch_text: String,
 }
 
+impl Observation {
+    /// The file the observation came from (its source without the line).
+    pub fn file(&self) -> &str {
+        self.source.rsplit_once(':').map_or(self.source.as_str(), |(f, _)| f)
+    }
+}
+
 /// Reads observations in Latens CSV or ADES PSV (chosen by content: a header
 /// with `|` separators is ADES). Needs at least `min_count` observations.
 pub fn read_observations(path: &Path, sites: &SiteTable, min_count: usize) -> Result<Vec<Observation>, InputError> {

@@ -311,7 +311,7 @@ fn check_bodies(study: &Study) -> Result<(), PipelineError> {
                 .bodies
                 .iter()
                 .filter(|o| o.name == b.name)
-                .filter_map(|o| o.observations.first().map(|x| x.source.rsplit_once(':').map_or("", |(f, _)| f)))
+                .filter_map(|o| o.observations.first().map(|x| x.file()))
                 .collect();
             return Err(PipelineError::Input(format!(
                 "two bodies are both named `{}` ({}): each body needs its own name",
@@ -322,7 +322,7 @@ fn check_bodies(study: &Study) -> Result<(), PipelineError> {
         // 6 orbit parameters need more than 3 two-coordinate observations to
         // leave any freedom for a perturber's signal.
         if b.observations.len() < 4 {
-            let file = b.observations.first().map_or("", |x| x.source.rsplit_once(':').map_or("", |(f, _)| f));
+            let file = b.observations.first().map_or("", |x| x.file());
             return Err(PipelineError::Input(format!(
                 "body `{}` ({file}) has {} observation(s); a joint study needs at least 4 per body",
                 b.name,

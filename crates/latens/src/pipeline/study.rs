@@ -270,7 +270,7 @@ impl TrackedArc {
         let line_of = |o: &Observation| o.source.rsplit_once(':').and_then(|(_, l)| l.parse::<usize>().ok());
         for l in lines {
             if !self.observations.iter().any(|o| line_of(o) == Some(*l)) {
-                let file = self.observations.first().and_then(|o| o.source.rsplit_once(':')).map_or("", |(f, _)| f);
+                let file = self.observations.first().map_or("", |o| o.file());
                 return Err(PipelineError::Input(format!("line {l} of {file} holds no observation")));
             }
         }
