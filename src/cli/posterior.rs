@@ -184,7 +184,7 @@ fn write_posterior_files(out: &Path, run: &PosteriorRun) -> Result<(), CliError>
     let mut w = csv::Writer::from_writer(Vec::new());
     w.write_record(&table.columns).map_err(|e| fail(e.to_string()))?;
     for row in table.values.rows() {
-        w.write_record(row.iter().map(|v| format!("{v:.10e}"))).map_err(|e| fail(e.to_string()))?;
+        w.write_record(row.iter().map(|v| format!("{v:e}"))).map_err(|e| fail(e.to_string()))?;
     }
     let bytes = w.into_inner().map_err(|e| fail(e.to_string()))?;
     write_atomically(&out.join("posterior.csv"), &bytes).map_err(CliError::failed)?;

@@ -15,8 +15,8 @@ use latens::io::write_atomically;
 use latens::pipeline::EphemerisSource;
 use latens::reference::{ReferenceFit, ReferenceSettings, fit_reference_orbit};
 use latens::stats::chi_square_survival;
-use latens::time::{epoch_from_tdb_days, parse_epoch, tdb_days_from_j2000, utc_iso_from_epoch};
-use latens::units::{J2000_JD, JULIAN_YEAR_DAYS, RAD_PER_DEG};
+use latens::time::{parse_epoch, tdb_days_from_j2000};
+use latens::units::JULIAN_YEAR_DAYS;
 use latens_charts::residual_chart::ResidualChart;
 
 /// The force model and the tracked body from `--known`, `--tracked-mass`
@@ -139,31 +139,7 @@ fn trend(years: &[f64], values: &[f64], sigmas: &[f64], used: &[bool]) -> (f64, 
 
 /// The `orbit` block of fit.json (and of infer's summary.json).
 pub(crate) fn orbit_file(fit: &ReferenceFit) -> OrbitFile {
-    // The fit's elements are osculating with the GM of the Sun (reference::fit).
-    let el = latens::dynamics::kepler::OutputElements::from_elements(&fit.elements);
-    let cov = &fit.covariance;
-    let deg = |x: f64| x / RAD_PER_DEG;
-    OrbitFile {
-        frame: latens::dynamics::kepler::OUTPUT_FRAME.into(),
-        epoch_tdb_jd: J2000_JD + fit.epoch_tdb_days,
-        epoch_utc: utc_iso_from_epoch(epoch_from_tdb_days(fit.epoch_tdb_days)),
-        a_au: el.a_au,
-        e: el.e,
-        inc_deg: el.inc_deg,
-        node_deg: el.node_deg,
-        peri_deg: el.peri_deg,
-        mean_anomaly_deg: el.mean_anomaly_deg,
-        sigma_a_au: fit.element_sigmas[0],
-        sigma_e: fit.element_sigmas[1],
-        sigma_inc_deg: deg(fit.element_sigmas[2]),
-        sigma_node_deg: deg(fit.element_sigmas[3]),
-        sigma_peri_deg: deg(fit.element_sigmas[4]),
-        sigma_mean_anomaly_deg: deg(fit.element_sigmas[5]),
-        state_icrf: fit.state,
-        covariance: (0..6)
-            .map(|i| [cov[6 * i], cov[6 * i + 1], cov[6 * i + 2], cov[6 * i + 3], cov[6 * i + 4], cov[6 * i + 5]])
-            .collect(),
-    }
+    fit.orbit_file()
 }
 
 impl ResidualProducts {

@@ -18,7 +18,6 @@ use latens::io::scenario::{ScenarioFile, read};
 use latens::io::write_atomically;
 use latens::pipeline::simulate_population;
 use latens::time::{epoch_from_tdb_days, utc_iso_from_epoch};
-use latens::units::RAD_PER_DEG;
 
 /// A simulated scenario, written out and ready for the other stages.
 pub(super) struct Simulated {
@@ -36,23 +35,6 @@ pub(super) struct Simulated {
 
 /// The observations as Latens CSV (the scenario, noise and seed are in
 /// truth.json, so the file holds nothing but the table).
-fn observations_csv(observations: &[Observation]) -> String {
-    let mut csv = String::from("epoch_utc,ra_deg,dec_deg,sigma_ra_arcsec,sigma_dec_arcsec,site\n");
-    for o in observations {
-        let _ = writeln!(
-            csv,
-            "{},{:.9},{:.9},{},{},{}",
-            o.epoch_text,
-            o.ra_rad / RAD_PER_DEG,
-            o.dec_rad / RAD_PER_DEG,
-            o.sigma_ra_arcsec,
-            o.sigma_dec_arcsec,
-            o.site
-        );
-    }
-    csv
-}
-
 /// The file name of a body's observations in a population's `bodies/`.
 pub(super) fn body_file_name(name: &str) -> String {
     format!("{}.csv", name.replace(' ', "_"))
@@ -70,12 +52,12 @@ pub(super) fn simulate(s: &ScenarioFile, name: &str, out: &Path) -> Result<Simul
         std::fs::create_dir_all(&dir)
             .map_err(|e| CliError::failed(anyhow::anyhow!("creating {}: {e}", dir.display())))?;
         for (sim, body) in all.iter().zip(s.all_bodies()) {
-            write_atomically(&dir.join(body_file_name(&body.name)), observations_csv(&sim.observations).as_bytes())
+            write_atomically(&dir.join(body_file_name(&body.name)), latens::io::observations::observations_csv(&sim.observations).as_bytes())
                 .map_err(CliError::failed)?;
         }
     }
     let sim = all.swap_remove(0);
-    let csv = observations_csv(&sim.observations);
+    let csv = latens::io::observations::observations_csv(&sim.observations);
     let observations_path = out.join("observations.csv");
     let sites_path = out.join("sites.csv");
     write_atomically(&observations_path, csv.as_bytes()).map_err(CliError::failed)?;

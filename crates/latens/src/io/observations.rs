@@ -74,7 +74,13 @@ impl SiteTable {
     pub fn read(path: &Path) -> Result<SiteTable, InputError> {
         let file = path.display().to_string();
         let text = read_text(path)?;
-        let table = Table::parse(&text, &file, ',')?;
+        SiteTable::parse(&text, &file)
+    }
+
+    /// Parses a sites table from text (as [`SiteTable::read`] reads a
+    /// file); `file` names the text in messages.
+    pub fn parse(text: &str, file: &str) -> Result<SiteTable, InputError> {
+        let table = Table::parse(text, file, ',')?;
         let mut sites = SiteTable::new();
         table.require(&["name", "lon_deg", "lat_deg", "height_m"], &[], false)?;
         for row in &table.rows {
@@ -100,6 +106,20 @@ impl SiteTable {
             sites.insert(Site { name, lon_deg: lon, lat_deg: lat, height_m: height });
         }
         Ok(sites)
+    }
+
+    /// The sites as CSV text (name, lon_deg, lat_deg, height_m), by name;
+    /// the geocentre is implicit and not listed.
+    pub fn to_csv(&self) -> String {
+        use std::fmt::Write as _;
+        let mut names: Vec<&String> = self.sites.keys().collect();
+        names.sort();
+        let mut csv = String::from("name,lon_deg,lat_deg,height_m\n");
+        for n in names {
+            let s = &self.sites[n];
+            let _ = writeln!(csv, "{},{},{},{}", s.name, s.lon_deg, s.lat_deg, s.height_m);
+        }
+        csv
     }
 }
 
@@ -228,6 +248,38 @@ pub fn read_bodies(path: &Path, sites: &SiteTable, min_count: usize) -> Result<V
             Ok((Some(name.clone()), list))
         })
         .collect()
+}
+
+/// Observations as Latens CSV text (what `simulate` writes): epochs as
+/// given, RA and Dec to 1e-9 degree (4 microarcsec), sigmas and sites.
+pub fn observations_csv(observations: &[Observation]) -> String {
+    use std::fmt::Write as _;
+    let mut csv = String::from("epoch_utc,ra_deg,dec_deg,sigma_ra_arcsec,sigma_dec_arcsec,site\n");
+    for o in observations {
+        let _ = writeln!(
+            csv,
+            "{},{:.9},{:.9},{},{},{}",
+            o.epoch_text,
+            o.ra_rad / RAD_PER_DEG,
+            o.dec_rad / RAD_PER_DEG,
+            o.sigma_ra_arcsec,
+            o.sigma_dec_arcsec,
+            o.site
+        );
+    }
+    csv
+}
+
+/// Parses observations from text in Latens CSV or ADES PSV, as
+/// [`read_observations`] reads a file; `file` names the text in messages
+/// (a binding passes, say, `<DataFrame>`).
+pub fn parse_observations(
+    text: &str,
+    file: &str,
+    sites: &SiteTable,
+    min_count: usize,
+) -> Result<Vec<Observation>, InputError> {
+    read_table_text(text.strip_prefix('\u{feff}').unwrap_or(text), file, sites, min_count, true)
 }
 
 fn read(path: &Path, sites: &SiteTable, min_count: usize, positions: bool) -> Result<Vec<Observation>, InputError> {

@@ -193,6 +193,28 @@ impl TrackedArc {
         })
     }
 
+    /// A tracked body from observations held in memory (Latens CSV or ADES
+    /// PSV text, as a file would hold them), named `name`; messages name
+    /// `name` as the file, with the text's own line numbers.
+    pub fn from_text(
+        name: &str,
+        text: &str,
+        sites: SiteTable,
+        known: &[Body],
+        tracked: TrackedBody,
+    ) -> Result<TrackedArc, PipelineError> {
+        let (_, model) = Self::setting(None, known, &tracked)?;
+        let list = crate::io::observations::parse_observations(text, name, &sites, 3)?;
+        Ok(TrackedArc {
+            name: name.to_string(),
+            observations: list,
+            sites,
+            model,
+            tracked,
+            excluded_by_hand: Vec::new(),
+        })
+    }
+
     /// The sites and the force model of an arc, the tracked body checked
     /// against the known planets.
     fn setting(

@@ -114,6 +114,37 @@ pub const RESIDUAL_COLUMNS: [&str; 7] =
     ["t_tdb_days", "ra_arcsec", "dec_arcsec", "sigma_ra_arcsec", "sigma_dec_arcsec", "chi2", "used"];
 
 impl ReferenceFit {
+    /// The orbit as fit.json and summary.json give it: osculating
+    /// heliocentric ecliptic elements with their formal sigmas (degrees),
+    /// the ICRF state and its covariance, the epoch in TDB JD and UTC.
+    pub fn orbit_file(&self) -> crate::io::results::OrbitFile {
+        use crate::time::{epoch_from_tdb_days, utc_iso_from_epoch};
+        let el = crate::dynamics::kepler::OutputElements::from_elements(&self.elements);
+        let cov = &self.covariance;
+        let deg = f64::to_degrees;
+        crate::io::results::OrbitFile {
+            frame: crate::dynamics::kepler::OUTPUT_FRAME.into(),
+            epoch_tdb_jd: crate::units::J2000_JD + self.epoch_tdb_days,
+            epoch_utc: utc_iso_from_epoch(epoch_from_tdb_days(self.epoch_tdb_days)),
+            a_au: el.a_au,
+            e: el.e,
+            inc_deg: el.inc_deg,
+            node_deg: el.node_deg,
+            peri_deg: el.peri_deg,
+            mean_anomaly_deg: el.mean_anomaly_deg,
+            sigma_a_au: self.element_sigmas[0],
+            sigma_e: self.element_sigmas[1],
+            sigma_inc_deg: deg(self.element_sigmas[2]),
+            sigma_node_deg: deg(self.element_sigmas[3]),
+            sigma_peri_deg: deg(self.element_sigmas[4]),
+            sigma_mean_anomaly_deg: deg(self.element_sigmas[5]),
+            state_icrf: self.state,
+            covariance: (0..6)
+                .map(|i| [cov[6 * i], cov[6 * i + 1], cov[6 * i + 2], cov[6 * i + 3], cov[6 * i + 4], cov[6 * i + 5]])
+                .collect(),
+        }
+    }
+
     /// The O-C residuals as a table, one row per observation (those this
     /// fit was made on, in order): epoch (TDB days since J2000.0), O-C in
     /// RA*cos(Dec) and Dec (arcsec), the sigmas, the pair's chi-square and
