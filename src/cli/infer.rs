@@ -453,6 +453,7 @@ pub(super) fn settings_file(
         basin_delta_chi2: s.basin_delta_chi2,
         known_bodies: model.known.iter().map(|k| k.body.name().to_string()).collect(),
         folded_into_sun: model.folded.iter().map(|k| k.body.name().to_string()).collect(),
+        central_gm_au3_per_day2: model.central_gm_au3_per_day2(),
         ephemeris,
     }
 }

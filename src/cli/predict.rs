@@ -24,7 +24,9 @@ fn bad(e: impl std::fmt::Display) -> CliError {
     CliError::bad_input(anyhow::anyhow!("{e}"))
 }
 
-fn read_samples(path: &Path, epoch: f64) -> Result<Vec<OrbitSample>, CliError> {
+/// The samples of posterior.csv as orbits at `epoch` about a central mass
+/// of GM `gm` (the summary's; the Sun's in summaries that do not record it).
+fn read_samples(path: &Path, epoch: f64, gm: f64) -> Result<Vec<OrbitSample>, CliError> {
     let mut reader = csv::Reader::from_path(path).map_err(|e| bad(format!("{}: {e}", path.display())))?;
     let headers = reader.headers().map_err(|e| bad(format!("{}: {e}", path.display())))?.clone();
     let col = |name: &str| -> Result<usize, CliError> {
@@ -52,9 +54,12 @@ fn read_samples(path: &Path, epoch: f64) -> Result<Vec<OrbitSample>, CliError> {
             v[6] * RAD_PER_DEG,
         )
         .map_err(|e| bad(format!("{}:{line}: elements: {e}", path.display())))?;
+        // The elements are written with the Sun's GM (docs/formats.md):
+        // that GM gives back the sample's state; the orbit then moves about
+        // the model's central mass, as in the search and the sampler.
         let (r, vel) = state_from_elements(GM_SUN_AU3_PER_DAY2, &el)
             .map_err(|e| bad(format!("{}:{line}: elements: {e}", path.display())))?;
-        let orbit = KeplerOrbit::from_state(GM_SUN_AU3_PER_DAY2, icrf_from_ecliptic(r), icrf_from_ecliptic(vel), epoch)
+        let orbit = KeplerOrbit::from_state(gm, icrf_from_ecliptic(r), icrf_from_ecliptic(vel), epoch)
             .ok_or_else(|| bad(format!("{}:{line}: the orbit is not bound", path.display())))?;
         out.push(OrbitSample { mass_earth: v[0], orbit, direction: latens::frames::vector_from_radec_deg(v[7], v[8]) });
     }
@@ -76,7 +81,14 @@ pub(super) fn run(args: &PredictArgs) -> Result<(), CliError> {
         return Err(bad(format!("{}: field `null_model.orbit.epoch_tdb_jd` is not a number", summary_path.display())));
     }
     let search_epoch = date(&summary.search_epoch_utc, &format!("{}: search_epoch_utc", summary_path.display()))?;
-    let samples = read_samples(&args.from.join("posterior.csv"), epoch)?;
+    let gm = summary.settings.as_ref().and_then(|s| s.central_gm_au3_per_day2).unwrap_or(GM_SUN_AU3_PER_DAY2);
+    if !(gm.is_finite() && gm > 0.0) {
+        return Err(bad(format!(
+            "{}: field `settings.central_gm_au3_per_day2` is not a positive number",
+            summary_path.display()
+        )));
+    }
+    let samples = read_samples(&args.from.join("posterior.csv"), epoch, gm)?;
     let start = match &args.start {
         Some(t) => date(t, "--start")?,
         None => search_epoch,

@@ -52,8 +52,11 @@ pub(super) fn simulate(s: &ScenarioFile, name: &str, out: &Path) -> Result<Simul
         std::fs::create_dir_all(&dir)
             .map_err(|e| CliError::failed(anyhow::anyhow!("creating {}: {e}", dir.display())))?;
         for (sim, body) in all.iter().zip(s.all_bodies()) {
-            write_atomically(&dir.join(body_file_name(&body.name)), latens::io::observations::observations_csv(&sim.observations).as_bytes())
-                .map_err(CliError::failed)?;
+            write_atomically(
+                &dir.join(body_file_name(&body.name)),
+                latens::io::observations::observations_csv(&sim.observations).as_bytes(),
+            )
+            .map_err(CliError::failed)?;
         }
     }
     let sim = all.swap_remove(0);

@@ -81,7 +81,9 @@ fn to_py(py: Python<'_>, e: PipelineError) -> PyErr {
             err
         }
         PipelineError::Interrupted { step, of, checkpoint } => PyKeyboardInterrupt::new_err(match checkpoint {
-            Some(c) => format!("stopped at step {step} of {of}; the progress is saved in {c}: call again with resume=True"),
+            Some(c) => {
+                format!("stopped at step {step} of {of}; the progress is saved in {c}: call again with resume=True")
+            }
             None => format!("stopped at step {step} of {of}; nothing was saved"),
         }),
         PipelineError::Failed { stage, source } => {
@@ -91,7 +93,8 @@ fn to_py(py: Python<'_>, e: PipelineError) -> PyErr {
                 text.push_str(&format!(": {c}"));
                 cause = c.source();
             }
-            let err = if text.contains("converge") { NotConvergedError::new_err(text) } else { FitError::new_err(text) };
+            let err =
+                if text.contains("converge") { NotConvergedError::new_err(text) } else { FitError::new_err(text) };
             let _ = err.value(py).setattr("stage", stage);
             err
         }
@@ -139,23 +142,20 @@ fn range(py: Python<'_>, r: (f64, f64), what: &str) -> PyResult<(f64, f64)> {
 // ---------------------------------------------------------------------------
 // Progress and KeyboardInterrupt through the library's observer.
 
-/// Calls `progress(stage, done, total)` at most every 0.2 s, logs notes to
+/// Calls `progress(stage, done, total)` every 1% of the stage or 0.2 s, whichever comes first, logs notes to
 /// the `latens` logger, and asks the stage to stop on KeyboardInterrupt
 /// (or when the callback raises); the exception is kept and raised when the
 /// stage returns.
 struct PyObserver {
     callback: Option<Py<PyAny>>,
-    state: Mutex<(Option<Stage>, u64, Instant)>,
+    /// The stage, its total, and the last report (time, units done).
+    state: Mutex<(Option<Stage>, u64, Instant, u64)>,
     error: Mutex<Option<PyErr>>,
 }
 
 impl PyObserver {
     fn new(callback: Option<Py<PyAny>>) -> PyObserver {
-        PyObserver {
-            callback,
-            state: Mutex::new((None, 0, Instant::now() - Duration::from_secs(1))),
-            error: Mutex::new(None),
-        }
+        PyObserver { callback, state: Mutex::new((None, 0, Instant::now(), 0)), error: Mutex::new(None) }
     }
 
     fn call(&self, stage: Stage, done: u64, total: u64) {
@@ -196,7 +196,7 @@ impl Observer for PyObserver {
     fn begin(&self, stage: Stage, total: u64) {
         {
             let mut s = self.state.lock().unwrap_or_else(|p| p.into_inner());
-            *s = (Some(stage), total, Instant::now());
+            *s = (Some(stage), total, Instant::now(), 0);
         }
         self.call(stage, 0, total);
     }
@@ -204,8 +204,9 @@ impl Observer for PyObserver {
     fn advance(&self, done: u64) {
         let due = {
             let mut s = self.state.lock().unwrap_or_else(|p| p.into_inner());
-            if s.2.elapsed() >= Duration::from_millis(200) {
+            if s.2.elapsed() >= Duration::from_millis(200) || done >= s.3 + s.1.div_ceil(100) {
                 s.2 = Instant::now();
+                s.3 = done;
                 s.0.map(|stage| (stage, s.1))
             } else {
                 None
@@ -228,7 +229,13 @@ impl Observer for PyObserver {
 
     fn note(&self, text: &str) {
         Python::attach(|py| {
-            let _ = py.import("logging").and_then(|l| l.call_method1("getLogger", ("latens",))).and_then(|l| l.call_method1("info", (text,)));
+            let logged = py
+                .import("logging")
+                .and_then(|l| l.call_method1("getLogger", ("latens",)))
+                .and_then(|l| l.call_method1("info", (text,)));
+            if let Err(e) = logged {
+                self.keep(e);
+            }
         });
     }
 
@@ -341,7 +348,8 @@ impl PyStudy {
     /// (file:line).
     #[pyo3(signature = (body=0))]
     fn observations<'py>(&self, py: Python<'py>, body: usize) -> PyResult<Bound<'py, PyDict>> {
-        let arc = self.inner.bodies.get(body).ok_or_else(|| bad_setting(py, format!("the study has no body {body}")))?;
+        let arc =
+            self.inner.bodies.get(body).ok_or_else(|| bad_setting(py, format!("the study has no body {body}")))?;
         let o = &arc.observations;
         let d = PyDict::new(py);
         let col = |f: &dyn Fn(&latens::io::observations::Observation) -> f64| o.iter().map(f).collect::<Vec<f64>>();
@@ -380,10 +388,12 @@ struct PyReferenceFit {
 
 #[pymethods]
 impl PyReferenceFit {
+    /// The fit's chi-square.
     #[getter]
     fn chi2(&self) -> f64 {
         self.fit.chi2
     }
+    /// Degrees of freedom of the fit.
     #[getter]
     fn dof(&self) -> usize {
         self.fit.dof
@@ -405,22 +415,27 @@ impl PyReferenceFit {
             .map_err(|e| LatensError::new_err(e.to_string()))?;
         Ok(a.into_pyarray(py))
     }
+    /// RMS of the O-C in RA*cos(Dec), arcsec.
     #[getter]
     fn rms_ra_arcsec(&self) -> f64 {
         self.fit.rms_ra_arcsec
     }
+    /// RMS of the O-C in Dec, arcsec.
     #[getter]
     fn rms_dec_arcsec(&self) -> f64 {
         self.fit.rms_dec_arcsec
     }
+    /// Observations the fit used.
     #[getter]
     fn n_used(&self) -> usize {
         self.fit.n_used
     }
+    /// Observations set aside as outliers.
     #[getter]
     fn n_rejected(&self) -> usize {
         self.fit.n_rejected
     }
+    /// Warnings for the reader, in words.
     #[getter]
     fn warnings(&self) -> Vec<String> {
         self.fit.warnings.clone()
@@ -478,7 +493,9 @@ fn reference_fit(py: Python<'_>, study: &PyStudy, body: usize, epoch: Option<&st
     let settings = latens::reference::ReferenceSettings { epoch_tdb_days: epoch, ..Default::default() };
     let eph = study.inner.ephemeris.as_ref();
     let fit = py
-        .detach(|| latens::reference::fit_reference_orbit(&arc.observations, &arc.sites, &arc.model, eph, &settings, None))
+        .detach(|| {
+            latens::reference::fit_reference_orbit(&arc.observations, &arc.sites, &arc.model, eph, &settings, None)
+        })
         .map_err(|e| to_py(py, PipelineError::Failed { stage: "reference fit", source: Box::new(e) }))?;
     let table = fit.residual_table(&arc.observations);
     Ok(PyReferenceFit { fit, table })
@@ -506,6 +523,7 @@ impl PyDetection {
     fn false_alarm_probability(&self) -> f64 {
         self.inner.false_alarm_probability()
     }
+    /// Whether the false-alarm probability is below the detection threshold (0.0027).
     #[getter]
     fn detected(&self) -> bool {
         self.inner.verdict.detected()
@@ -515,6 +533,7 @@ impl PyDetection {
     fn verdict(&self) -> String {
         self.inner.verdict_text()
     }
+    /// Warnings for the reader, in words.
     #[getter]
     fn warnings(&self) -> Vec<String> {
         self.inner.warnings()
@@ -524,6 +543,7 @@ impl PyDetection {
     fn null_chi2(&self) -> f64 {
         self.inner.null.chi2
     }
+    /// The null model's degrees of freedom.
     #[getter]
     fn null_dof(&self) -> usize {
         self.inner.null.dof
@@ -533,6 +553,7 @@ impl PyDetection {
     fn null_maxima<'py>(&self, py: Python<'py>) -> Bound<'py, PyArray1<f64>> {
         self.inner.search.null_maxima.clone().into_pyarray(py)
     }
+    /// Perturber hypotheses searched.
     #[getter]
     fn n_hypotheses(&self) -> usize {
         self.inner.search.n_hypotheses
@@ -653,7 +674,9 @@ fn detection_settings(
     if nulls < min_nulls {
         return Err(bad_setting(
             py,
-            format!("nulls must be at least {min_nulls} for a false-alarm probability below {DETECTION_FAP}, got {nulls}"),
+            format!(
+                "nulls must be at least {min_nulls} for a false-alarm probability below {DETECTION_FAP}, got {nulls}"
+            ),
         ));
     }
     if directions < 12 || distances < 2 {
@@ -756,6 +779,7 @@ impl PyPosterior {
     fn explanation_detail<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyAny>> {
         json_value(py, &self.inner.explanation.file())
     }
+    /// Warnings for the reader, in words.
     #[getter]
     fn warnings(&self) -> Vec<String> {
         self.inner.warnings.clone()
@@ -936,7 +960,7 @@ impl PySky {
             "json" => latens::skymap::moc_json(&moc),
             f => return Err(bad_setting(py, format!("format must be \"fits\" or \"json\", got {f:?}"))),
         }
-        .map_err(|e| LatensError::new_err(e))?;
+        .map_err(LatensError::new_err)?;
         latens::io::write_atomically(&path, &bytes).map_err(|e| to_py(py, PipelineError::Input(e.to_string())))
     }
     /// The map's leaves as a pandas DataFrame: uniq, probdensity, probability.
@@ -1024,9 +1048,8 @@ fn predict<'py>(
         .filter_map(|d| OrbitSample::from_derived(d, kernel.central_gm(), kernel.epoch_tdb_days))
         .collect();
     let earth = latens::ephemeris::Vsop87::new();
-    let p = py
-        .detach(|| latens::pipeline::predict(&samples, &earth, start, step_days, steps))
-        .map_err(|e| to_py(py, e))?;
+    let p =
+        py.detach(|| latens::pipeline::predict(&samples, &earth, start, step_days, steps)).map_err(|e| to_py(py, e))?;
     let d = PyDict::new(py);
     let col = |f: &dyn Fn(&latens::pipeline::Prediction) -> f64| p.iter().map(f).collect::<Vec<f64>>();
     d.set_item("mode", p.iter().map(|x| x.mode as i64).collect::<Vec<_>>().into_pyarray(py))?;

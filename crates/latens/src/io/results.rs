@@ -28,6 +28,17 @@ pub fn read_json<T: DeserializeOwned>(path: &Path) -> Result<T, String> {
 pub struct SummaryHead {
     pub search_epoch_utc: String,
     pub null_model: NullModelHead,
+    /// Absent from summaries written before it was recorded.
+    #[serde(default)]
+    pub settings: Option<SettingsHead>,
+}
+
+/// The settings of a summary.json, as read back.
+#[derive(Debug, Deserialize)]
+pub struct SettingsHead {
+    /// See [`InferSettingsFile::central_gm_au3_per_day2`].
+    #[serde(default)]
+    pub central_gm_au3_per_day2: Option<f64>,
 }
 
 /// The reference fit of a summary.json, as read back.
@@ -363,6 +374,10 @@ pub struct InferSettingsFile {
     pub basin_delta_chi2: f64,
     pub known_bodies: Vec<String>,
     pub folded_into_sun: Vec<String>,
+    /// The GM (au^3/day^2) of the central mass about which the perturber's
+    /// orbits move and its elements in posterior.csv osculate: the Sun
+    /// with the folded planets.
+    pub central_gm_au3_per_day2: f64,
     pub ephemeris: String,
 }
 
