@@ -296,10 +296,19 @@ def _progress(progress: Any) -> Optional[Callable[[str, int, int], None]]:
                 bar.close()
                 state["stage"] = None
         else:
-            sys.stderr.write(f"\r{stage}: {done}/{total}")
-            if done >= total:
-                sys.stderr.write("\n")
+            # No tqdm: one line rewritten in place on a terminal; elsewhere
+            # (a log, a captured cell) a line per tenth of the stage.
+            tenth = 10 * done // max(total, 1)
+            if state.get("shown") == (stage, tenth if not sys.stderr.isatty() else done):
+                return
+            state["shown"] = (stage, tenth if not sys.stderr.isatty() else done)
+            if sys.stderr.isatty():
+                sys.stderr.write(f"\r{stage}: {done}/{total}" + ("\n" if done >= total else ""))
+            else:
+                sys.stderr.write(f"{stage}: {done}/{total}\n")
             sys.stderr.flush()
+            if done >= total:
+                state["stage"] = None
 
     return show
 
