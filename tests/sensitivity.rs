@@ -148,6 +148,18 @@ fn four_shards_merge_into_the_unsharded_map() {
     let a = std::fs::read_to_string(whole.join("sensitivity.csv")).unwrap();
     let b = std::fs::read_to_string(merged.join("sensitivity.csv")).unwrap();
     assert_eq!(a, b, "merged shards differ from the unsharded map");
+    // The CSV holds only its table (header first, no comment lines: pandas,
+    // the csv module and spreadsheets read it with default settings); the
+    // settings and the threshold are in the JSON beside it.
+    assert!(a.starts_with("mass_earth,distance_au,detection_probability,"), "{}", &a[..80.min(a.len())]);
+    assert!(a.lines().all(|l| l.split(',').count() == 7));
+    let meta = |p: std::path::PathBuf| -> serde_json::Value {
+        serde_json::from_str(&std::fs::read_to_string(p).unwrap()).unwrap()
+    };
+    let (m_whole, m_merged) = (meta(whole.join("sensitivity.json")), meta(merged.join("sensitivity.json")));
+    assert_eq!(m_whole, m_merged);
+    assert!(m_whole["threshold_delta_chi2"].as_f64().unwrap() > 0.0);
+    assert_eq!(meta(parts.join("sensitivity.part-3-of-4.json"))["shard"], serde_json::json!([3, 4]));
     assert!(merged.join("sensitivity.png").exists());
     // A planned schedule (epochs and sigmas only) with an orbit from fit.json.
     let text = std::fs::read_to_string(demo.join("observations.csv")).unwrap();
@@ -199,6 +211,14 @@ fn four_shards_merge_into_the_unsharded_map() {
     std::fs::write(dir.join("schedule.csv"), future).unwrap();
     let o = planned(&demo.join("residuals/fit.json"));
     assert!(o.status.success(), "a schedule after the fit: {}", String::from_utf8_lossy(&o.stderr));
+    // A shard made with other settings is refused.
+    let side = parts.join("sensitivity.part-4-of-4.json");
+    let original = std::fs::read_to_string(&side).unwrap();
+    std::fs::write(&side, original.replace("\"trials\": 6", "\"trials\": 7")).unwrap();
+    let o = latens().args(["sensitivity", "merge"]).arg(&parts).arg("--out").arg(dir.join("bad")).output().unwrap();
+    assert_eq!(o.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("other settings"), "{}", String::from_utf8_lossy(&o.stderr));
+    std::fs::write(&side, original).unwrap();
     // A missing shard is refused.
     std::fs::remove_file(parts.join("sensitivity.part-2-of-4.csv")).unwrap();
     let o = latens().args(["sensitivity", "merge"]).arg(&parts).arg("--out").arg(dir.join("bad")).output().unwrap();

@@ -42,6 +42,7 @@ from typing import Any, Callable, Iterable, Mapping, Optional, Sequence, Union
 from . import _native
 from ._native import (
     Detection,
+    JointDetection,
     FitError,
     InputError,
     LatensError,
@@ -61,6 +62,7 @@ __all__ = [
     "Detection",
     "FitError",
     "InputError",
+    "JointDetection",
     "LatensError",
     "NotConvergedError",
     "Posterior",
@@ -317,7 +319,7 @@ def _progress(progress: Any) -> Optional[Callable[[str, int, int], None]]:
 # Stages (the native functions, with progress and tables added).
 
 
-def detect(study, *, progress: Any = None, **settings) -> Detection:
+def detect(study, *, progress: Any = None, **settings) -> Union[Detection, JointDetection]:
     return _native.detect(study, progress=_progress(progress), **settings)
 
 

@@ -129,8 +129,10 @@ def test_sensitivity_matches_latens_sensitivity(simulated, tmp_path):
     )
     study = latens.Study(simulated / "observations.csv", sites=simulated / "sites.csv")
     s = latens.sensitivity(study, grid=(3, 3), trials=8, nulls=40, directions=12, distances=2)
-    lines = [l for l in (tmp_path / "sensitivity.csv").read_text().splitlines() if not l.startswith("#")]
-    rows = list(csv.DictReader(lines))
+    with open(tmp_path / "sensitivity.csv", newline="") as f:
+        rows = list(csv.DictReader(f))
+    meta = json.loads((tmp_path / "sensitivity.json").read_text())
+    assert s.threshold_delta_chi2 == meta["threshold_delta_chi2"]
     assert len(rows) == 9 == len(s.cells["detection_probability"])
     got = {(int(m), int(d)): p for m, d, p in zip(s.cells["mass_index"], s.cells["distance_index"],
                                                  s.cells["detection_probability"])}

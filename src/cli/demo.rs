@@ -183,6 +183,7 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
         ("track.csv", "Vesk's monthly geocentric track and the planets' shift of it"),
         ("residuals/", "fit.json, residuals.csv, residuals.png/.svg: the reference orbit and its O-C"),
         ("search/summary.json", "the verdict, the posterior summary, the evidence and the alternative explanations"),
+        ("search/null_fit.json", "the reference orbit (no perturber) the search started from"),
         ("search/residuals_null_vs_best.png", "O-C without and with the best perturber"),
         ("search/posterior.csv, posterior_*.png", "posterior samples; corner and trace charts"),
         ("search/search_chart.png", "where to point, the whole sky and a zoom on each mode"),
@@ -191,7 +192,10 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
             "the sky map and the credible regions as MOCs (for Aladin, mocpy, astropy)",
         ),
         ("search/modes.csv", "each sky mode: centre, area, distance, brightness, motion, when observable"),
-        ("sensitivity/", "sensitivity.csv, sensitivity.png/.svg: what this survey could have revealed"),
+        (
+            "sensitivity/",
+            "sensitivity.csv, .json, .png/.svg: what this survey could have revealed, and with which settings",
+        ),
         ("population/bodies/", "the twelve bodies' simulated observations, one file each"),
         ("population/search/", "the joint study: summary.json, bodies.csv, posterior and search products"),
     ];

@@ -8,6 +8,7 @@ use anyhow::Context;
 use super::CliError;
 use super::args::{SensitivityArgs, SensitivityCommand};
 use latens::dynamics::TrackedBody;
+use latens::io::results::SensitivityFile;
 use latens::io::write_atomically;
 use latens::perturber::search::SearchSettings;
 use latens::perturber::sensitivity::{Cell, SensitivitySettings, contour};
@@ -95,25 +96,49 @@ pub(super) fn run(args: &SensitivityArgs) -> Result<(), CliError> {
     let map = sensitivity(&study, &plan, &crate::cli::progress::Bars::new())?;
     let (threshold, cells) = (map.threshold_delta_chi2, &map.cells);
 
-    let mut csv = format!(
-        "# latens sensitivity: detection threshold delta chi2 {threshold:.4} (false-alarm probability {}), seed {}, grid {}:{}, trials {}\n{HEADER}\n",
-        args.fap, args.seed, grid.0, grid.1, args.trials
-    );
+    let meta = SensitivityFile {
+        threshold_delta_chi2: threshold,
+        false_alarm_probability: args.fap,
+        seed: args.seed,
+        mass_earth: [mass.0, mass.1],
+        distance_au: [distance.0, distance.1],
+        grid: [grid.0, grid.1],
+        trials: args.trials,
+        near_ecliptic_deg: args.near_ecliptic,
+        nulls: args.nulls,
+        directions: args.directions,
+        distances: args.distances,
+        bodies: study.bodies.iter().map(|b| b.name.clone()).collect(),
+        shard: shard.map(|(k, n)| [k, n]),
+    };
+    let mut csv = format!("{HEADER}\n");
     for c in cells {
         csv.push_str(&csv_row(c));
     }
     match shard {
         Some((k, n)) => {
+            std::fs::create_dir_all(&args.out)
+                .map_err(|e| CliError::failed(anyhow::anyhow!("creating {}: {e}", args.out.display())))?;
             let path = args.out.join(format!("sensitivity.part-{k}-of-{n}.csv"));
+            write_atomically(&path.with_extension("json"), json_text(&meta).as_bytes()).map_err(CliError::failed)?;
             write_atomically(&path, csv.as_bytes()).map_err(CliError::failed)?;
-            println!("Shard {k} of {n}: {} cells written to {}", cells.len(), path.display());
+            println!(
+                "Shard {k} of {n}: {} cells written to {} (settings in {})",
+                cells.len(),
+                path.display(),
+                path.with_extension("json").display()
+            );
             println!("Join the shards with: latens sensitivity merge DIR... --out DIR");
         }
         None => {
-            write_products(&args.out, &csv, cells, threshold).map_err(CliError::failed)?;
+            write_products(&args.out, &csv, cells, &meta).map_err(CliError::failed)?;
         }
     }
     Ok(())
+}
+
+fn json_text(meta: &SensitivityFile) -> String {
+    serde_json::to_string_pretty(meta).unwrap_or_default() + "\n"
 }
 
 /// One line of sensitivity.csv (shards and merged maps alike).
@@ -145,7 +170,8 @@ fn read_orbit(path: &Path) -> Result<(f64, [f64; 6]), CliError> {
     Ok((jd - latens::units::J2000_JD, state))
 }
 
-fn write_products(out: &Path, csv: &str, cells: &[Cell], threshold: f64) -> anyhow::Result<()> {
+fn write_products(out: &Path, csv: &str, cells: &[Cell], meta: &SensitivityFile) -> anyhow::Result<()> {
+    let threshold = meta.threshold_delta_chi2;
     let c50 = contour(cells, 0.5);
     let c90 = contour(cells, 0.9);
     let c95 = contour(cells, 0.95);
@@ -164,18 +190,24 @@ fn write_products(out: &Path, csv: &str, cells: &[Cell], threshold: f64) -> anyh
     super::write_png(&out.join("sensitivity.png"), |tmp| chart.draw_png(tmp))?;
     write_atomically(&out.join("sensitivity.svg"), svg.as_bytes())?;
     write_atomically(&out.join("sensitivity.csv"), csv.as_bytes())?;
+    write_atomically(&out.join("sensitivity.json"), json_text(meta).as_bytes())?;
     println!("Mass detected with 50% / 90% probability, and excluded at 95% if nothing is detected:");
     for ((d, m50), ((_, m90), (_, m95))) in c50.iter().zip(c90.iter().zip(&c95)).step_by((c50.len() / 8).max(1)) {
         let f = |m: &Option<f64>| m.map_or("beyond the grid".to_string(), |m| format!("{m:.3} Earth masses"));
         println!("  at {d:7.1} au: {} / {} / {}", f(m50), f(m90), f(m95));
     }
-    println!("Files written in {}: sensitivity.csv, sensitivity.png, sensitivity.svg", out.display());
+    println!(
+        "Files written in {}: sensitivity.csv (the map), sensitivity.json (its settings and threshold), sensitivity.png, sensitivity.svg",
+        out.display()
+    );
     Ok(())
 }
 
-/// Joins shard files into the full map; refuses missing or repeated cells.
+/// Joins shard files into the full map: every shard's settings
+/// (sensitivity.part-K-of-N.json) must agree; missing or repeated cells are
+/// refused.
 fn merge(dirs: &[PathBuf], out: &Path) -> Result<(), CliError> {
-    let mut header_comment: Option<String> = None;
+    let mut settings: Option<(SensitivityFile, PathBuf)> = None;
     let mut cells: Vec<Cell> = Vec::new();
     for dir in dirs {
         let entries = std::fs::read_dir(dir)
@@ -183,23 +215,33 @@ fn merge(dirs: &[PathBuf], out: &Path) -> Result<(), CliError> {
             .map_err(CliError::bad_input)?;
         let mut parts: Vec<PathBuf> = entries
             .filter_map(|e| e.ok().map(|e| e.path()))
-            .filter(|p| p.file_name().is_some_and(|n| n.to_string_lossy().starts_with("sensitivity.part-")))
+            .filter(|p| {
+                p.file_name().is_some_and(|n| n.to_string_lossy().starts_with("sensitivity.part-"))
+                    && p.extension().is_some_and(|x| x == "csv")
+            })
             .collect();
         parts.sort();
         for part in parts {
+            let side = part.with_extension("json");
+            let meta: SensitivityFile =
+                latens::io::results::read_json(&side).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+            let same = SensitivityFile { shard: None, ..meta.clone() };
+            match &settings {
+                None => settings = Some((same, side.clone())),
+                Some((first, first_path)) if *first != same => {
+                    return Err(CliError::bad_input(anyhow::anyhow!(
+                        "{}: made with other settings than {}",
+                        side.display(),
+                        first_path.display()
+                    )));
+                }
+                _ => {}
+            }
             let text = std::fs::read_to_string(&part)
                 .with_context(|| format!("reading {}", part.display()))
                 .map_err(CliError::bad_input)?;
             for (i, line) in text.lines().enumerate() {
                 let bad = |what: &str| CliError::bad_input(anyhow::anyhow!("{}:{}: {what}", part.display(), i + 1));
-                if let Some(comment) = line.strip_prefix('#') {
-                    match &header_comment {
-                        None => header_comment = Some(comment.to_string()),
-                        Some(h) if h != comment => return Err(bad("made with other settings than the first shard")),
-                        _ => {}
-                    }
-                    continue;
-                }
                 if line == HEADER || line.trim().is_empty() {
                     continue;
                 }
@@ -222,29 +264,26 @@ fn merge(dirs: &[PathBuf], out: &Path) -> Result<(), CliError> {
             }
         }
     }
-    let Some(comment) = header_comment else {
+    let Some((meta, _)) = settings else {
         return Err(CliError::bad_input(anyhow::anyhow!("no sensitivity.part-*.csv files in the given directories")));
     };
     cells.sort_by_key(|c| (c.distance_index, c.mass_index));
     let n_mass = cells.iter().map(|c| c.mass_index).max().map_or(0, |m| m + 1);
     let n_dist = cells.iter().map(|c| c.distance_index).max().map_or(0, |d| d + 1);
     if cells.len() != n_mass * n_dist
+        || [n_mass, n_dist] != meta.grid
         || cells.windows(2).any(|w| (w[0].distance_index, w[0].mass_index) == (w[1].distance_index, w[1].mass_index))
     {
         return Err(CliError::bad_input(anyhow::anyhow!(
-            "the shards hold {} cells for a {n_mass} x {n_dist} grid: some are missing or repeated",
-            cells.len()
+            "the shards hold {} cells for a {} x {} grid: some are missing or repeated",
+            cells.len(),
+            meta.grid[0],
+            meta.grid[1]
         )));
     }
-    let threshold = comment
-        .split("delta chi2 ")
-        .nth(1)
-        .and_then(|s| s.split_whitespace().next())
-        .and_then(|s| s.parse::<f64>().ok())
-        .unwrap_or(f64::NAN);
-    let mut csv = format!("#{comment}\n{HEADER}\n");
+    let mut csv = format!("{HEADER}\n");
     for c in &cells {
         csv.push_str(&csv_row(c));
     }
-    write_products(out, &csv, &cells, threshold).map_err(CliError::failed)
+    write_products(out, &csv, &cells, &meta).map_err(CliError::failed)
 }

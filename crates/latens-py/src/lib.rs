@@ -24,11 +24,12 @@ use pyo3::types::{PyDict, PyList};
 
 use latens::dynamics::TrackedBody;
 use latens::io::observations::SiteTable;
-use latens::perturber::SearchSettings;
 use latens::perturber::sensitivity::SensitivitySettings;
+use latens::perturber::{SearchSettings, SignalKernel};
 use latens::pipeline::{
-    DETECTION_FAP, Detection, DetectionSettings, EphemerisSource, OrbitSample, PipelineError, PosteriorOutcome,
-    PosteriorSettings, SensitivityMap, SensitivityPlan, SkyProducts, Study, TrackedArc,
+    BodyCorrection, DETECTION_FAP, Detection, DetectionSettings, EphemerisSource, JointDetection, JointSettings,
+    OrbitSample, PipelineError, PosteriorOutcome, PosteriorSettings, SensitivityMap, SensitivityPlan, SkyProducts,
+    Study, TrackedArc,
 };
 use latens::posterior::impostors::{self, ImpostorPriors};
 use latens::progress::{Observer, Stage};
@@ -630,7 +631,7 @@ impl PyDetection {
 /// detect(study, mass_earth=(0.01, 5000), distance_au=(5, 500), nulls=1000, directions=768,
 /// distances=20, seed=1, reject_sigma=10.0, progress=None) -> Detection
 ///
-/// Searches a one-body study for an unseen perturber, as `latens infer`
+/// Searches the study for an unseen perturber, as `latens infer`
 /// does before its posterior: the reference fit, the linear kernel, the
 /// grid search over `directions` x `distances` (x orientations x speeds)
 /// hypotheses with the mass profiled, `nulls` null simulations for the
@@ -638,6 +639,10 @@ impl PyDetection {
 /// the full model, outliers judged against the best model
 /// (`reject_sigma`, None keeps every observation) and the verdict. The
 /// same seed gives the same numbers as the command line.
+///
+/// A study of several bodies is searched jointly for one shared perturber
+/// and gives a JointDetection (each body also searched alone, and the
+/// search repeated without the strongest body; every observation is used).
 #[pyfunction]
 #[pyo3(signature = (study, mass_earth=(0.01, 5000.0), distance_au=(5.0, 500.0), nulls=1000, directions=768, distances=20, seed=1, reject_sigma=Some(10.0), progress=None))]
 #[allow(clippy::too_many_arguments)]
@@ -652,11 +657,18 @@ fn detect(
     seed: u64,
     reject_sigma: Option<f64>,
     progress: Option<Py<PyAny>>,
-) -> PyResult<PyDetection> {
+) -> PyResult<Py<PyAny>> {
     let settings = detection_settings(py, mass_earth, distance_au, nulls, directions, distances, seed, reject_sigma)?;
     let observer = PyObserver::new(progress);
+    if study.inner.bodies.len() > 1 {
+        let joint = JointSettings { search: settings.search, each_alone: true, leave_one_out: true };
+        let result = py.detach(|| latens::pipeline::detect_joint(&study.inner, &joint, &observer));
+        let inner = observer.outcome(py, result)?;
+        return Ok(Py::new(py, PyJointDetection { inner })?.into_any());
+    }
     let result = py.detach(|| latens::pipeline::detect(&study.inner, &settings, &observer));
-    observer.outcome(py, result).map(|inner| PyDetection { inner })
+    let inner = observer.outcome(py, result)?;
+    Ok(Py::new(py, PyDetection { inner })?.into_any())
 }
 
 #[allow(clippy::too_many_arguments)]
@@ -699,6 +711,148 @@ fn detection_settings(
     Ok(DetectionSettings { search, reject_sigma })
 }
 
+/// A joint search of several tracked bodies for one shared perturber: the
+/// joint chi-square drop and its false-alarm probability, each body's part
+/// of it, each body searched alone and the search without the strongest
+/// body (as `latens infer` with several bodies).
+#[pyclass(module = "latens._native", name = "JointDetection", frozen)]
+struct PyJointDetection {
+    inner: JointDetection,
+}
+
+#[pymethods]
+impl PyJointDetection {
+    /// The best joint chi-square drop against the bodies' null models.
+    #[getter]
+    fn delta_chi2(&self) -> f64 {
+        self.inner.best_delta_chi2()
+    }
+    /// The share of null simulations of the joint search that reached it.
+    #[getter]
+    fn false_alarm_probability(&self) -> f64 {
+        self.inner.false_alarm_probability()
+    }
+    /// Whether the joint false-alarm probability is below the threshold.
+    #[getter]
+    fn detected(&self) -> bool {
+        self.inner.verdict.detected()
+    }
+    /// The verdict in a sentence, with which bodies carry the signal.
+    #[getter]
+    fn verdict(&self) -> String {
+        self.inner.verdict_text()
+    }
+    /// Warnings for the reader, in words.
+    #[getter]
+    fn warnings(&self) -> Vec<String> {
+        self.inner.warnings()
+    }
+    /// The best search drop of every null simulation of the joint search.
+    #[getter]
+    fn null_maxima<'py>(&self, py: Python<'py>) -> Bound<'py, PyArray1<f64>> {
+        self.inner.search.null_maxima.clone().into_pyarray(py)
+    }
+    /// Perturber hypotheses searched.
+    #[getter]
+    fn n_hypotheses(&self) -> usize {
+        self.inner.search.n_hypotheses
+    }
+    /// Per body, in the study's order: `name`, `n_observations`,
+    /// `null_chi2`, `null_dof`, `delta_chi2_at_best` (its part of the best
+    /// joint drop), `alone_delta_chi2` and `alone_false_alarm_probability`
+    /// (its own search), `orbit` (its reference fit, as fit.json).
+    #[getter]
+    fn bodies<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyList>> {
+        let list = PyList::empty(py);
+        for (b, e) in self.inner.bodies.iter().zip(&self.inner.evidence) {
+            let d = PyDict::new(py);
+            d.set_item("name", &b.name)?;
+            d.set_item("n_observations", b.observations.len())?;
+            d.set_item("null_chi2", b.null.chi2)?;
+            d.set_item("null_dof", b.null.dof)?;
+            d.set_item("delta_chi2_at_best", e.delta_chi2_at_best)?;
+            d.set_item("alone_delta_chi2", e.alone.map(|a| a.delta_chi2))?;
+            d.set_item("alone_false_alarm_probability", e.alone.map(|a| a.false_alarm_probability))?;
+            d.set_item("orbit", json_value(py, &b.null.orbit_file())?)?;
+            list.append(d)?;
+        }
+        Ok(list)
+    }
+    /// The search without the body carrying most of the signal: `body`
+    /// (its name), `delta_chi2`, `false_alarm_probability`; None when not run.
+    #[getter]
+    fn leave_one_out<'py>(&self, py: Python<'py>) -> PyResult<Option<Bound<'py, PyDict>>> {
+        let Some(l) = &self.inner.leave_one_out else { return Ok(None) };
+        let d = PyDict::new(py);
+        d.set_item("body", &self.inner.bodies[l.body].name)?;
+        d.set_item("delta_chi2", l.delta_chi2)?;
+        d.set_item("false_alarm_probability", l.false_alarm_probability)?;
+        Ok(Some(d))
+    }
+    /// The bodies' table as a pandas DataFrame (without the orbits).
+    fn to_pandas<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyAny>> {
+        let rows = self.bodies(py)?;
+        for row in rows.iter() {
+            row.cast_into::<PyDict>()?.del_item("orbit")?;
+        }
+        py.import("pandas")?.getattr("DataFrame")?.call1((rows,))
+    }
+    /// The joint detection as plain Python values (JSON-ready).
+    fn to_dict<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyDict>> {
+        let d = PyDict::new(py);
+        d.set_item("delta_chi2", self.delta_chi2())?;
+        d.set_item("false_alarm_probability", self.false_alarm_probability())?;
+        d.set_item("detected", self.detected())?;
+        d.set_item("verdict", self.verdict())?;
+        d.set_item("n_hypotheses", self.n_hypotheses())?;
+        d.set_item("n_null_simulations", self.inner.search.null_maxima.len())?;
+        d.set_item("bodies", self.bodies(py)?)?;
+        d.set_item("leave_one_out", self.leave_one_out(py)?)?;
+        d.set_item("warnings", self.warnings())?;
+        Ok(d)
+    }
+    fn __repr__(&self) -> String {
+        format!(
+            "<latens.JointDetection: {} bodies, delta chi2 {:.1}, false-alarm probability {:.2e}, {}>",
+            self.inner.bodies.len(),
+            self.delta_chi2(),
+            self.false_alarm_probability(),
+            if self.detected() { "detected" } else { "not detected" }
+        )
+    }
+}
+
+/// The detection of either kind a stage was given, with what the later
+/// stages need of it: its posterior kernel's epoch and central GM.
+enum Found<'a> {
+    One(&'a Detection),
+    Joint(&'a JointDetection),
+}
+
+impl Found<'_> {
+    fn of<'a>(py: Python<'_>, detection: &'a Bound<'_, PyAny>) -> PyResult<Found<'a>> {
+        // Frozen classes lend their contents for as long as the object is held.
+        if let Ok(d) = detection.cast::<PyDetection>() {
+            return Ok(Found::One(&d.get().inner));
+        }
+        if let Ok(d) = detection.cast::<PyJointDetection>() {
+            return Ok(Found::Joint(&d.get().inner));
+        }
+        Err(bad_setting(py, "detection must be the result of latens.detect"))
+    }
+
+    /// The posterior's reference epoch (TDB days) and central GM.
+    fn epoch_and_gm(&self) -> (f64, f64) {
+        match self {
+            Found::One(d) => {
+                let (k, _) = d.posterior_kernel();
+                (k.epoch_tdb_days, k.central_gm())
+            }
+            Found::Joint(d) => (d.kernel.epoch_tdb_days(), SignalKernel::central_gm(&d.kernel)),
+        }
+    }
+}
+
 // ---------------------------------------------------------------------------
 // Posterior.
 
@@ -706,6 +860,9 @@ fn detection_settings(
 #[pyclass(module = "latens._native", name = "Posterior", frozen)]
 struct PyPosterior {
     inner: PosteriorOutcome,
+    /// A joint study's per-body parts (empty for one body).
+    corrections: Vec<BodyCorrection>,
+    body_alternatives: Vec<(String, Vec<latens::io::results::ImpostorFile>)>,
 }
 
 #[pymethods]
@@ -779,6 +936,31 @@ impl PyPosterior {
     fn explanation_detail<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyAny>> {
         json_value(py, &self.inner.explanation.file())
     }
+    /// A joint study's per-body orbit corrections under the perturber:
+    /// `name`, `position_km` and `velocity_m_per_s` (median and intervals)
+    /// at the reference epoch. Empty for one body.
+    #[getter]
+    fn corrections<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyList>> {
+        let list = PyList::empty(py);
+        for c in &self.corrections {
+            let d = PyDict::new(py);
+            d.set_item("name", &c.name)?;
+            d.set_item("position_km", json_value(py, &c.position_km)?)?;
+            d.set_item("velocity_m_per_s", json_value(py, &c.velocity_m_per_s)?)?;
+            list.append(d)?;
+        }
+        Ok(list)
+    }
+    /// A joint study's per-body alternatives (non-gravitational push,
+    /// astrometric offsets), by body name. Empty for one body.
+    #[getter]
+    fn body_alternatives<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyDict>> {
+        let d = PyDict::new(py);
+        for (name, alts) in &self.body_alternatives {
+            d.set_item(name, json_value(py, alts)?)?;
+        }
+        Ok(d)
+    }
     /// Warnings for the reader, in words.
     #[getter]
     fn warnings(&self) -> Vec<String> {
@@ -832,7 +1014,7 @@ impl PyPosterior {
 fn posterior(
     py: Python<'_>,
     study: &PyStudy,
-    detection: &PyDetection,
+    detection: &Bound<'_, PyAny>,
     steps: usize,
     walkers: usize,
     temperatures: usize,
@@ -847,7 +1029,8 @@ fn posterior(
     resume: bool,
     progress: Option<Py<PyAny>>,
 ) -> PyResult<PyPosterior> {
-    let arc = study.inner.single().map_err(|e| to_py(py, e))?;
+    let found = Found::of(py, detection)?;
+    let kind = study.inner.bodies.first().map(|b| b.tracked.kind).ok_or_else(|| bad_setting(py, "no body"))?;
     for (v, name) in [
         (gm_prior_inflation, "gm_prior_inflation"),
         (nongrav_prior.unwrap_or(1.0), "nongrav_prior"),
@@ -870,7 +1053,7 @@ fn posterior(
         max_eccentricity,
         alternatives: ImpostorPriors {
             gm_inflation: gm_prior_inflation,
-            nongrav_au_per_day2: nongrav_prior.unwrap_or(impostors::nongrav_prior_for(arc.tracked.kind)),
+            nongrav_au_per_day2: nongrav_prior.unwrap_or(impostors::nongrav_prior_for(kind)),
             offset_arcsec: offset_prior,
         },
         sample,
@@ -879,8 +1062,28 @@ fn posterior(
     };
     settings.check().map_err(|e| to_py(py, e))?;
     let observer = PyObserver::new(progress);
-    let result = py.detach(|| latens::pipeline::posterior(&study.inner, &detection.inner, &settings, &observer));
-    observer.outcome(py, result).map(|inner| PyPosterior { inner })
+    match found {
+        Found::One(d) => {
+            let result = py.detach(|| latens::pipeline::posterior(&study.inner, d, &settings, &observer));
+            let inner = observer.outcome(py, result)?;
+            Ok(PyPosterior { inner, corrections: Vec::new(), body_alternatives: Vec::new() })
+        }
+        Found::Joint(d) => {
+            let result = py.detach(|| latens::pipeline::posterior_joint(&study.inner, d, &settings, &observer));
+            let j = observer.outcome(py, result)?;
+            let names = study.inner.bodies.iter().map(|b| b.name.clone());
+            Ok(PyPosterior {
+                inner: PosteriorOutcome {
+                    alternatives: j.alternatives,
+                    explanation: j.explanation,
+                    run: j.run,
+                    warnings: j.warnings,
+                },
+                corrections: j.corrections,
+                body_alternatives: names.zip(j.body_alternatives).collect(),
+            })
+        }
+    }
 }
 
 // ---------------------------------------------------------------------------
@@ -992,11 +1195,17 @@ impl PySky {
 /// and the warning when a region lies near the Sun (pointing a telescope
 /// there can destroy eyes and instruments).
 #[pyfunction]
-fn sky_products(py: Python<'_>, study: &PyStudy, detection: &PyDetection, posterior: &PyPosterior) -> PyResult<PySky> {
+fn sky_products(
+    py: Python<'_>,
+    study: &PyStudy,
+    detection: &Bound<'_, PyAny>,
+    posterior: &PyPosterior,
+) -> PyResult<PySky> {
+    let (t0, gm) = Found::of(py, detection)?.epoch_and_gm();
     let Some(run) = &posterior.inner.run else {
         return Err(bad_setting(py, "the posterior has no samples (sample=False, or no basin to sample)"));
     };
-    let result = py.detach(|| latens::pipeline::sky_products(&study.inner, &detection.inner, run));
+    let result = py.detach(|| latens::pipeline::sky_products_at(&study.inner, t0, gm, run));
     let inner = result.map_err(|e| to_py(py, e))?;
     Ok(PySky { inner, epoch_utc: utc_iso_from_epoch(epoch_from_tdb_days(study.inner.search_epoch_tdb_days)) })
 }
@@ -1017,7 +1226,7 @@ fn sky_products(py: Python<'_>, study: &PyStudy, detection: &PyDetection, poster
 fn predict<'py>(
     py: Python<'py>,
     study: &PyStudy,
-    detection: &PyDetection,
+    detection: &Bound<'_, PyAny>,
     posterior: &PyPosterior,
     start: Option<&str>,
     end: Option<&str>,
@@ -1041,12 +1250,8 @@ fn predict<'py>(
     if steps > 100_000 {
         return Err(bad_setting(py, format!("{steps} dates asked for; use a larger step_days")));
     }
-    let (kernel, _) = detection.inner.posterior_kernel();
-    let samples: Vec<OrbitSample> = run
-        .samples
-        .iter()
-        .filter_map(|d| OrbitSample::from_derived(d, kernel.central_gm(), kernel.epoch_tdb_days))
-        .collect();
+    let (t0, gm) = Found::of(py, detection)?.epoch_and_gm();
+    let samples: Vec<OrbitSample> = run.samples.iter().filter_map(|d| OrbitSample::from_derived(d, gm, t0)).collect();
     let earth = latens::ephemeris::Vsop87::new();
     let p =
         py.detach(|| latens::pipeline::predict(&samples, &earth, start, step_days, steps)).map_err(|e| to_py(py, e))?;
@@ -1244,6 +1449,7 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_class::<PyStudy>()?;
     m.add_class::<PyReferenceFit>()?;
     m.add_class::<PyDetection>()?;
+    m.add_class::<PyJointDetection>()?;
     m.add_class::<PyPosterior>()?;
     m.add_class::<PySky>()?;
     m.add_class::<PySensitivity>()?;

@@ -598,3 +598,28 @@ pub struct LeaveOneOutFile {
     pub false_alarm_probability: f64,
     pub detected: bool,
 }
+
+/// `sensitivity.json` (and `sensitivity.part-K-of-N.json` of a shard): what
+/// the map in sensitivity.csv was made with, so the CSV holds only its
+/// table. Shards of one map agree on everything but `shard`.
+#[derive(Debug, Serialize, Deserialize, Clone, PartialEq)]
+pub struct SensitivityFile {
+    /// The chi-square drop a detection needs in these data.
+    pub threshold_delta_chi2: f64,
+    pub false_alarm_probability: f64,
+    pub seed: u64,
+    pub mass_earth: [f64; 2],
+    pub distance_au: [f64; 2],
+    /// Masses by distances.
+    pub grid: [usize; 2],
+    pub trials: usize,
+    /// Directions within this many degrees of the ecliptic (null: isotropic).
+    pub near_ecliptic_deg: Option<f64>,
+    pub nulls: usize,
+    pub directions: usize,
+    pub distances: usize,
+    /// The bodies mapped together, by name.
+    pub bodies: Vec<String>,
+    /// [K, N] for shard K of N; null for a whole (or merged) map.
+    pub shard: Option<[usize; 2]>,
+}
