@@ -29,6 +29,13 @@ fn bad_arguments_exit_two() {
     assert_eq!(out.status.code(), Some(2));
     let out = latens().output().unwrap();
     assert_eq!(out.status.code(), Some(2));
+    // Options are checked before any work: a --resume directory without a
+    // checkpoint is refused before the observations are even read.
+    let missing = std::env::temp_dir().join(format!("latens-no-checkpoint-{}", std::process::id()));
+    let out = latens().args(["infer", "--obs", "no-such-file.csv", "--resume"]).arg(&missing).output().unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert!(stderr.contains("--resume") && stderr.contains("no checkpoint.json"), "{stderr}");
 }
 
 #[test]

@@ -10,6 +10,7 @@ once and passed to the stages::
     det = latens.detect(study, progress=True)     # search, false alarms, verdict
     post = latens.posterior(study, det, progress=True)
     sky = latens.sky_products(study, det, post)   # map, 50%/90% regions, modes
+    # or the three in one call, as `latens infer`: latens.infer(study)
     sky.write_region("region90.fits")             # an IVOA MOC
     places = latens.predict(study, det, post)     # where each mode will be
     sens = latens.sensitivity(study)              # what the data could reveal
@@ -66,11 +67,13 @@ __all__ = [
     "LatensError",
     "NotConvergedError",
     "Posterior",
+    "Inference",
     "ReferenceFit",
     "Sensitivity",
     "Sky",
     "Study",
     "detect",
+    "infer",
     "posterior",
     "predict",
     "reference_fit",
@@ -335,6 +338,76 @@ def sensitivity(study, *, progress: Any = None, **settings) -> Sensitivity:
 
 def predict(study, detection, posterior, **settings) -> Columns:
     return Columns(_native.predict(study, detection, posterior, **settings))
+
+
+class Inference:
+    """What ``infer`` found: ``detection`` (Detection or JointDetection),
+    ``posterior`` (Posterior, or None with ``sample=False``), ``sky`` (Sky,
+    only for a detection with samples: a non-detection gives no place to
+    look), ``verdict`` (one sentence) and ``warnings`` (all stages'; read
+    them: a region near the Sun is unsafe to point a telescope at)."""
+
+    def __init__(self, detection, posterior, sky):
+        self.detection = detection
+        self.posterior = posterior
+        self.sky = sky
+        self.verdict = detection.verdict
+        self.warnings = list(detection.warnings)
+        if posterior is not None:
+            self.warnings += list(posterior.warnings)
+        if sky is not None:
+            self.warnings += list(sky.warnings)
+
+    def __repr__(self) -> str:
+        return f"<latens.Inference: {self.verdict}>"
+
+
+def infer(study, *, sample: bool = True, progress: Any = None, checkpoint=None, resume: bool = False,
+          **settings) -> Inference:
+    """infer(study, *, sample=True, progress=None, checkpoint=None, resume=False, **settings) -> Inference
+
+    The main job in one call, as ``latens infer``: does an unseen perturber
+    explain the residuals, and where is it?
+
+    1. ``detect``: the reference fit, the grid search with the mass
+       profiled, the false-alarm probability from null simulations
+       (look-elsewhere included), the refinement and the verdict; several
+       bodies are searched jointly.
+    2. ``posterior``: the alternatives (known-planet masses, a
+       non-gravitational push, astrometric offsets) weighed against a
+       perturber, the tempered ensemble sampler, convergence and evidence.
+    3. ``sky_products`` (only for a detection): the sky map, the 50% and
+       90% credible regions, the modes.
+
+    settings: any of ``detect``'s (mass_earth, distance_au, nulls,
+    directions, distances, seed, reject_sigma) and ``posterior``'s (steps,
+    walkers, temperatures, runs, max_eccentricity, gm_prior_inflation,
+    nongrav_prior, offset_prior); ``seed`` goes to both, as on the command
+    line. Defaults are the command's. With ``checkpoint`` (a file), a
+    KeyboardInterrupt during sampling saves the sampler's progress;
+    ``resume=True`` continues from it.
+
+    Example::
+
+        study = latens.Study("obs.csv", sites="sites.csv")
+        found = latens.infer(study, progress=True)
+        print(found.verdict)
+        if found.sky is not None:
+            found.sky.write_region("region90.fits")
+    """
+    detect_keys = {"mass_earth", "distance_au", "nulls", "directions", "distances", "seed", "reject_sigma"}
+    posterior_keys = {"steps", "walkers", "temperatures", "runs", "seed", "max_eccentricity",
+                      "gm_prior_inflation", "nongrav_prior", "offset_prior"}
+    unknown = set(settings) - detect_keys - posterior_keys
+    if unknown:
+        raise InputError(f"infer: unknown setting(s) {', '.join(sorted(unknown))}")
+    found = detect(study, progress=progress, **{k: v for k, v in settings.items() if k in detect_keys})
+    post = posterior(study, found, progress=progress, checkpoint=checkpoint, resume=resume, sample=sample,
+                     **{k: v for k, v in settings.items() if k in posterior_keys})
+    sky = None
+    if found.detected and sample and post.samples_array.shape[0] > 0:
+        sky = sky_products(study, found, post)
+    return Inference(found, post, sky)
 
 
 def simulate(scenario) -> list:

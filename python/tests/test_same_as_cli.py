@@ -142,3 +142,18 @@ def test_sensitivity_matches_latens_sensitivity(simulated, tmp_path):
         assert abs(got[key] - float(r["detection_probability"])) < 5.1e-7
     assert s.probability.shape == (3, 3)
     assert s.to_pandas().shape[0] == 9
+
+
+def test_infer_in_one_call_is_the_three_stages(cli_infer, py_run):
+    from conftest import SAMPLER, SEARCH
+
+    out, summary = cli_infer
+    study, det, post = py_run
+    settings = dict(SEARCH, **{k: v for k, v in SAMPLER.items() if k != "seed"})
+    found = latens.infer(study, **settings)
+    assert found.detection.delta_chi2 == det.delta_chi2
+    assert np.array_equal(found.posterior.samples_array, post.samples_array)
+    assert (found.sky is not None) == summary["detection"]["detected"]
+    if found.sky is not None:
+        assert found.sky.summary == summary["sky"]
+    assert "latens.Inference" in repr(found)

@@ -50,8 +50,17 @@ pub(super) struct InferPlan {
 impl InferPlan {
     /// The plan the arguments describe; every option is checked here.
     pub fn from_args(args: &InferArgs) -> Result<InferPlan, CliError> {
-        // A resumed run writes where it was interrupted.
+        // A resumed run writes where it was interrupted; its checkpoint must
+        // be there before any work starts.
         let out = args.resume.clone().unwrap_or_else(|| args.out.clone());
+        if let Some(dir) = &args.resume
+            && !dir.join("checkpoint.json").is_file()
+        {
+            return Err(CliError::bad_input(anyhow::anyhow!(
+                "--resume {}: no checkpoint.json there (an interrupted `latens infer` leaves one in its output directory)",
+                dir.display()
+            )));
+        }
         let mass = super::parse_range(&args.mass_earth, "--mass-earth")?;
         let distance = super::parse_range(&args.distance_au, "--distance-au")?;
         // The false-alarm probability cannot go below 1/(nulls + 1): enough
