@@ -77,6 +77,7 @@ fn demo_writes_its_track_and_says_what_it_did() {
         names,
         [
             "observations.csv",
+            "outputs.json",
             "population",
             "residuals",
             "search",
@@ -86,6 +87,35 @@ fn demo_writes_its_track_and_says_what_it_did() {
             "truth.json"
         ]
     );
+    // outputs.json lists every file the demo wrote (it wrote into a fresh
+    // directory), each once, with what it is and its format.
+    let index: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(dir.join("outputs.json")).unwrap()).unwrap();
+    assert_eq!(index["schema_version"], 1);
+    let runs = index["runs"].as_array().unwrap();
+    assert_eq!(runs.len(), 1);
+    assert_eq!(runs[0]["command"], "demo");
+    let mut listed: Vec<String> =
+        runs[0]["files"].as_array().unwrap().iter().map(|f| f["file"].as_str().unwrap().to_string()).collect();
+    for f in runs[0]["files"].as_array().unwrap() {
+        assert!(!f["what"].as_str().unwrap().is_empty() && !f["format"].as_str().unwrap().is_empty(), "{f}");
+    }
+    listed.sort();
+    let mut on_disk = Vec::new();
+    let mut stack = vec![dir.to_path_buf()];
+    while let Some(d) = stack.pop() {
+        for e in std::fs::read_dir(&d).unwrap() {
+            let p = e.unwrap().path();
+            if p.is_dir() {
+                stack.push(p);
+            } else {
+                on_disk.push(p.strip_prefix(dir).unwrap().to_string_lossy().replace('\\', "/"));
+            }
+        }
+    }
+    on_disk.retain(|f| f != "outputs.json");
+    on_disk.sort();
+    assert_eq!(listed, on_disk, "outputs.json must list exactly the files written");
     // The joint section: twelve bodies' files and a joint study of them.
     assert_eq!(std::fs::read_dir(dir.join("population/bodies")).unwrap().count(), 12);
     let joint: serde_json::Value =

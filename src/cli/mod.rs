@@ -5,6 +5,7 @@
 
 mod args;
 mod demo;
+mod index;
 mod infer;
 mod joint;
 mod posterior;
@@ -76,6 +77,22 @@ where
 }
 
 fn run(args: Args) -> Result<(), CliError> {
+    let started = std::time::SystemTime::now();
+    // The directory each command writes into, and its name in the index.
+    let (out, label): (std::path::PathBuf, String) = match &args.command {
+        Command::Demo(d) => (d.out.clone(), "demo".into()),
+        Command::Residuals(r) => (r.out.clone(), "residuals".into()),
+        Command::Infer(i) => (i.resume.clone().unwrap_or_else(|| i.out.clone()), "infer".into()),
+        Command::Sensitivity(s) => match (&s.command, &s.shard) {
+            (Some(args::SensitivityCommand::Merge { out, .. }), _) => {
+                (out.clone().unwrap_or_else(|| s.out.clone()), "sensitivity merge".into())
+            }
+            (None, Some(shard)) => (s.out.clone(), format!("sensitivity --shard {shard}")),
+            (None, None) => (s.out.clone(), "sensitivity".into()),
+        },
+        Command::Predict(p) => (p.out.clone().unwrap_or_else(|| p.from.clone()), "predict".into()),
+        Command::Simulate(s) => (s.out.clone(), "simulate".into()),
+    };
     match args.command {
         Command::Demo(demo_args) => demo::run(&demo_args),
         Command::Residuals(r) => residuals::run(&r),
@@ -83,7 +100,8 @@ fn run(args: Args) -> Result<(), CliError> {
         Command::Sensitivity(s) => sensitivity::run(&s),
         Command::Predict(p) => predict::run(&p),
         Command::Simulate(s) => simulate::run(&s),
-    }
+    }?;
+    index::write_index(&out, &label, started).map_err(CliError::failed)
 }
 
 fn is_broken_pipe(error: &anyhow::Error) -> bool {
