@@ -7,25 +7,128 @@ use clap::{Parser, Subcommand};
 /// Latens: does the drift of a tracked body's orbit betray an unseen mass, and
 /// where should a telescope look for it?
 #[derive(Debug, Parser)]
-#[command(name = "latens", version, about, long_about = None)]
+#[command(name = "latens", version, about, long_about = TOP_ABOUT, after_long_help = TOP_AFTER)]
 pub struct Args {
     #[command(subcommand)]
     pub command: Command,
+    /// Worker threads for the parallel stages (default: one per core).
+    #[arg(long, value_name = "N", global = true)]
+    pub threads: Option<usize>,
 }
+
+const TOP_ABOUT: &str = "\
+Latens reads the astrometric observations of a tracked body (or of several), fits its orbit under \
+the Sun and the known planets, and decides whether the leftover drift of the O-C residuals means \
+an unseen mass is pulling on it. If so it fits that perturber's mass and orbit (a grid search \
+through a linearised kernel, then Levenberg-Marquardt, then a tempered MCMC), weighs it against \
+the other explanations (known-planet masses, a non-gravitational push, astrometric offsets), and \
+gives the posterior region of the sky where a telescope should look. It also says which perturber \
+masses at which distances the data could or could not have revealed.";
+
+const TOP_AFTER: &str = "\
+The workflow:
+  1. latens residuals --obs OBS.csv --sites SITES.csv    fit the orbit; look at the O-C
+  2. latens infer     --obs OBS.csv --sites SITES.csv    is there a perturber? where?
+  3. latens predict   --from output/infer                 each sky mode's place, date by date
+  4. latens sensitivity --obs OBS.csv --sites SITES.csv  what these data could have revealed
+  latens simulate SCENARIO.toml makes invented observations to try it all on;
+  latens demo runs the whole chain on a built-in invented scenario.
+
+Every command writes into --out DIR (an index of what it wrote is DIR/outputs.json) and exits
+0 on success, 1 when a computation fails, 2 on bad input or arguments (with the file, line and
+field named). File formats: docs/formats.md; the method: docs/method.md.
+Safety: a search region near the Sun carries a warning; pointing a telescope or any optics near
+the Sun can destroy eyes and instruments.";
 
 #[derive(Debug, Subcommand)]
 pub enum Command {
     /// Run the built-in invented scenario end to end and write what it makes.
+    #[command(
+        long_about = "Run the built-in invented scenario end to end and write what it makes.\n\n\
+            The demo simulates an invented survey of an invented distant body with an invented planet \
+            pulling on it, fits the orbit, finds the planet, samples its posterior, draws where to \
+            look, maps the survey's sensitivity, and searches an invented population of twelve \
+            bodies jointly. It needs no input files and takes about two minutes on two cores.",
+        after_long_help = "Examples:\n  latens demo\n  latens demo --out /tmp/demo"
+    )]
     Demo(DemoArgs),
     /// Fit the tracked body's reference orbit and show its O-C residuals.
+    #[command(
+        long_about = "Fit the tracked body's reference orbit and show its O-C residuals.\n\n\
+            The orbit is fitted under the Sun and the --known planets (Gauss's method for a start, \
+            then Levenberg-Marquardt on the full N-body model with light time); outliers are set \
+            aside and re-admitted as the fit settles. The summary says whether the residuals are \
+            consistent with the stated uncertainties, and their linear trend. Start here: residuals \
+            far beyond noise are what `latens infer` looks into.",
+        after_long_help = "Examples:\n  \
+            latens residuals --obs obs.csv --sites sites.csv\n  \
+            latens residuals --obs obs.psv --known jupiter,saturn,uranus,neptune,pluto --epoch 2020-01-01T00:00:00Z\n  \
+            latens residuals --obs planet.csv --tracked-mass uranus --known jupiter,saturn,neptune --ephemeris de440.bsp\n\n\
+            --known names: mercury, venus, earth, moon, earth-moon, mars, jupiter, saturn, uranus, \
+            neptune, pluto (or none)."
+    )]
     Residuals(ResidualsArgs),
     /// Search for an unseen perturber in the residuals and judge whether it is real.
+    #[command(
+        long_about = "Search for an unseen perturber in the residuals and judge whether it is real.\n\n\
+            A grid of perturber hypotheses (directions x distances x orbit orientations x speeds) is \
+            scored through a linearised kernel with the mass profiled; null simulations of the same \
+            search on noise alone give the false-alarm probability (the look-elsewhere effect \
+            included), and a detection needs it below 0.0027. The best solution is refined on the \
+            full model; the perturber's posterior is sampled (tempered ensemble MCMC) and weighed \
+            against the alternatives; for a detection, the sky map, the 50% and 90% credible regions \
+            and their modes say where to look. Several --obs (or a directory) search several bodies \
+            jointly for one shared perturber.",
+        after_long_help = "Examples:\n  \
+            latens infer --obs obs.csv --sites sites.csv\n  \
+            latens infer --obs obs.csv --sites sites.csv --mass-earth 1:100 --distance-au 30:300 --seed 7\n  \
+            latens infer --obs population/ --sites sites.csv --out output/joint\n  \
+            latens infer --obs obs.csv --sites sites.csv --resume output/infer   (after Ctrl-C)\n\n\
+            --known names: mercury, venus, earth, moon, earth-moon, mars, jupiter, saturn, uranus, \
+            neptune, pluto (or none)."
+    )]
     Infer(InferArgs),
     /// Map which perturber masses at which distances the observations could reveal.
+    #[command(
+        long_about = "Map which perturber masses at which distances the observations could reveal.\n\n\
+            For each cell of mass and distance, perturbers in random directions, orientations and \
+            phases are drawn and their signal through the kernel compared with the detection \
+            threshold that `latens infer`'s search has on noise alone. The map gives the mass \
+            detected with 50% and 90% probability at each distance, and the mass excluded at 95% \
+            when nothing is found. With --orbit, --obs is a planned schedule (epochs and sigmas \
+            only), for designing a survey. --shard K/N and `sensitivity merge` spread the map over \
+            a cluster's job array.",
+        after_long_help = "Examples:\n  \
+            latens sensitivity --obs obs.csv --sites sites.csv\n  \
+            latens sensitivity --obs plan.csv --orbit output/residuals/fit.json --sites sites.csv --near-ecliptic 20\n  \
+            latens sensitivity --obs obs.csv --sites sites.csv --shard 3/16 --out shards\n  \
+            latens sensitivity merge shards --out output/sensitivity"
+    )]
     Sensitivity(SensitivityArgs),
     /// Simulate a scenario's survey (observations from the full model with seeded noise, and the truth).
+    #[command(
+        long_about = "Simulate a scenario's survey: observations from the full N-body model with seeded \
+            noise, and the truth kept aside.\n\n\
+            A scenario file (TOML; docs/formats.md, scenarios/) describes invented tracked bodies, an \
+            optional hidden perturber, the known planets and a survey (dates, cadence, sites, \
+            sigmas, seed). The observations it writes are input for every other command; truth.json \
+            says what the answer should be.",
+        after_long_help = "Examples:\n  \
+            latens simulate scenarios/demo.toml\n  \
+            latens simulate scenarios/population.toml --out output/population"
+    )]
     Simulate(SimulateArgs),
     /// Predict where each sky mode of an `infer` result will be, for scheduling the search.
+    #[command(
+        long_about = "Predict where each sky mode of an `infer` result will be, for scheduling the search.\n\n\
+            The posterior samples of each mode holding at least 1% of them are moved along their \
+            orbits to each date: the mode's centre, its error ellipse, the brightness range, the \
+            motion and the solar elongation (places within 45 deg of the Sun are flagged: pointing \
+            a telescope there can destroy eyes and instruments).",
+        after_long_help = "Examples:\n  \
+            latens predict --from output/infer\n  \
+            latens predict --from output/infer --start 2027-01-01 --end 2027-12-31 --step-days 14"
+    )]
     Predict(PredictArgs),
 }
 

@@ -107,7 +107,7 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
         "--out".as_ref(),
         search_dir.as_os_str(),
     ]) {
-        Ok(super::Args { command: super::Command::Infer(a) }) => a,
+        Ok(super::Args { command: super::Command::Infer(a), .. }) => a,
         _ => return Err(CliError::failed(anyhow::anyhow!("the infer command's defaults did not parse"))),
     };
     args.input = input.clone();
@@ -249,7 +249,7 @@ fn joint_section(out: &Path) -> Result<(String, Option<String>), CliError> {
         search_dir.clone().into_os_string(),
     ];
     let args = match <super::Args as clap::Parser>::try_parse_from(argv) {
-        Ok(super::Args { command: super::Command::Infer(a) }) => a,
+        Ok(super::Args { command: super::Command::Infer(a), .. }) => a,
         _ => return Err(CliError::failed(anyhow::anyhow!("the joint infer arguments did not parse"))),
     };
     super::infer::run(&args)?;

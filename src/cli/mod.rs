@@ -77,6 +77,15 @@ where
 }
 
 fn run(args: Args) -> Result<(), CliError> {
+    if let Some(n) = args.threads {
+        if n == 0 {
+            return Err(CliError::bad_input(anyhow::anyhow!("--threads must be at least 1")));
+        }
+        rayon::ThreadPoolBuilder::new()
+            .num_threads(n)
+            .build_global()
+            .map_err(|e| CliError::failed(anyhow::anyhow!("--threads {n}: {e}")))?;
+    }
     let started = std::time::SystemTime::now();
     // The directory each command writes into, and its name in the index.
     let (out, label): (std::path::PathBuf, String) = match &args.command {
