@@ -1,7 +1,9 @@
 //! The sensitivity map: detection probability over log mass and log
 //! distance, with the 50% and 90% detection contours and the 95% exclusion
 //! curve. Greyscale cells (white = never detected, black = always), so it
-//! reads in print; the curves in one accent colour with different dashes.
+//! reads in print, with a colour bar); the curves in one accent colour
+//! with different dashes, drawn the same way in the legend. Axis ticks at
+//! round values (powers of ten; 1-2-5 over few decades).
 
 use plotters::prelude::*;
 
@@ -46,6 +48,8 @@ impl SensitivityChart<'_> {
         root: &DrawingArea<DB, plotters::coord::Shift>,
     ) -> Result<(), DrawingAreaErrorKind<DB::ErrorType>> {
         root.fill(&WHITE)?;
+        let (width, _) = root.dim_in_pixel();
+        let (main, bar) = root.split_horizontally(width.saturating_sub(150));
         let lx: Vec<f64> = self.cells.iter().map(|c| c.0.log10()).collect();
         let ly: Vec<f64> = self.cells.iter().map(|c| c.1.log10()).collect();
         let (x0, x1) = minmax(&lx);
@@ -54,48 +58,56 @@ impl SensitivityChart<'_> {
         let nx = distinct_count(&lx).max(2) as f64;
         let ny = distinct_count(&ly).max(2) as f64;
         let (hx, hy) = (0.5 * (x1 - x0) / (nx - 1.0), 0.5 * (y1 - y0) / (ny - 1.0));
-        let mut chart = ChartBuilder::on(root)
+        let (xr, yr) = ((x0 - hx)..(x1 + hx), (y0 - hy)..(y1 + hy));
+        let mut chart = ChartBuilder::on(&main)
             .caption(self.title.clone(), ("sans-serif", 26).into_font().color(&INK))
             .margin(25)
             .x_label_area_size(60)
             .y_label_area_size(90)
-            .build_cartesian_2d((x0 - hx)..(x1 + hx), (y0 - hy)..(y1 + hy))?;
+            .build_cartesian_2d(LogAxis::new(xr), LogAxis::new(yr))?;
         chart
             .configure_mesh()
             .disable_mesh()
             .x_desc("heliocentric distance of the perturber (au)")
             .y_desc("perturber mass (Earth masses)")
-            .x_label_formatter(&|v| {
-                format!("{:.3}", 10f64.powf(*v)).trim_end_matches('0').trim_end_matches('.').to_string()
-            })
-            .y_label_formatter(&|v| {
-                format!("{:.3}", 10f64.powf(*v)).trim_end_matches('0').trim_end_matches('.').to_string()
-            })
+            .x_label_formatter(&|v| round_label(10f64.powf(*v)))
+            .y_label_formatter(&|v| round_label(10f64.powf(*v)))
             .label_style(("sans-serif", 18).into_font().color(&INK))
             .axis_desc_style(("sans-serif", 20).into_font().color(&INK))
             .draw()?;
-        chart.draw_series(self.cells.iter().zip(lx.iter().zip(&ly)).map(|(c, (&x, &y))| {
-            let g = (255.0 * (1.0 - c.2.clamp(0.0, 1.0))) as u8;
-            Rectangle::new([(x - hx, y - hy), (x + hx, y + hy)], RGBColor(g, g, g).filled())
-        }))?;
+        chart.draw_series(
+            self.cells
+                .iter()
+                .zip(lx.iter().zip(&ly))
+                .map(|(c, (&x, &y))| Rectangle::new([(x - hx, y - hy), (x + hx, y + hy)], grey(c.2).filled())),
+        )?;
         let to_log = |c: &Curve| c.iter().map(|(d, m)| (d.log10(), m.log10())).collect::<Vec<_>>();
+        let blue = RGBColor(20, 90, 200);
         chart
             .draw_series(LineSeries::new(to_log(&self.contour_50), ACCENT.stroke_width(2)))?
             .label("50% detection")
-            .legend(|(x, y)| PathElement::new([(x - 12, y), (x + 12, y)], ACCENT.stroke_width(2)));
+            .legend(|(x, y)| PathElement::new([(x - 14, y), (x + 14, y)], ACCENT.stroke_width(2)));
         chart
             .draw_series(DashedLineSeries::new(to_log(&self.contour_90), 10, 6, ACCENT.stroke_width(3)))?
             .label("90% detection")
-            .legend(|(x, y)| PathElement::new([(x - 12, y), (x + 12, y)], ACCENT.stroke_width(3)));
+            // The legend draws the curve's own dashes (relative pixels).
+            .legend(|(x, y)| {
+                let style = ACCENT.stroke_width(3);
+                EmptyElement::at((x, y))
+                    + PathElement::new([(-14, 0), (-4, 0)], style)
+                    + PathElement::new([(2, 0), (12, 0)], style)
+            });
         chart
-            .draw_series(DashedLineSeries::new(
-                to_log(&self.exclusion_95),
-                3,
-                5,
-                RGBColor(20, 90, 200).stroke_width(4),
-            ))?
+            .draw_series(DashedLineSeries::new(to_log(&self.exclusion_95), 3, 5, blue.stroke_width(4)))?
             .label("95% exclusion (above: ruled out if nothing is detected)")
-            .legend(|(x, y)| PathElement::new([(x - 12, y), (x + 12, y)], RGBColor(20, 90, 200).stroke_width(4)));
+            .legend(move |(x, y)| {
+                let style = blue.stroke_width(4);
+                EmptyElement::at((x, y))
+                    + PathElement::new([(-14, 0), (-11, 0)], style)
+                    + PathElement::new([(-6, 0), (-3, 0)], style)
+                    + PathElement::new([(2, 0), (5, 0)], style)
+                    + PathElement::new([(10, 0), (13, 0)], style)
+            });
         chart
             .configure_series_labels()
             .position(SeriesLabelPosition::LowerRight)
@@ -103,8 +115,102 @@ impl SensitivityChart<'_> {
             .background_style(WHITE.mix(0.9))
             .border_style(INK)
             .draw()?;
+        self.draw_colour_bar(&bar)
+    }
+
+    /// The grey scale's key: detection probability from 0 (white) to 1
+    /// (black), beside the map.
+    fn draw_colour_bar<DB: DrawingBackend>(
+        &self,
+        area: &DrawingArea<DB, plotters::coord::Shift>,
+    ) -> Result<(), DrawingAreaErrorKind<DB::ErrorType>> {
+        let mut bar = ChartBuilder::on(area)
+            .margin_top(80)
+            .margin_bottom(110)
+            .margin_right(20)
+            .y_label_area_size(60)
+            .build_cartesian_2d(0.0..1.0, 0.0..1.0)?;
+        bar.configure_mesh()
+            .disable_mesh()
+            .disable_x_axis()
+            .y_labels(6)
+            .y_label_formatter(&|v| format!("{v:.1}"))
+            .y_desc("detection probability")
+            .label_style(("sans-serif", 16).into_font().color(&INK))
+            .axis_desc_style(("sans-serif", 18).into_font().color(&INK))
+            .draw()?;
+        let steps = 100;
+        bar.draw_series((0..steps).map(|k| {
+            let (a, b) = (k as f64 / steps as f64, (k + 1) as f64 / steps as f64);
+            Rectangle::new([(0.0, a), (1.0, b)], grey(0.5 * (a + b)).filled())
+        }))?;
+        bar.draw_series(std::iter::once(Rectangle::new([(0.0, 0.0), (1.0, 1.0)], INK.stroke_width(1))))?;
         Ok(())
     }
+}
+
+/// White for probability 0, black for 1.
+fn grey(p: f64) -> RGBColor {
+    let g = (255.0 * (1.0 - p.clamp(0.0, 1.0))).round() as u8;
+    RGBColor(g, g, g)
+}
+
+/// An axis in log10 units whose ticks sit at round values (plotters'
+/// own key points of a float range fall at round logarithms instead).
+#[derive(Clone)]
+struct LogAxis {
+    range: std::ops::Range<f64>,
+    keys: Vec<f64>,
+}
+
+impl LogAxis {
+    fn new(range: std::ops::Range<f64>) -> LogAxis {
+        let keys = log_ticks(range.start, range.end);
+        LogAxis { range, keys }
+    }
+}
+
+impl Ranged for LogAxis {
+    type FormatOption = plotters::coord::ranged1d::DefaultFormatting;
+    type ValueType = f64;
+
+    fn map(&self, value: &f64, limit: (i32, i32)) -> i32 {
+        let f = (value - self.range.start) / (self.range.end - self.range.start);
+        limit.0 + (f * f64::from(limit.1 - limit.0)).round() as i32
+    }
+
+    fn key_points<Hint: plotters::coord::ranged1d::KeyPointHint>(&self, _hint: Hint) -> Vec<f64> {
+        self.keys.clone()
+    }
+
+    fn range(&self) -> std::ops::Range<f64> {
+        self.range.clone()
+    }
+}
+
+/// Log10 positions of the round values (1, 2, 5 times a power of ten)
+/// inside [lo, hi] (log10 units); only the powers of ten when there are
+/// many decades.
+fn log_ticks(lo: f64, hi: f64) -> Vec<f64> {
+    let mut out = Vec::new();
+    let steps: &[f64] = if hi - lo > 3.0 { &[1.0] } else { &[1.0, 2.0, 5.0] };
+    let mut k = lo.floor() as i32;
+    while f64::from(k) <= hi {
+        for m in steps {
+            let v = f64::from(k) + m.log10();
+            if v >= lo - 1e-9 && v <= hi + 1e-9 {
+                out.push(v);
+            }
+        }
+        k += 1;
+    }
+    out
+}
+
+/// A tick value without spurious digits: 0.1, 2, 50, 1000, 10000.
+fn round_label(v: f64) -> String {
+    let text = if v >= 1.0 { format!("{v:.0}") } else { format!("{v:.3}") };
+    if text.contains('.') { text.trim_end_matches('0').trim_end_matches('.').to_string() } else { text }
 }
 
 fn minmax(v: &[f64]) -> (f64, f64) {
@@ -118,4 +224,30 @@ fn distinct_count(v: &[f64]) -> usize {
     s.sort_by(f64::total_cmp);
     s.dedup_by(|a, b| (*a - *b).abs() < 1e-12);
     s.len()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn ticks_sit_at_round_values_inside_the_axis() {
+        // Five decades: powers of ten only.
+        let t = log_ticks(-1.05, 4.05);
+        let labels: Vec<String> = t.iter().map(|v| round_label(10f64.powf(*v))).collect();
+        assert_eq!(labels, ["0.1", "1", "10", "100", "1000", "10000"]);
+        // Two decades: 1, 2, 5 times powers of ten.
+        let t = log_ticks(1.0 - 0.02, 3.0 + 0.02);
+        let labels: Vec<String> = t.iter().map(|v| round_label(10f64.powf(*v))).collect();
+        assert_eq!(labels, ["10", "20", "50", "100", "200", "500", "1000"]);
+        assert!(t.iter().all(|v| (0.98..=3.02).contains(v)));
+    }
+
+    #[test]
+    fn labels_have_no_spurious_digits() {
+        assert_eq!(round_label(0.316227766), "0.316");
+        assert_eq!(round_label(0.5), "0.5");
+        assert_eq!(round_label(2.0), "2");
+        assert_eq!(round_label(1000.0000001), "1000");
+    }
 }
