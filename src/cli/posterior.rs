@@ -190,20 +190,30 @@ fn write_posterior_files(out: &Path, run: &PosteriorRun) -> Result<(), CliError>
     write_atomically(&out.join("posterior.csv"), &bytes).map_err(CliError::failed)?;
 
     let corner = CornerChart {
-        title: format!("Posterior of the perturber ({} samples; sky position at the search epoch)", derived.len()),
+        title: format!(
+            "Posterior of the perturber ({} samples; sky position at the search epoch). Blue: median and 68% interval; 68% and 95% regions",
+            derived.len()
+        ),
         columns: vec![
             Column {
-                label: "log10 mass (Earth masses)".into(),
+                label: "mass (Earth masses)".into(),
                 values: derived.iter().map(|d| d.sample.mass_earth().log10()).collect(),
                 marker: None,
+                log10: true,
             },
             Column {
                 label: "distance from Earth (au)".into(),
                 values: derived.iter().map(|d| d.distance_au).collect(),
                 marker: None,
+                log10: false,
             },
-            Column { label: "RA (deg)".into(), values: unwrap_ra(derived), marker: None },
-            Column { label: "Dec (deg)".into(), values: derived.iter().map(|d| d.dec_deg).collect(), marker: None },
+            Column { label: "RA (deg)".into(), values: unwrap_ra(derived), marker: None, log10: false },
+            Column {
+                label: "Dec (deg)".into(),
+                values: derived.iter().map(|d| d.dec_deg).collect(),
+                marker: None,
+                log10: false,
+            },
         ],
     };
     save_chart(out, "posterior_corner", CornerChart::SIZE, |a| corner.draw(a), |a| corner.draw(a))?;
@@ -228,7 +238,10 @@ fn write_posterior_files(out: &Path, run: &PosteriorRun) -> Result<(), CliError>
         burn_in: settings.burn_in,
         panels: vec![
             ("log10 mass (Earth masses)".into(), series(&|x| x[0] / std::f64::consts::LN_10)),
-            ("heliocentric distance (au)".into(), series(&|x| (x[1] * x[1] + x[2] * x[2] + x[3] * x[3]).sqrt())),
+            (
+                "distance from the Sun at the reference epoch (au)".into(),
+                series(&|x| (x[1] * x[1] + x[2] * x[2] + x[3] * x[3]).sqrt()),
+            ),
         ],
     };
     save_chart(out, "posterior_trace", TraceChart::SIZE, |a| trace.draw(a), |a| trace.draw(a))?;

@@ -1,6 +1,7 @@
 //! Reports: charts and summaries drawn from finished results. Never
 //! propagates an orbit.
 
+pub mod axes;
 pub mod posterior_chart;
 pub mod residual_chart;
 pub mod search_chart;

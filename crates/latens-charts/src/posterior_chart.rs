@@ -5,16 +5,40 @@
 use plotters::coord::Shift;
 use plotters::prelude::*;
 
+use crate::axes::{TickedAxis, round_label};
+
 const INK: RGBColor = RGBColor(40, 40, 40);
 const ACCENT: RGBColor = RGBColor(200, 80, 20);
 
 /// One quantity of the corner plot.
 pub struct Column {
     pub label: String,
+    /// The samples' values; log10 of the quantity when `log10` is set.
     pub values: Vec<f64>,
-    /// Marked with a line (e.g. a reference solution), if given.
+    /// Marked with a line (e.g. the true value of a simulation), if given;
+    /// in the same units as `values`.
     pub marker: Option<f64>,
+    /// The values are log10 of the quantity: the axis is logarithmic and
+    /// its ticks are labelled with the quantity (1, 10, 100), not its log.
+    pub log10: bool,
 }
+
+impl Column {
+    /// The axis of this quantity over `r`.
+    fn axis(&self, r: (f64, f64)) -> TickedAxis {
+        if self.log10 { TickedAxis::log(r.0..r.1) } else { TickedAxis::linear(r.0..r.1, 4) }
+    }
+
+    /// A tick label: the quantity, not its log.
+    fn label_of(&self, v: f64) -> String {
+        round_label(if self.log10 { 10f64.powf(v) } else { v })
+    }
+}
+
+/// The quantiles drawn on the diagonal: the median and the central 68%.
+const QUANTILES: [f64; 3] = [0.16, 0.5, 0.84];
+/// The credible levels outlined on the pair panels.
+const LEVELS: [f64; 2] = [0.68, 0.95];
 
 pub struct CornerChart {
     pub title: String,
@@ -48,6 +72,30 @@ where
 
 const BINS: usize = 40;
 
+/// Walkers' colours in the trace chart (the ten of the Tableau palette).
+const WALKER_COLOURS: [RGBColor; 10] = [
+    RGBColor(31, 119, 180),
+    RGBColor(255, 127, 14),
+    RGBColor(44, 160, 44),
+    RGBColor(214, 39, 40),
+    RGBColor(148, 103, 189),
+    RGBColor(140, 86, 75),
+    RGBColor(227, 119, 194),
+    RGBColor(127, 127, 127),
+    RGBColor(188, 189, 34),
+    RGBColor(23, 190, 207),
+];
+
+/// The whole extent of `v` with a 3% margin.
+fn full_range(v: &[f64]) -> (f64, f64) {
+    let lo = v.iter().copied().fold(f64::INFINITY, f64::min);
+    let hi = v.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    if !(lo.is_finite() && hi.is_finite()) {
+        return (0.0, 1.0);
+    }
+    if hi > lo { (lo - 0.03 * (hi - lo), hi + 0.03 * (hi - lo)) } else { (lo - 0.5, lo + 0.5) }
+}
+
 fn range(v: &[f64]) -> (f64, f64) {
     let mut s: Vec<f64> = v.iter().copied().filter(|x| x.is_finite()).collect();
     s.sort_by(f64::total_cmp);
@@ -79,20 +127,21 @@ impl CornerChart {
                 }
                 let (xr, yr) = (ranges[j], ranges[i]);
                 let x_label = if i == n - 1 { self.columns[j].label.as_str() } else { "" };
+                let (cx, cy) = (&self.columns[j], &self.columns[i]);
                 if i == j {
-                    let counts = histogram(&self.columns[i].values, xr);
+                    let counts = histogram(&cx.values, xr);
                     let peak = counts.iter().copied().max().unwrap_or(1).max(1) as f64;
                     let mut chart = ChartBuilder::on(area)
                         .margin(8)
                         .x_label_area_size(if i == n - 1 { 55 } else { 25 })
                         .y_label_area_size(20)
-                        .build_cartesian_2d(xr.0..xr.1, 0.0..1.1)
+                        .build_cartesian_2d(cx.axis(xr), 0.0..1.1)
                         .map_err(e)?;
                     chart
                         .configure_mesh()
                         .disable_mesh()
                         .y_labels(0)
-                        .x_labels(4)
+                        .x_label_formatter(&|v| cx.label_of(*v))
                         .x_desc(x_label)
                         .label_style(("sans-serif", 14).into_font().color(&INK))
                         .axis_desc_style(("sans-serif", 17).into_font().color(&INK))
@@ -105,28 +154,39 @@ impl CornerChart {
                             Rectangle::new([(x, 0.0), (x + w, c as f64 / peak)], RGBColor(90, 90, 90).filled())
                         }))
                         .map_err(e)?;
-                    if let Some(m) = self.columns[i].marker {
-                        chart.draw_series(LineSeries::new([(m, 0.0), (m, 1.1)], ACCENT.stroke_width(2))).map_err(e)?;
+                    // The median (solid) and the central 68% (dashed).
+                    for (q, v) in QUANTILES.iter().zip(quantiles(&cx.values, &QUANTILES)) {
+                        let style = QUANTILE_INK.stroke_width(2);
+                        if (*q - 0.5).abs() < 1e-9 {
+                            chart.draw_series(LineSeries::new([(v, 0.0), (v, 1.1)], style)).map_err(e)?;
+                        } else {
+                            chart.draw_series(DashedLineSeries::new([(v, 0.0), (v, 1.1)], 6, 4, style)).map_err(e)?;
+                        }
+                    }
+                    if let Some(m) = cx.marker {
+                        chart.draw_series(LineSeries::new([(m, 0.0), (m, 1.1)], ACCENT.stroke_width(3))).map_err(e)?;
                     }
                 } else {
                     let mut chart = ChartBuilder::on(area)
                         .margin(8)
                         .x_label_area_size(if i == n - 1 { 55 } else { 25 })
                         .y_label_area_size(if j == 0 { 75 } else { 20 })
-                        .build_cartesian_2d(xr.0..xr.1, yr.0..yr.1)
+                        .build_cartesian_2d(cx.axis(xr), cy.axis(yr))
                         .map_err(e)?;
-                    chart
-                        .configure_mesh()
-                        .disable_mesh()
-                        .x_labels(4)
-                        .y_labels(if j == 0 { 4 } else { 0 })
+                    let (fx, fy) = (|v: &f64| cx.label_of(*v), |v: &f64| cy.label_of(*v));
+                    let mut mesh = chart.configure_mesh();
+                    mesh.disable_mesh()
+                        .x_label_formatter(&fx)
+                        .y_label_formatter(&fy)
                         .x_desc(x_label)
-                        .y_desc(if j == 0 { self.columns[i].label.as_str() } else { "" })
+                        .y_desc(if j == 0 { cy.label.as_str() } else { "" })
                         .label_style(("sans-serif", 14).into_font().color(&INK))
-                        .axis_desc_style(("sans-serif", 17).into_font().color(&INK))
-                        .draw()
-                        .map_err(e)?;
-                    let grid = histogram2(&self.columns[j].values, &self.columns[i].values, xr, yr);
+                        .axis_desc_style(("sans-serif", 17).into_font().color(&INK));
+                    if j != 0 {
+                        mesh.y_labels(0);
+                    }
+                    mesh.draw().map_err(e)?;
+                    let grid = histogram2(&cx.values, &cy.values, xr, yr);
                     let peak = grid.iter().copied().max().unwrap_or(1).max(1) as f64;
                     let (wx, wy) = ((xr.1 - xr.0) / BINS as f64, (yr.1 - yr.0) / BINS as f64);
                     chart
@@ -137,14 +197,109 @@ impl CornerChart {
                             Rectangle::new([(x, y), (x + wx, y + wy)], RGBColor(shade, shade, shade).filled())
                         }))
                         .map_err(e)?;
-                    if let (Some(mx), Some(my)) = (self.columns[j].marker, self.columns[i].marker) {
-                        chart.draw_series([Cross::new((mx, my), 8, ACCENT.stroke_width(3))]).map_err(e)?;
+                    // The 68% and 95% credible regions of the pair, outlined
+                    // along the histogram's cells (the counts smoothed over
+                    // neighbouring cells first, so that single stray cells do
+                    // not get outlines of their own).
+                    let smooth = smoothed(&grid);
+                    for (level, width) in LEVELS.iter().zip([2, 1]) {
+                        let inside = highest_density(&smooth, *level);
+                        let edges = outline(&inside).into_iter().map(|((a0, b0), (a1, b1))| {
+                            let at = |a: usize, b: usize| (xr.0 + a as f64 * wx, yr.0 + b as f64 * wy);
+                            PathElement::new([at(a0, b0), at(a1, b1)], QUANTILE_INK.stroke_width(width))
+                        });
+                        chart.draw_series(edges).map_err(e)?;
+                    }
+                    if let (Some(mx), Some(my)) = (cx.marker, cy.marker) {
+                        chart.draw_series([Cross::new((mx, my), 9, ACCENT.stroke_width(3))]).map_err(e)?;
                     }
                 }
             }
         }
         Ok(())
     }
+}
+
+/// The colour of quantile lines and credible outlines.
+const QUANTILE_INK: RGBColor = RGBColor(20, 90, 200);
+
+/// The values at the given quantiles of `v` (finite values only).
+fn quantiles(v: &[f64], qs: &[f64]) -> Vec<f64> {
+    let mut s: Vec<f64> = v.iter().copied().filter(|x| x.is_finite()).collect();
+    s.sort_by(f64::total_cmp);
+    if s.is_empty() {
+        return vec![f64::NAN; qs.len()];
+    }
+    qs.iter().map(|q| s[((q * (s.len() - 1) as f64).round() as usize).min(s.len() - 1)]).collect()
+}
+
+/// A 2-D histogram smoothed with the 1-2-1 kernel in each direction.
+fn smoothed(grid: &[usize]) -> Vec<f64> {
+    let w = [1.0, 2.0, 1.0];
+    let mut out = vec![0.0; grid.len()];
+    for b in 0..BINS {
+        for a in 0..BINS {
+            let mut sum = 0.0;
+            for (db, wb) in w.iter().enumerate() {
+                for (da, wa) in w.iter().enumerate() {
+                    let (x, y) = (a as isize + da as isize - 1, b as isize + db as isize - 1);
+                    if x >= 0 && y >= 0 && (x as usize) < BINS && (y as usize) < BINS {
+                        sum += wa * wb * grid[y as usize * BINS + x as usize] as f64;
+                    }
+                }
+            }
+            out[b * BINS + a] = sum / 16.0;
+        }
+    }
+    out
+}
+
+/// The smallest set of densest cells holding `level` of the total (the
+/// highest-density credible region of a 2-D histogram).
+fn highest_density(grid: &[f64], level: f64) -> Vec<bool> {
+    let total: f64 = grid.iter().sum();
+    let mut order: Vec<usize> = (0..grid.len()).collect();
+    order.sort_by(|a, b| grid[*b].total_cmp(&grid[*a]));
+    let mut inside = vec![false; grid.len()];
+    let mut held = 0.0;
+    for k in order {
+        if held >= level * total || grid[k] <= 0.0 {
+            break;
+        }
+        inside[k] = true;
+        held += grid[k];
+    }
+    inside
+}
+
+/// The edges between cells inside and outside (or the grid's border), as
+/// pairs of grid corners (column, row).
+fn outline(inside: &[bool]) -> Vec<((usize, usize), (usize, usize))> {
+    let at = |a: isize, b: isize| {
+        a >= 0 && b >= 0 && (a as usize) < BINS && (b as usize) < BINS && inside[b as usize * BINS + a as usize]
+    };
+    let mut out = Vec::new();
+    for b in 0..BINS {
+        for a in 0..BINS {
+            if !inside[b * BINS + a] {
+                continue;
+            }
+            let (ai, bi) = (a as isize, b as isize);
+            if !at(ai - 1, bi) {
+                out.push(((a, b), (a, b + 1)));
+            }
+            if !at(ai + 1, bi) {
+                out.push(((a + 1, b), (a + 1, b + 1)));
+            }
+            if !at(ai, bi - 1) {
+                out.push(((a, b), (a + 1, b)));
+            }
+            if !at(ai, bi + 1) {
+                out.push(((a, b + 1), (a + 1, b + 1)));
+            }
+        }
+    }
+    out
 }
 
 fn histogram(v: &[f64], r: (f64, f64)) -> Vec<usize> {
@@ -191,18 +346,26 @@ impl TraceChart {
         top.titled(&self.title, ("sans-serif", 26).into_font().color(&INK)).map_err(e)?;
         let areas = body.split_evenly((self.panels.len().max(1), 1));
         for ((label, walkers), area) in self.panels.iter().zip(&areas) {
-            let pts: Vec<f64> = walkers.iter().flatten().map(|p| p.1).collect();
-            let yr = range(&pts);
+            // Every point after the start-up inside the axes: a walker
+            // wandering off late in the run must show where it went, not sit
+            // pinned at the edge. Only the first quarter of the burn-in (the
+            // walkers leaving their starting points) may be cut at the edge.
+            let settle = self.burn_in as f64 / 4.0;
+            let pts: Vec<f64> =
+                walkers.iter().flatten().filter(|p| p.0 >= settle).map(|p| p.1).filter(|v| v.is_finite()).collect();
+            let yr = full_range(&pts);
             let xmax = walkers.iter().flatten().map(|p| p.0).fold(1.0, f64::max);
             let mut chart = ChartBuilder::on(area)
                 .margin(12)
                 .x_label_area_size(45)
                 .y_label_area_size(90)
-                .build_cartesian_2d(0.0..xmax, yr.0..yr.1)
+                .build_cartesian_2d(TickedAxis::linear(0.0..xmax, 8), TickedAxis::linear(yr.0..yr.1, 5))
                 .map_err(e)?;
             chart
                 .configure_mesh()
                 .disable_mesh()
+                .x_label_formatter(&|v| round_label(*v))
+                .y_label_formatter(&|v| round_label(*v))
                 .x_desc("step")
                 .y_desc(label.as_str())
                 .label_style(("sans-serif", 15).into_font().color(&INK))
@@ -215,16 +378,14 @@ impl TraceChart {
                     RGBColor(230, 230, 230).filled(),
                 )])
                 .map_err(e)?
-                .label("burn-in (discarded)")
+                .label("burn-in (discarded; its first quarter may leave the axes)")
                 .legend(|(x, y)| Rectangle::new([(x - 10, y - 6), (x + 10, y + 6)], RGBColor(230, 230, 230).filled()));
             for (k, w) in walkers.iter().enumerate() {
-                let shade = 40 + (k * 150 / walkers.len().max(1)) as u8;
-                chart
-                    .draw_series(LineSeries::new(
-                        w.iter().map(|p| (p.0, p.1.clamp(yr.0, yr.1))),
-                        RGBColor(shade, shade, shade).stroke_width(1),
-                    ))
-                    .map_err(e)?;
+                // One colour per walker (a qualitative palette), so paths
+                // that cross stay told apart.
+                let colour = WALKER_COLOURS[k % WALKER_COLOURS.len()];
+                let clipped = w.iter().map(|p| (p.0, p.1.clamp(yr.0, yr.1)));
+                chart.draw_series(LineSeries::new(clipped, colour.stroke_width(1))).map_err(e)?;
             }
             chart
                 .configure_series_labels()
@@ -236,5 +397,37 @@ impl TraceChart {
                 .map_err(e)?;
         }
         Ok(())
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_credible_region_holds_its_level_and_is_outlined_closed() {
+        // A peaked 2-D histogram: 68% of the smoothed mass in the region.
+        let mut grid = vec![0usize; BINS * BINS];
+        for b in 0..BINS {
+            for a in 0..BINS {
+                let r2 = (a as f64 - 20.0).powi(2) + (b as f64 - 15.0).powi(2);
+                grid[b * BINS + a] = (1000.0 * (-r2 / 18.0).exp()) as usize;
+            }
+        }
+        let smooth = smoothed(&grid);
+        let total: f64 = smooth.iter().sum();
+        let inside = highest_density(&smooth, 0.68);
+        let held: f64 = smooth.iter().zip(&inside).filter(|(_, i)| **i).map(|(v, _)| v).sum();
+        assert!(held >= 0.68 * total && held < 0.75 * total, "{}", held / total);
+        // Every corner of the outline is shared by an even number of edges:
+        // the outline closes.
+        let mut degree = std::collections::HashMap::new();
+        for (p, q) in outline(&inside) {
+            *degree.entry(p).or_insert(0) += 1;
+            *degree.entry(q).or_insert(0) += 1;
+        }
+        assert!(!degree.is_empty() && degree.values().all(|d| d % 2 == 0));
+        let q = quantiles(&[3.0, 1.0, 2.0, 5.0, 4.0], &QUANTILES);
+        assert_eq!(q[1], 3.0);
     }
 }

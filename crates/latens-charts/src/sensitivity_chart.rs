@@ -7,6 +7,8 @@
 
 use plotters::prelude::*;
 
+use crate::axes::{TickedAxis, round_label};
+
 /// One cell to draw: distance (au), mass (Earth masses), probability.
 pub type MapCell = (f64, f64, f64);
 
@@ -64,7 +66,7 @@ impl SensitivityChart<'_> {
             .margin(25)
             .x_label_area_size(60)
             .y_label_area_size(90)
-            .build_cartesian_2d(LogAxis::new(xr), LogAxis::new(yr))?;
+            .build_cartesian_2d(TickedAxis::log(xr), TickedAxis::log(yr))?;
         chart
             .configure_mesh()
             .disable_mesh()
@@ -155,64 +157,6 @@ fn grey(p: f64) -> RGBColor {
     RGBColor(g, g, g)
 }
 
-/// An axis in log10 units whose ticks sit at round values (plotters'
-/// own key points of a float range fall at round logarithms instead).
-#[derive(Clone)]
-struct LogAxis {
-    range: std::ops::Range<f64>,
-    keys: Vec<f64>,
-}
-
-impl LogAxis {
-    fn new(range: std::ops::Range<f64>) -> LogAxis {
-        let keys = log_ticks(range.start, range.end);
-        LogAxis { range, keys }
-    }
-}
-
-impl Ranged for LogAxis {
-    type FormatOption = plotters::coord::ranged1d::DefaultFormatting;
-    type ValueType = f64;
-
-    fn map(&self, value: &f64, limit: (i32, i32)) -> i32 {
-        let f = (value - self.range.start) / (self.range.end - self.range.start);
-        limit.0 + (f * f64::from(limit.1 - limit.0)).round() as i32
-    }
-
-    fn key_points<Hint: plotters::coord::ranged1d::KeyPointHint>(&self, _hint: Hint) -> Vec<f64> {
-        self.keys.clone()
-    }
-
-    fn range(&self) -> std::ops::Range<f64> {
-        self.range.clone()
-    }
-}
-
-/// Log10 positions of the round values (1, 2, 5 times a power of ten)
-/// inside [lo, hi] (log10 units); only the powers of ten when there are
-/// many decades.
-fn log_ticks(lo: f64, hi: f64) -> Vec<f64> {
-    let mut out = Vec::new();
-    let steps: &[f64] = if hi - lo > 3.0 { &[1.0] } else { &[1.0, 2.0, 5.0] };
-    let mut k = lo.floor() as i32;
-    while f64::from(k) <= hi {
-        for m in steps {
-            let v = f64::from(k) + m.log10();
-            if v >= lo - 1e-9 && v <= hi + 1e-9 {
-                out.push(v);
-            }
-        }
-        k += 1;
-    }
-    out
-}
-
-/// A tick value without spurious digits: 0.1, 2, 50, 1000, 10000.
-fn round_label(v: f64) -> String {
-    let text = if v >= 1.0 { format!("{v:.0}") } else { format!("{v:.3}") };
-    if text.contains('.') { text.trim_end_matches('0').trim_end_matches('.').to_string() } else { text }
-}
-
 fn minmax(v: &[f64]) -> (f64, f64) {
     let lo = v.iter().copied().fold(f64::INFINITY, f64::min);
     let hi = v.iter().copied().fold(f64::NEG_INFINITY, f64::max);
@@ -224,30 +168,4 @@ fn distinct_count(v: &[f64]) -> usize {
     s.sort_by(f64::total_cmp);
     s.dedup_by(|a, b| (*a - *b).abs() < 1e-12);
     s.len()
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn ticks_sit_at_round_values_inside_the_axis() {
-        // Five decades: powers of ten only.
-        let t = log_ticks(-1.05, 4.05);
-        let labels: Vec<String> = t.iter().map(|v| round_label(10f64.powf(*v))).collect();
-        assert_eq!(labels, ["0.1", "1", "10", "100", "1000", "10000"]);
-        // Two decades: 1, 2, 5 times powers of ten.
-        let t = log_ticks(1.0 - 0.02, 3.0 + 0.02);
-        let labels: Vec<String> = t.iter().map(|v| round_label(10f64.powf(*v))).collect();
-        assert_eq!(labels, ["10", "20", "50", "100", "200", "500", "1000"]);
-        assert!(t.iter().all(|v| (0.98..=3.02).contains(v)));
-    }
-
-    #[test]
-    fn labels_have_no_spurious_digits() {
-        assert_eq!(round_label(0.316227766), "0.316");
-        assert_eq!(round_label(0.5), "0.5");
-        assert_eq!(round_label(2.0), "2");
-        assert_eq!(round_label(1000.0000001), "1000");
-    }
 }
