@@ -36,6 +36,9 @@ fn bad_arguments_exit_two() {
     assert_eq!(out.status.code(), Some(2));
     let stderr = String::from_utf8_lossy(&out.stderr);
     assert!(stderr.contains("--resume") && stderr.contains("no checkpoint.json"), "{stderr}");
+    let out = latens().args(["infer", "--obs", "no-such-file.csv", "--truth", "Cargo.toml"]).output().unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("--truth"), "{}", String::from_utf8_lossy(&out.stderr));
     let out = latens().args(["residuals", "--threads", "0", "--obs", "no-such-file.csv"]).output().unwrap();
     assert_eq!(out.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&out.stderr).contains("--threads must be at least 1"));

@@ -367,6 +367,11 @@ pub struct InferArgs {
     /// file, comma-separated (ranges as A-B).
     #[arg(long, value_name = "LINES")]
     pub exclude: Option<String>,
+    /// The truth.json of `latens simulate`: mark the true perturber (mass,
+    /// distance, place) on the posterior and search charts. For simulations;
+    /// the fit never sees it.
+    #[arg(long, value_name = "TRUTH_JSON")]
+    pub truth: Option<PathBuf>,
 }
 
 #[derive(Debug, clap::Args)]

@@ -115,6 +115,8 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
     args.nulls = 500;
     args.seed = scenario.survey.seed;
     args.max_eccentricity = s.max_eccentricity;
+    // The demo knows the truth: its charts mark it.
+    args.truth = Some(out.join("truth.json"));
     let mut plan = super::infer::InferPlan::from_args(&args)?;
     plan.detection.search.mass_earth = (s.mass_earth[0], s.mass_earth[1]);
     plan.detection.search.distance_au = (s.distance_au[0], s.distance_au[1]);
@@ -245,6 +247,8 @@ fn joint_section(out: &Path) -> Result<(String, Option<String>), CliError> {
         "400".into(),
         "--seed".into(),
         scenario.survey.seed.to_string().into(),
+        "--truth".into(),
+        dir.join("truth.json").into_os_string(),
         "--out".into(),
         search_dir.clone().into_os_string(),
     ];

@@ -45,6 +45,76 @@ pub(super) struct InferPlan {
     pub posterior: PosteriorSettings,
     /// Where the files go (the interrupted run's directory on resume).
     pub out: PathBuf,
+    /// The simulation's truth, to mark on the charts (`--truth`).
+    pub truth: Option<Truth>,
+}
+
+/// The true perturber of a simulation, as charts mark it.
+#[derive(Clone, Debug)]
+pub(super) struct Truth {
+    pub name: String,
+    pub mass_earth: f64,
+    /// At the truth's epoch (checked against the search epoch before use).
+    pub epoch_utc: String,
+    pub ra_deg: f64,
+    pub dec_deg: f64,
+    pub distance_au: f64,
+}
+
+impl Truth {
+    /// Reads the perturber of a truth.json (`latens simulate`).
+    pub fn read(path: &Path) -> Result<Truth, CliError> {
+        #[derive(serde::Deserialize)]
+        struct File {
+            perturber: Option<Perturber>,
+        }
+        #[derive(serde::Deserialize)]
+        struct Perturber {
+            name: String,
+            mass_earth: Option<f64>,
+            at_search_epoch: Option<Place>,
+        }
+        #[derive(serde::Deserialize)]
+        struct Place {
+            epoch_utc: String,
+            ra_deg: f64,
+            dec_deg: f64,
+            distance_au: f64,
+        }
+        let bad = |what: String| CliError::bad_input(anyhow::anyhow!("--truth {}: {what}", path.display()));
+        let file: File = latens::io::results::read_json(path).map_err(bad)?;
+        let p = file.perturber.ok_or_else(|| bad("the simulation has no perturber to mark".into()))?;
+        let place = p.at_search_epoch.ok_or_else(|| bad("field `perturber.at_search_epoch` is missing".into()))?;
+        let mass = p.mass_earth.ok_or_else(|| bad("field `perturber.mass_earth` is missing".into()))?;
+        if !(mass > 0.0 && place.distance_au > 0.0 && place.ra_deg.is_finite() && place.dec_deg.is_finite()) {
+            return Err(bad("the perturber's mass, distance and place must be finite and positive".into()));
+        }
+        Ok(Truth {
+            name: p.name,
+            mass_earth: mass,
+            epoch_utc: place.epoch_utc,
+            ra_deg: place.ra_deg,
+            dec_deg: place.dec_deg,
+            distance_au: place.distance_au,
+        })
+    }
+
+    /// The truth if it is given at the search epoch (within a minute); a
+    /// note on stderr otherwise (its place would be at another date).
+    pub fn at_epoch(truth: Option<&Truth>, search_epoch_tdb_days: f64) -> Option<Truth> {
+        let t = truth?;
+        let at = parse_epoch(&t.epoch_utc).map(tdb_days_from_j2000).ok()?;
+        if (at - search_epoch_tdb_days).abs() * 1440.0 > 1.0 {
+            eprintln!(
+                "note: --truth gives {}'s place at {}, not at the search epoch {}: it is not marked",
+                t.name,
+                t.epoch_utc,
+                utc_iso_from_epoch(epoch_from_tdb_days(search_epoch_tdb_days))
+            );
+            return None;
+        }
+        Some(t.clone())
+    }
 }
 
 impl InferPlan {
@@ -118,7 +188,9 @@ impl InferPlan {
                 obs.len()
             )));
         }
+        let truth = args.truth.as_deref().map(Truth::read).transpose()?;
         Ok(InferPlan {
+            truth,
             obs,
             sites: args.input.sites.clone(),
             known,
@@ -218,7 +290,8 @@ pub(super) fn execute(plan: &InferPlan) -> Result<InferSummary, CliError> {
     let yearly = detection.annual.flagged();
     let mut verdict = detection.verdict_text();
 
-    let stage = super::posterior::run(out, &study, &detection, posterior_settings)?;
+    let truth = Truth::at_epoch(plan.truth.as_ref(), search_epoch);
+    let stage = super::posterior::run(out, &study, &detection, posterior_settings, truth.as_ref())?;
     warnings.extend(stage.result.warnings.iter().cloned());
     // A non-detection gives upper limits, not a place to look.
     let upper_limits = if detected { Vec::new() } else { upper_limits(stage.samples(), distance) };
@@ -226,7 +299,7 @@ pub(super) fn execute(plan: &InferPlan) -> Result<InferSummary, CliError> {
         None
     } else {
         let run = stage.result.run.as_ref().expect("samples come from a run");
-        let s = super::search::run(out, &study, &detection, run)?;
+        let s = super::search::run(out, &study, &detection, run, truth.as_ref())?;
         warnings.extend(s.warnings.iter().cloned());
         Some(s)
     };

@@ -43,14 +43,16 @@ pub(super) fn execute(plan: &InferPlan, arcs: Vec<TrackedArc>) -> Result<(), Cli
     let detected = found.verdict.detected();
 
     // The shared perturber's posterior; where to look only for a detection.
-    let (posterior, posterior_text, mut files) = super::posterior::run_joint(out, &study, &found, &plan.posterior)?;
+    let truth = super::infer::Truth::at_epoch(plan.truth.as_ref(), study.search_epoch_tdb_days);
+    let (posterior, posterior_text, mut files) =
+        super::posterior::run_joint(out, &study, &found, &plan.posterior, truth.as_ref())?;
     let samples = posterior.run.as_ref().map_or(&[][..], |r| r.samples.as_slice());
     let upper_limits =
         if detected { Vec::new() } else { super::infer::upper_limits(samples, settings.search.distance_au) };
     let sky = match &posterior.run {
         Some(run) if detected && !run.samples.is_empty() => {
             let kernel = &found.kernel;
-            Some(super::search::run_at(out, &study, kernel.epoch_tdb_days(), kernel.central_gm(), run)?)
+            Some(super::search::run_at(out, &study, kernel.epoch_tdb_days(), kernel.central_gm(), run, truth.as_ref())?)
         }
         _ => None,
     };

@@ -7,6 +7,7 @@ use std::path::Path;
 
 use super::CliError;
 use super::args::InferArgs;
+use super::infer::Truth;
 use latens::io::write_atomically;
 use latens::pipeline::{
     DerivedSample, Detection, JointDetection, JointPosteriorOutcome, PipelineError, PosteriorOutcome, PosteriorRun,
@@ -63,13 +64,14 @@ pub(super) fn run(
     study: &Study,
     detection: &Detection,
     settings: &PosteriorSettings,
+    truth: Option<&Truth>,
 ) -> Result<Outcome, CliError> {
     let bars = super::progress::Bars::interruptible();
     let result = posterior(study, detection, settings, &bars).map_err(|e| stopped(e, out))?;
     let mut text = String::new();
     let mut files = Vec::new();
     if let Some(run) = &result.run {
-        write_run(out, run, &mut text, &mut files)?;
+        write_run(out, run, &mut text, &mut files, truth)?;
     }
     let _ = writeln!(text, "Explanation: {}", result.explanation.text);
     Ok(Outcome { result, text, files })
@@ -85,13 +87,14 @@ pub(super) fn run_joint(
     study: &Study,
     detection: &JointDetection,
     settings: &PosteriorSettings,
+    truth: Option<&Truth>,
 ) -> Result<(JointPosteriorOutcome, String, Files), CliError> {
     let bars = super::progress::Bars::interruptible();
     let result = posterior_joint(study, detection, settings, &bars).map_err(|e| stopped(e, out))?;
     let mut text = String::new();
     let mut files = Vec::new();
     if let Some(run) = &result.run {
-        write_run(out, run, &mut text, &mut files)?;
+        write_run(out, run, &mut text, &mut files, truth)?;
         let _ = writeln!(
             text,
             "Each body's fitted orbit under the perturber moves at the reference epoch by (median, 68%):"
@@ -131,9 +134,10 @@ fn write_run(
     run: &PosteriorRun,
     text: &mut String,
     files: &mut Vec<(&'static str, &'static str)>,
+    truth: Option<&Truth>,
 ) -> Result<(), CliError> {
     std::fs::create_dir_all(out).map_err(|e| CliError::failed(anyhow::anyhow!("creating {}: {e}", out.display())))?;
-    write_posterior_files(out, run)?;
+    write_posterior_files(out, run, truth)?;
     files.push((
         "posterior.csv",
         "equally weighted posterior samples: mass, elements, sky position at the search epoch",
@@ -176,7 +180,7 @@ fn write_run(
     Ok(())
 }
 
-fn write_posterior_files(out: &Path, run: &PosteriorRun) -> Result<(), CliError> {
+fn write_posterior_files(out: &Path, run: &PosteriorRun, truth: Option<&Truth>) -> Result<(), CliError> {
     let (derived, states, settings) = (run.samples.as_slice(), run.states.as_slice(), &run.sampler);
     let fail = |e: String| CliError::failed(anyhow::anyhow!(e));
     // posterior.csv is a view of the run's sample table.
@@ -189,29 +193,32 @@ fn write_posterior_files(out: &Path, run: &PosteriorRun) -> Result<(), CliError>
     let bytes = w.into_inner().map_err(|e| fail(e.to_string()))?;
     write_atomically(&out.join("posterior.csv"), &bytes).map_err(CliError::failed)?;
 
+    let (ra, ra_centre) = unwrap_ra(derived);
+    let ra_truth = truth.map(|t| ra_centre + (t.ra_deg - ra_centre + 540.0).rem_euclid(360.0) - 180.0);
+    let marked = truth.map_or(String::new(), |t| format!("; orange: {}, the simulation's truth", t.name));
     let corner = CornerChart {
         title: format!(
-            "Posterior of the perturber ({} samples; sky position at the search epoch). Blue: median and 68% interval; 68% and 95% regions",
+            "Posterior of the perturber ({} samples; sky position at the search epoch). Blue: median and 68% interval; 68% and 95% regions{marked}",
             derived.len()
         ),
         columns: vec![
             Column {
                 label: "mass (Earth masses)".into(),
                 values: derived.iter().map(|d| d.sample.mass_earth().log10()).collect(),
-                marker: None,
+                marker: truth.map(|t| t.mass_earth.log10()),
                 log10: true,
             },
             Column {
                 label: "distance from Earth (au)".into(),
                 values: derived.iter().map(|d| d.distance_au).collect(),
-                marker: None,
+                marker: truth.map(|t| t.distance_au),
                 log10: false,
             },
-            Column { label: "RA (deg)".into(), values: unwrap_ra(derived), marker: None, log10: false },
+            Column { label: "RA (deg)".into(), values: ra, marker: ra_truth, log10: false },
             Column {
                 label: "Dec (deg)".into(),
                 values: derived.iter().map(|d| d.dec_deg).collect(),
-                marker: None,
+                marker: truth.map(|t| t.dec_deg),
                 log10: false,
             },
         ],
@@ -249,14 +256,14 @@ fn write_posterior_files(out: &Path, run: &PosteriorRun) -> Result<(), CliError>
 }
 
 /// RA values unwrapped around their circular mean, so a cloud straddling
-/// 0 h stays in one piece on the chart.
-fn unwrap_ra(derived: &[DerivedSample]) -> Vec<f64> {
+/// 0 h stays in one piece on the chart; and that mean.
+fn unwrap_ra(derived: &[DerivedSample]) -> (Vec<f64>, f64) {
     let (s, c) = derived.iter().fold((0.0, 0.0), |(s, c), d| {
         let a = d.ra_deg * RAD_PER_DEG;
         (s + a.sin(), c + a.cos())
     });
     let centre = s.atan2(c) / RAD_PER_DEG;
-    derived.iter().map(|d| centre + (d.ra_deg - centre + 540.0).rem_euclid(360.0) - 180.0).collect()
+    (derived.iter().map(|d| centre + (d.ra_deg - centre + 540.0).rem_euclid(360.0) - 180.0).collect(), centre)
 }
 
 /// Writes a chart as PNG (through a temporary file) and SVG.

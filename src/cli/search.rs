@@ -6,6 +6,7 @@ use std::fmt::Write as _;
 use std::path::Path;
 
 use super::CliError;
+use super::infer::Truth;
 use super::posterior::save_chart;
 use latens::frames::{angular_separation, icrf_from_ecliptic};
 use latens::io::results::{ModeFile, SkyFile};
@@ -25,14 +26,27 @@ pub(super) struct Outcome {
 
 /// Computes the sky products of a posterior, writes them into `out` and
 /// says where to look.
-pub(super) fn run(out: &Path, study: &Study, detection: &Detection, run: &PosteriorRun) -> Result<Outcome, CliError> {
+pub(super) fn run(
+    out: &Path,
+    study: &Study,
+    detection: &Detection,
+    run: &PosteriorRun,
+    truth: Option<&Truth>,
+) -> Result<Outcome, CliError> {
     let (kernel, _) = detection.posterior_kernel();
-    run_at(out, study, kernel.epoch_tdb_days, kernel.central_gm(), run)
+    run_at(out, study, kernel.epoch_tdb_days, kernel.central_gm(), run, truth)
 }
 
 /// [`run`] for a posterior whose perturber states are at `t0` (TDB days)
 /// about a central body of GM `gm_sun` (a joint study's).
-pub(super) fn run_at(out: &Path, study: &Study, t0: f64, gm_sun: f64, run: &PosteriorRun) -> Result<Outcome, CliError> {
+pub(super) fn run_at(
+    out: &Path,
+    study: &Study,
+    t0: f64,
+    gm_sun: f64,
+    run: &PosteriorRun,
+    truth: Option<&Truth>,
+) -> Result<Outcome, CliError> {
     let mut text = String::new();
     let fail = |e: String| CliError::failed(anyhow::anyhow!(e));
     let products = sky_products_at(study, t0, gm_sun, run)?;
@@ -54,7 +68,10 @@ pub(super) fn run_at(out: &Path, study: &Study, t0: f64, gm_sun: f64, run: &Post
             .map_err(CliError::failed)?;
     }
     write_modes_csv(out, modes)?;
-    let chart = build_chart(&map, &r50, &r90, &comp, modes, sun, &epoch_text, area50, area90, safety.clone());
+    let mut chart = build_chart(&map, &r50, &r90, &comp, modes, sun, &epoch_text, area50, area90, safety.clone());
+    if let Some(t) = truth {
+        chart.marks.push((latens::frames::vector_from_radec_deg(t.ra_deg, t.dec_deg), format!("{} (truth)", t.name)));
+    }
     save_chart(out, "search_chart", SearchChart::SIZE, |a| chart.draw(a), |a| chart.draw(a))?;
 
     let _ = writeln!(
