@@ -367,6 +367,13 @@ pub struct InferArgs {
     /// file, comma-separated (ranges as A-B).
     #[arg(long, value_name = "LINES")]
     pub exclude: Option<String>,
+    /// Observations to leave out by date: FROM..TO (UTC dates or times,
+    /// inclusive); repeat for several ranges.
+    #[arg(long, value_name = "FROM..TO")]
+    pub exclude_dates: Vec<String>,
+    /// Observations to leave out by site code; repeat for several sites.
+    #[arg(long, value_name = "SITE")]
+    pub exclude_site: Vec<String>,
     /// The truth.json of `latens simulate`: mark the true perturber (mass,
     /// distance, place) on the posterior and search charts. For simulations;
     /// the fit never sees it.
@@ -378,9 +385,15 @@ pub struct InferArgs {
 pub struct ResidualsArgs {
     #[command(flatten)]
     pub input: InputArgs,
-    /// Reference epoch of the orbit (ISO UTC or `JD <days> TDB`); default: mid-arc.
+    /// Reference epoch of the orbit (ISO UTC or `JD <days> TDB`); default: mid-arc,
+    /// or the starting orbit's epoch.
     #[arg(long, value_name = "DATE")]
     pub epoch: Option<String>,
+    /// Start the fit from this orbit (a fit.json, e.g. of an earlier run or
+    /// a shorter arc) instead of Gauss's method: for arcs where no
+    /// preliminary orbit is found.
+    #[arg(long, value_name = "FIT_JSON")]
+    pub start_orbit: Option<PathBuf>,
     /// Directory to write into (created if missing).
     #[arg(long, value_name = "DIR", default_value = "output/residuals")]
     pub out: PathBuf,

@@ -41,6 +41,10 @@ pub(super) struct InferPlan {
     pub search_epoch: Option<f64>,
     /// Line numbers of the observation file left out by hand.
     pub excluded_lines: Vec<usize>,
+    /// `--exclude-dates`: TDB-day ranges (inclusive), with the text given.
+    pub excluded_dates: Vec<(f64, f64, String)>,
+    /// `--exclude-site`: site codes.
+    pub excluded_sites: Vec<String>,
     pub detection: DetectionSettings,
     pub posterior: PosteriorSettings,
     /// Where the files go (the interrupted run's directory on resume).
@@ -162,6 +166,8 @@ impl InferPlan {
         }
         let reject_sigma = parse_reject_sigma(&args.reject_sigma)?;
         let excluded_lines = parse_exclude(args.exclude.as_deref())?;
+        let excluded_dates = args.exclude_dates.iter().map(|r| parse_date_range(r)).collect::<Result<Vec<_>, _>>()?;
+        let excluded_sites = args.exclude_site.clone();
         let search = SearchSettings {
             mass_earth: mass,
             distance_au: distance,
@@ -182,9 +188,9 @@ impl InferPlan {
             .map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
         let posterior = super::posterior::settings(args, &out, tracked.kind)?;
         let obs = args.input.obs_files().map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
-        if obs.len() > 1 && args.exclude.is_some() {
+        if obs.len() > 1 && (args.exclude.is_some() || !excluded_dates.is_empty() || !excluded_sites.is_empty()) {
             return Err(CliError::bad_input(anyhow::anyhow!(
-                "--exclude applies to one tracked body; --obs gives {} files for a joint study",
+                "--exclude, --exclude-dates and --exclude-site apply to one tracked body; --obs gives {} files for a joint study",
                 obs.len()
             )));
         }
@@ -198,6 +204,8 @@ impl InferPlan {
             ephemeris: EphemerisSource::parse(&args.input.ephemeris),
             search_epoch,
             excluded_lines,
+            excluded_dates,
+            excluded_sites,
             detection: DetectionSettings { search, reject_sigma },
             posterior,
             out,
@@ -243,6 +251,27 @@ pub(super) fn execute(plan: &InferPlan) -> Result<InferSummary, CliError> {
     let mut arc = TrackedArc::load(&plan.obs[0], plan.sites.as_deref(), &plan.known, plan.tracked.clone())
         .map_err(super::pipeline_error)?;
     arc.exclude_lines(&plan.excluded_lines).map_err(|e| CliError::bad_input(anyhow::anyhow!("--exclude: {e}")))?;
+    let file = plan.obs[0].display().to_string();
+    for (from, to, text) in &plan.excluded_dates {
+        let n = arc
+            .exclude_where(|o| (*from..=*to).contains(&o.t_tdb_days))
+            .map_err(|e| CliError::bad_input(anyhow::anyhow!("--exclude-dates {text}: {e}")))?;
+        if n == 0 {
+            return Err(CliError::bad_input(anyhow::anyhow!(
+                "--exclude-dates {text}: no observation of {file} falls in it"
+            )));
+        }
+    }
+    for site in &plan.excluded_sites {
+        let n = arc
+            .exclude_where(|o| o.site == *site)
+            .map_err(|e| CliError::bad_input(anyhow::anyhow!("--exclude-site {site}: {e}")))?;
+        if n == 0 {
+            return Err(CliError::bad_input(anyhow::anyhow!(
+                "--exclude-site {site}: no observation of {file} was made there"
+            )));
+        }
+    }
     let study = Study::new(vec![arc], &plan.ephemeris, plan.search_epoch).map_err(super::pipeline_error)?;
     let search_epoch = study.search_epoch_tdb_days;
     let detection = detect(&study, &plan.detection, &crate::cli::progress::Bars::new())?;
@@ -299,7 +328,7 @@ pub(super) fn execute(plan: &InferPlan) -> Result<InferSummary, CliError> {
         None
     } else {
         let run = stage.result.run.as_ref().expect("samples come from a run");
-        let s = super::search::run(out, &study, &detection, run, truth.as_ref())?;
+        let s = super::search::run(out, &study, &detection, run, &stage.result.explanation, truth.as_ref())?;
         warnings.extend(s.warnings.iter().cloned());
         Some(s)
     };
@@ -661,6 +690,21 @@ fn parse_reject_sigma(text: &str) -> Result<Option<f64>, CliError> {
 }
 
 /// `--exclude`: line numbers of the observation file, `A-B` for a range.
+/// `--exclude-dates FROM..TO`: a TDB-day range, inclusive; a date alone
+/// (no time) covers its whole UTC day.
+fn parse_date_range(spec: &str) -> Result<(f64, f64, String), CliError> {
+    let bad = |why: String| CliError::bad_input(anyhow::anyhow!("--exclude-dates {spec}: {why}"));
+    let (a, b) = spec.split_once("..").ok_or_else(|| bad("expected FROM..TO, e.g. 2015-01-01..2015-06-30".into()))?;
+    let at = |t: &str| parse_epoch(t.trim()).map(tdb_days_from_j2000).map_err(|e| bad(e.to_string()));
+    let from = at(a)?;
+    // A bare date at the end means the end of that day.
+    let to = at(b)? + if b.trim().len() == 10 { 1.0 - 1e-9 } else { 0.0 };
+    if to < from {
+        return Err(bad("the range ends before it starts".into()));
+    }
+    Ok((from, to, spec.to_string()))
+}
+
 fn parse_exclude(spec: Option<&str>) -> Result<Vec<usize>, CliError> {
     let Some(spec) = spec else { return Ok(Vec::new()) };
     let bad =

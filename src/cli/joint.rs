@@ -52,7 +52,15 @@ pub(super) fn execute(plan: &InferPlan, arcs: Vec<TrackedArc>) -> Result<(), Cli
     let sky = match &posterior.run {
         Some(run) if detected && !run.samples.is_empty() => {
             let kernel = &found.kernel;
-            Some(super::search::run_at(out, &study, kernel.epoch_tdb_days(), kernel.central_gm(), run, truth.as_ref())?)
+            Some(super::search::run_at(
+                out,
+                &study,
+                kernel.epoch_tdb_days(),
+                kernel.central_gm(),
+                run,
+                &posterior.explanation,
+                truth.as_ref(),
+            )?)
         }
         _ => None,
     };

@@ -198,7 +198,7 @@ fn write_posterior_files(out: &Path, run: &PosteriorRun, truth: Option<&Truth>) 
     let marked = truth.map_or(String::new(), |t| format!("; orange: {}, the simulation's truth", t.name));
     let corner = CornerChart {
         title: format!(
-            "Posterior of the perturber ({} samples; sky position at the search epoch). Blue: median and 68% interval; 68% and 95% regions{marked}",
+            "Posterior of the perturber ({} samples; sky position at the search epoch)\nBlue: median and 68% interval (diagonal), 68% and 95% credible regions (pairs){marked}",
             derived.len()
         ),
         columns: vec![

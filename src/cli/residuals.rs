@@ -17,6 +17,7 @@ use latens::reference::{ReferenceFit, ReferenceSettings, fit_reference_orbit};
 use latens::stats::chi_square_survival;
 use latens::time::{parse_epoch, tdb_days_from_j2000};
 use latens::units::JULIAN_YEAR_DAYS;
+use latens::vec3::Vec3;
 use latens_charts::residual_chart::ResidualChart;
 
 /// The force model and the tracked body from `--known`, `--tracked-mass`
@@ -63,6 +64,10 @@ fn input_error(e: InputError) -> CliError {
 
 pub(super) fn run(args: &ResidualsArgs) -> Result<(), CliError> {
     let obs = args.input.single_obs("residuals").map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+    // A starting orbit (read before any work): its state, carried on a
+    // two-body orbit to the reference epoch when that differs; the fit
+    // refines it.
+    let start = args.start_orbit.as_deref().map(super::sensitivity::read_orbit).transpose()?;
     let (observations, sites) = read_inputs(&obs, args.input.sites.as_ref())?;
     let (model, _tracked) = model_from_input(&args.input)?;
     let ephemeris = load_ephemeris(&args.input.ephemeris, &model, &observations)?;
@@ -72,8 +77,28 @@ pub(super) fn run(args: &ResidualsArgs) -> Result<(), CliError> {
         )),
         None => None,
     };
+    let epoch = epoch.or(start.map(|(t, _)| t));
+    let start_state = match start {
+        Some((t, s)) => {
+            let at = epoch.unwrap_or(t);
+            let mu = model.tracked_two_body_gm_au3_per_day2();
+            let (r, v) = latens::dynamics::kepler::propagate(
+                mu,
+                Vec3::new(s[0], s[1], s[2]),
+                Vec3::new(s[3], s[4], s[5]),
+                at - t,
+            )
+            .map_err(|e| {
+                CliError::bad_input(anyhow::anyhow!(
+                    "--start-orbit: cannot carry the orbit to the reference epoch: {e}"
+                ))
+            })?;
+            Some([r.x, r.y, r.z, v.x, v.y, v.z])
+        }
+        None => None,
+    };
     let settings = ReferenceSettings { epoch_tdb_days: epoch, ..ReferenceSettings::default() };
-    let fit = fit_reference_orbit(&observations, &sites, &model, ephemeris.as_ref(), &settings, None)
+    let fit = fit_reference_orbit(&observations, &sites, &model, ephemeris.as_ref(), &settings, start_state)
         .map_err(CliError::failed)?;
 
     let files = ResidualProducts::build(&fit, &observations, &model, ephemeris.description());
@@ -261,7 +286,7 @@ impl ResidualProducts {
             let _ = writeln!(summary, "  warning: {w}");
         }
         let chart_title = format!(
-            "O-C residuals: chi2/dof = {chi2_per_dof:.3} ({} dof, p = {}), RMS {:.3}\" / {:.3}\"",
+            "O-C residuals: chi2/dof = {chi2_per_dof:.3} ({} dof, p = {}); RMS {:.3}\" in RA cos(Dec), {:.3}\" in Dec",
             fit.dof,
             format_p(p_value),
             fit.rms_ra_arcsec,
@@ -274,7 +299,10 @@ impl ResidualProducts {
             if model.known.is_empty() {
                 " alone".to_string()
             } else {
-                format!(" and {}", model.known.iter().map(|k| k.body.name()).collect::<Vec<_>>().join(", "))
+                format!(
+                    " and {}",
+                    model.known.iter().map(|k| capitalised(k.body.name())).collect::<Vec<_>>().join(", ")
+                )
             }
         );
         ResidualProducts {
@@ -312,4 +340,10 @@ impl ResidualProducts {
         write_atomically(&out.join("fit.json"), self.fit_json.as_bytes())?;
         Ok(())
     }
+}
+
+/// A body's name as a proper noun ("jupiter" -> "Jupiter").
+pub(crate) fn capitalised(name: &str) -> String {
+    let mut c = name.chars();
+    c.next().map(|f| f.to_uppercase().chain(c).collect()).unwrap_or_default()
 }

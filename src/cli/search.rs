@@ -11,7 +11,9 @@ use super::posterior::save_chart;
 use latens::frames::{angular_separation, icrf_from_ecliptic};
 use latens::io::results::{ModeFile, SkyFile};
 use latens::io::write_atomically;
-use latens::pipeline::{Detection, PosteriorRun, SUN_WARNING_DEG, SkyProducts, Study, sky_products_at};
+use latens::pipeline::{
+    Best, Detection, Explanation, PosteriorRun, SUN_WARNING_DEG, SkyProducts, Study, sky_products_at,
+};
 use latens::skymap::observe::icrs_from_galactic_deg;
 use latens::skymap::{self, DEG2_PER_SR, SkyMap};
 use latens::vec3::Vec3;
@@ -31,10 +33,11 @@ pub(super) fn run(
     study: &Study,
     detection: &Detection,
     run: &PosteriorRun,
+    explanation: &Explanation,
     truth: Option<&Truth>,
 ) -> Result<Outcome, CliError> {
     let (kernel, _) = detection.posterior_kernel();
-    run_at(out, study, kernel.epoch_tdb_days, kernel.central_gm(), run, truth)
+    run_at(out, study, kernel.epoch_tdb_days, kernel.central_gm(), run, explanation, truth)
 }
 
 /// [`run`] for a posterior whose perturber states are at `t0` (TDB days)
@@ -45,6 +48,7 @@ pub(super) fn run_at(
     t0: f64,
     gm_sun: f64,
     run: &PosteriorRun,
+    explanation: &Explanation,
     truth: Option<&Truth>,
 ) -> Result<Outcome, CliError> {
     let mut text = String::new();
@@ -69,9 +73,9 @@ pub(super) fn run_at(
     }
     write_modes_csv(out, modes)?;
     let mut chart = build_chart(&map, &r50, &r90, &comp, modes, sun, &epoch_text, area50, area90, safety.clone());
-    if let Some(t) = truth {
-        chart.marks.push((latens::frames::vector_from_radec_deg(t.ra_deg, t.dec_deg), format!("{} (truth)", t.name)));
-    }
+    chart.truth =
+        truth.map(|t| (latens::frames::vector_from_radec_deg(t.ra_deg, t.dec_deg), format!("{} (truth)", t.name)));
+    chart.cautions = cautions(run.diagnostics.converged, explanation);
     save_chart(out, "search_chart", SearchChart::SIZE, |a| chart.draw(a), |a| chart.draw(a))?;
 
     let _ = writeln!(
@@ -269,10 +273,10 @@ fn build_chart(
             .collect();
         zooms.push(ZoomPanel {
             title: format!(
-                "mode {}: {:.0}%, centre RA {:.2}°, Dec {:+.2}°; {:.0} sq deg at 90%",
+                "mode {}: {:.0}%, centre RA {}, Dec {:+.1}°; {:.0} sq deg at 90%",
                 m.mode,
                 100.0 * m.probability,
-                m.ra_deg,
+                latens_charts::search_chart::ra_hm(m.ra_deg),
                 m.dec_deg,
                 m.area90_deg2
             ),
@@ -296,5 +300,37 @@ fn build_chart(
         marks,
         zooms,
         warning: warning.map(|w| format!("WARNING: {w}")).unwrap_or_default(),
+        cautions: Vec::new(),
+        truth: None,
     }
+}
+
+/// What the chart must say before anyone points a telescope by it: the
+/// sampler did not converge, or the data prefer another explanation (or
+/// none) to a perturber.
+fn cautions(converged: bool, explanation: &Explanation) -> Vec<String> {
+    let mut out = Vec::new();
+    if !converged {
+        out.push(
+            "NOT CONVERGED: the sampler's diagnostics fail (summary.json); this region may be wrong in size and place. \
+             Run longer (--posterior-steps, --runs) before planning observations by it."
+                .to_string(),
+        );
+    }
+    match &explanation.best {
+        Best::Perturber => {}
+        Best::Alternative(name) => out.push(format!(
+            "ANOTHER EXPLANATION IS PREFERRED: {name} fits the data better than an unseen perturber; \
+             this region only says where a perturber would be if there were one."
+        )),
+        Best::Undecided => out.push(format!(
+            "UNDECIDED: the data do not clearly prefer a perturber over {}; this region holds only if a perturber is the cause.",
+            explanation.runner_up
+        )),
+        Best::NoneNeeded => out.push(
+            "NO EXTRA EFFECT NEEDED: noise alone explains the data as well; this region is where a perturber would be if there were one."
+                .to_string(),
+        ),
+    }
+    out
 }

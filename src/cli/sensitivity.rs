@@ -157,7 +157,7 @@ fn csv_row(c: &Cell) -> String {
 
 /// The reference epoch (TDB days after J2000.0) and heliocentric ICRF state
 /// from a fit.json of `latens residuals`.
-fn read_orbit(path: &Path) -> Result<(f64, [f64; 6]), CliError> {
+pub(super) fn read_orbit(path: &Path) -> Result<(f64, [f64; 6]), CliError> {
     let file = path.display().to_string();
     let fit: latens::io::results::FitHead =
         latens::io::results::read_json(path).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;

@@ -114,8 +114,12 @@ impl CornerChart {
     pub fn draw<DB: DrawingBackend>(&self, root: &DrawingArea<DB, Shift>) -> Result<(), String> {
         let e = |x: DrawingAreaErrorKind<DB::ErrorType>| x.to_string();
         root.fill(&WHITE).map_err(e)?;
-        let (top, body) = root.split_vertically(60);
-        top.titled(&self.title, ("sans-serif", 28).into_font().color(&INK)).map_err(e)?;
+        // The title's first line large, any further line (the key) smaller.
+        let (top, body) = root.split_vertically(90);
+        for (k, line) in self.title.lines().enumerate() {
+            let (y, size) = if k == 0 { (12, 28) } else { (20 + 30 * k as i32, 20) };
+            top.draw(&Text::new(line.to_string(), (25, y), ("sans-serif", size).into_font().color(&INK))).map_err(e)?;
+        }
         let n = self.columns.len();
         let cells = body.split_evenly((n, n));
         let ranges: Vec<(f64, f64)> = self.columns.iter().map(|c| range(&c.values)).collect();

@@ -6,6 +6,11 @@
 use plotters::coord::Shift;
 use plotters::prelude::*;
 
+use crate::axes::{TickedAxis, round_label};
+
+/// The pixel size of the side-by-side pair.
+const PAIR_SIZE: (u32, u32) = (2000, 1100);
+
 /// What the chart shows.
 pub struct ResidualChart<'a> {
     /// Decimal years (TDB) of the observations.
@@ -45,13 +50,12 @@ impl ResidualChart<'_> {
     }
 
     /// Two charts side by side (for example the null and the best-fit
-    /// models), as PNG at `png_path` (3200 x 1000 pixels).
+    /// models) on one y-scale per row, so the eye compares like with like,
+    /// as PNG at `png_path` (2000 x 1100 pixels).
     pub fn draw_pair_png(left: &Self, right: &Self, png_path: &std::path::Path) -> Result<(), String> {
         super::register_fonts();
-        let root = BitMapBackend::new(png_path, (3200, 1000)).into_drawing_area();
-        let (a, b) = root.split_horizontally(1600);
-        left.draw(&a).map_err(|e| e.to_string())?;
-        right.draw(&b).map_err(|e| e.to_string())?;
+        let root = BitMapBackend::new(png_path, PAIR_SIZE).into_drawing_area();
+        Self::draw_pair(left, right, &root).map_err(|e| e.to_string())?;
         root.present().map_err(|e| e.to_string())
     }
 
@@ -60,89 +64,147 @@ impl ResidualChart<'_> {
         super::register_fonts();
         let mut out = String::new();
         {
-            let root = SVGBackend::with_string(&mut out, (3200, 1000)).into_drawing_area();
-            let (a, b) = root.split_horizontally(1600);
-            left.draw(&a).map_err(|e| e.to_string())?;
-            right.draw(&b).map_err(|e| e.to_string())?;
+            let root = SVGBackend::with_string(&mut out, PAIR_SIZE).into_drawing_area();
+            Self::draw_pair(left, right, &root).map_err(|e| e.to_string())?;
             root.present().map_err(|e| e.to_string())?;
         }
         Ok(out)
+    }
+
+    fn draw_pair<DB: DrawingBackend>(
+        left: &Self,
+        right: &Self,
+        root: &DrawingArea<DB, Shift>,
+    ) -> Result<(), DrawingAreaErrorKind<DB::ErrorType>> {
+        let (l, r) = (left.limits(), right.limits());
+        let shared = [l[0].max(r[0]), l[1].max(r[1])];
+        let (a, b) = root.split_horizontally(PAIR_SIZE.0 / 2);
+        left.draw_with(&a, shared)?;
+        right.draw_with(&b, shared)
+    }
+
+    /// The y half-range of each row (RA, Dec): every used point with its
+    /// error bar, and the set-aside points unless they lie beyond three
+    /// times that (those are drawn as arrows at the edge).
+    pub fn limits(&self) -> [f64; 2] {
+        [
+            axis_limit(self.ra_arcsec, self.sigma_ra_arcsec, self.used),
+            axis_limit(self.dec_arcsec, self.sigma_dec_arcsec, self.used),
+        ]
     }
 
     fn draw<DB: DrawingBackend>(
         &self,
         root: &DrawingArea<DB, Shift>,
     ) -> Result<(), DrawingAreaErrorKind<DB::ErrorType>> {
+        self.draw_with(root, self.limits())
+    }
+
+    fn draw_with<DB: DrawingBackend>(
+        &self,
+        root: &DrawingArea<DB, Shift>,
+        limits: [f64; 2],
+    ) -> Result<(), DrawingAreaErrorKind<DB::ErrorType>> {
         root.fill(&WHITE)?;
-        let (header, body) = root.split_vertically(90);
-        header.draw(&Text::new(self.title.clone(), (30, 15), ("sans-serif", 30).into_font().color(&INK)))?;
-        header.draw(&Text::new(self.subtitle.clone(), (30, 55), ("sans-serif", 20).into_font().color(&INK)))?;
+        let (header, body) = root.split_vertically(120);
+        header.draw(&Text::new(self.title.clone(), (30, 12), ("sans-serif", 28).into_font().color(&INK)))?;
+        header.draw(&Text::new(self.subtitle.clone(), (30, 50), ("sans-serif", 19).into_font().color(&INK)))?;
+        let n_aside = self.used.iter().filter(|u| !**u).count();
+        let beyond = self.beyond(limits);
+        self.draw_legend(&header, n_aside, beyond)?;
         let panels = body.split_evenly((2, 1));
         let (t0, t1) = span(self.years);
         let pad = 0.02 * (t1 - t0).max(0.1);
-        for (panel, (values, sigmas, label)) in panels.iter().zip([
-            (self.ra_arcsec, self.sigma_ra_arcsec, "RA cos(Dec), O-C (arcsec)"),
-            (self.dec_arcsec, self.sigma_dec_arcsec, "Dec, O-C (arcsec)"),
-        ]) {
-            let limit = robust_limit(values, sigmas, self.used);
+        for ((panel, (values, sigmas, label)), limit) in panels
+            .iter()
+            .zip([
+                (self.ra_arcsec, self.sigma_ra_arcsec, "RA cos(Dec), O-C (arcsec)"),
+                (self.dec_arcsec, self.sigma_dec_arcsec, "Dec, O-C (arcsec)"),
+            ])
+            .zip(limits)
+        {
+            let x_axis = TickedAxis::linear((t0 - pad)..(t1 + pad), 10);
+            let y_axis = TickedAxis::linear(-limit..limit, 8);
             let mut chart = ChartBuilder::on(panel)
-                .margin(20)
+                .margin(15)
+                .margin_right(25)
                 .x_label_area_size(50)
                 .y_label_area_size(90)
-                .build_cartesian_2d((t0 - pad)..(t1 + pad), -limit..limit)?;
+                .build_cartesian_2d(x_axis, y_axis)?;
             chart
                 .configure_mesh()
                 .x_desc("year (TDB)")
-                .x_label_formatter(&|x| format!("{x:.0}"))
+                .x_label_formatter(&|x| round_label(*x))
+                .y_label_formatter(&|y| round_label(*y))
                 .y_desc(label)
                 .label_style(("sans-serif", 18).into_font().color(&INK))
-                .axis_desc_style(("sans-serif", 20).into_font().color(&INK))
-                .light_line_style(RGBColor(235, 235, 235))
-                .bold_line_style(RGBColor(205, 205, 205))
+                .axis_desc_style(("sans-serif", 19).into_font().color(&INK))
+                .light_line_style(RGBColor(240, 240, 240))
+                .bold_line_style(RGBColor(215, 215, 215))
                 .draw()?;
             chart.draw_series(LineSeries::new([(t0 - pad, 0.0), (t1 + pad, 0.0)], INK.stroke_width(1)))?;
             let clamp = |v: f64| v.clamp(-limit, limit);
+            let inside = |v: f64| v.abs() <= limit;
+            let rows =
+                || self.years.iter().zip(values).zip(sigmas).zip(self.used).map(|(((&t, &v), &s), &u)| (t, v, s, u));
             // Error bars and points of the observations that were used.
-            chart.draw_series(self.years.iter().zip(values).zip(sigmas).zip(self.used).filter(|(_, u)| **u).map(
-                |(((&t, &v), &s), _)| {
-                    ErrorBar::new_vertical(t, clamp(v - s), clamp(v), clamp(v + s), INK.mix(0.35).filled(), 4)
-                },
-            ))?;
-            chart
-                .draw_series(
-                    self.years
-                        .iter()
-                        .zip(values)
-                        .zip(self.used)
-                        .filter(|(_, u)| **u)
-                        .map(|((&t, &v), _)| Circle::new((t, clamp(v)), 3, INK.filled())),
-                )?
-                .label("used")
-                .legend(|(x, y)| Circle::new((x, y), 4, INK.filled()));
-            // Set-aside observations: open crosses (clamped to the frame).
-            chart
-                .draw_series(
-                    self.years
-                        .iter()
-                        .zip(values)
-                        .zip(self.used)
-                        .filter(|(_, u)| !**u)
-                        .map(|((&t, &v), _)| Cross::new((t, clamp(v)), 6, SET_ASIDE.stroke_width(2))),
-                )?
-                .label("set aside")
-                .legend(|(x, y)| Cross::new((x, y), 6, SET_ASIDE.stroke_width(2)));
+            chart.draw_series(rows().filter(|r| r.3 && inside(r.1)).map(|(t, v, s, _)| {
+                ErrorBar::new_vertical(t, clamp(v - s), v, clamp(v + s), INK.mix(0.35).filled(), 4)
+            }))?;
+            chart.draw_series(
+                rows().filter(|r| r.3 && inside(r.1)).map(|(t, v, _, _)| Circle::new((t, v), 3, INK.filled())),
+            )?;
+            // Set-aside observations: crosses.
+            chart.draw_series(
+                rows()
+                    .filter(|r| !r.3 && inside(r.1))
+                    .map(|(t, v, _, _)| Cross::new((t, v), 6, SET_ASIDE.stroke_width(2))),
+            )?;
+            // Beyond the scale: an arrowhead at the edge, pointing out.
+            chart.draw_series(rows().filter(|r| !inside(r.1)).map(|(t, v, _, used)| {
+                let colour = if used { INK } else { SET_ASIDE };
+                let tip = if v > 0.0 { -1 } else { 1 };
+                EmptyElement::at((t, clamp(v)))
+                    + Polygon::new(vec![(0, 0), (-6, 11 * tip), (6, 11 * tip)], colour.filled())
+            }))?;
             let mean = running_mean(self.years, values, sigmas, self.used);
-            chart
-                .draw_series(LineSeries::new(mean.into_iter().map(|(t, v)| (t, clamp(v))), ACCENT.stroke_width(3)))?
-                .label("running weighted mean")
-                .legend(|(x, y)| PathElement::new([(x - 12, y), (x + 12, y)], ACCENT.stroke_width(3)));
-            chart
-                .configure_series_labels()
-                .position(SeriesLabelPosition::UpperRight)
-                .label_font(("sans-serif", 18).into_font().color(&INK))
-                .background_style(WHITE.mix(0.85))
-                .border_style(INK)
-                .draw()?;
+            chart.draw_series(LineSeries::new(mean.into_iter().map(|(t, v)| (t, clamp(v))), ACCENT.stroke_width(3)))?;
+        }
+        Ok(())
+    }
+
+    /// How many points lie beyond the axes at these limits.
+    fn beyond(&self, limits: [f64; 2]) -> usize {
+        (0..self.years.len())
+            .filter(|&k| self.ra_arcsec[k].abs() > limits[0] || self.dec_arcsec[k].abs() > limits[1])
+            .count()
+    }
+
+    /// The key, in the header (never over the data); an entry only for what
+    /// the chart shows.
+    fn draw_legend<DB: DrawingBackend>(
+        &self,
+        header: &DrawingArea<DB, Shift>,
+        n_aside: usize,
+        beyond: usize,
+    ) -> Result<(), DrawingAreaErrorKind<DB::ErrorType>> {
+        let font = ("sans-serif", 18).into_font().color(&INK);
+        let y = 96;
+        let mut x = 40;
+        header.draw(&Circle::new((x, y), 4, INK.filled()))?;
+        header.draw(&Text::new("used (bar: 1 sigma)", (x + 12, y - 10), font.clone()))?;
+        x += 220;
+        if n_aside > 0 {
+            header.draw(&Cross::new((x, y), 6, SET_ASIDE.stroke_width(2)))?;
+            header.draw(&Text::new(format!("set aside ({n_aside})"), (x + 14, y - 10), font.clone()))?;
+            x += 190;
+        }
+        header.draw(&PathElement::new([(x - 12, y), (x + 12, y)], ACCENT.stroke_width(3)))?;
+        header.draw(&Text::new("weighted mean in 20 time bins", (x + 20, y - 10), font.clone()))?;
+        x += 330;
+        if beyond > 0 {
+            header.draw(&Polygon::new(vec![(x, y - 6), (x - 6, y + 5), (x + 6, y + 5)], INK.filled()))?;
+            header.draw(&Text::new(format!("beyond the axes ({beyond}), at the edge"), (x + 14, y - 10), font))?;
         }
         Ok(())
     }
@@ -154,18 +216,27 @@ fn span(v: &[f64]) -> (f64, f64) {
     if lo.is_finite() && hi > lo { (lo, hi) } else { (lo - 0.5, lo + 0.5) }
 }
 
-/// A symmetric axis limit that shows the used points and their error bars
-/// (the 99th percentile of |value| + sigma, times 1.2), so that one wild
-/// set-aside point does not flatten the rest.
-fn robust_limit(values: &[f64], sigmas: &[f64], used: &[bool]) -> f64 {
-    let mut ext: Vec<f64> =
-        values.iter().zip(sigmas).zip(used).filter(|(_, u)| **u).map(|((v, s), _)| v.abs() + s).collect();
-    if ext.is_empty() {
-        return 1.0;
-    }
-    ext.sort_by(f64::total_cmp);
-    let p99 = ext[((ext.len() as f64 * 0.99) as usize).min(ext.len() - 1)];
-    (1.2 * p99).max(1e-3)
+/// A symmetric axis limit: every used point with its error bar, and every
+/// set-aside point within three times that (so that one wild point does not
+/// flatten the rest), with a margin for the markers.
+fn axis_limit(values: &[f64], sigmas: &[f64], used: &[bool]) -> f64 {
+    let finite = |x: &f64| x.is_finite();
+    let core = values
+        .iter()
+        .zip(sigmas)
+        .zip(used)
+        .filter(|(_, u)| **u)
+        .map(|((v, s), _)| v.abs() + s)
+        .filter(finite)
+        .fold(0.0, f64::max);
+    let core = if core > 0.0 { core } else { 1.0 };
+    let aside = values
+        .iter()
+        .zip(used)
+        .filter(|(v, u)| !**u && v.abs() <= 3.0 * core)
+        .map(|(v, _)| v.abs())
+        .fold(0.0, f64::max);
+    (1.06 * core.max(aside)).max(1e-3)
 }
 
 /// Weighted mean of the used residuals in 20 equal time bins (bins with
@@ -192,4 +263,35 @@ fn running_mean(t: &[f64], v: &[f64], s: &[f64], used: &[bool]) -> Vec<(f64, f64
         }
     }
     out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn every_used_point_and_its_bar_lies_inside_the_axes() {
+        let v = [0.1, -0.4, 0.25, 3.0, 0.9, -50.0];
+        let s = [0.05, 0.1, 0.05, 0.1, 0.1, 0.1];
+        let used = [true, true, true, false, false, false];
+        let limit = axis_limit(&v, &s, &used);
+        for k in 0..3 {
+            assert!(v[k].abs() + s[k] <= limit, "used point {k} outside {limit}");
+        }
+        // A set-aside point within three times the used range is shown;
+        // a wild one (-50) does not flatten the rest.
+        assert!((0.9..2.0).contains(&limit), "{limit}");
+        let chart = ResidualChart {
+            years: &[2020.0, 2021.0, 2022.0, 2023.0, 2024.0, 2025.0],
+            ra_arcsec: &v,
+            dec_arcsec: &[0.0; 6],
+            sigma_ra_arcsec: &s,
+            sigma_dec_arcsec: &s,
+            used: &used,
+            title: String::new(),
+            subtitle: String::new(),
+        };
+        // 3.0 and -50 are drawn as arrowheads at the edge, and counted.
+        assert_eq!(chart.beyond(chart.limits()), 2);
+    }
 }

@@ -11,6 +11,7 @@
 
 use plotters::coord::Shift;
 use plotters::prelude::*;
+use plotters::style::text_anchor::{HPos, Pos, VPos};
 
 pub use latens::frames::{from_tangent, tangent};
 
@@ -57,6 +58,31 @@ pub struct SearchChart {
     pub zooms: Vec<ZoomPanel>,
     /// Shown in a box on the chart when not empty.
     pub warning: String,
+    /// Reasons to doubt the region (sampler not converged, another
+    /// explanation preferred), each a line of the banner above the Sun's.
+    pub cautions: Vec<String>,
+    /// A known true place (a simulation's), marked apart from the modes.
+    pub truth: Option<(Vec3, String)>,
+}
+
+const TRUTH: RGBColor = RGBColor(20, 110, 200);
+
+/// A diamond at a pixel position.
+fn diamond(x: i32, y: i32, r: i32, style: ShapeStyle) -> Polygon<(i32, i32)> {
+    Polygon::new(vec![(x, y - r), (x + r, y), (x, y + r), (x - r, y)], style)
+}
+
+/// An RA in hours and minutes ("5h 04m"), whole hours as "5h".
+pub fn ra_hm(ra_deg: f64) -> String {
+    let minutes = (ra_deg.rem_euclid(360.0) / 15.0 * 60.0).round() as i64 % (24 * 60);
+    let (h, m) = (minutes / 60, minutes % 60);
+    if m == 0 { format!("{h}h") } else { format!("{h}h {m:02}m") }
+}
+
+/// A Dec grid label at the grid's precision: "+40°", or "+42.5°".
+fn dec_label(dec: f64, spacing: f64) -> String {
+    let dec = if dec.abs() < 1e-9 { 0.0 } else { dec };
+    if spacing >= 1.0 { format!("{dec:+.0}°") } else { format!("{dec:+.1}°") }
 }
 
 /// Hammer-Aitoff projection of a direction, RA 180 deg in the centre, RA
@@ -129,17 +155,25 @@ impl SearchChart {
         top.draw(&Text::new(self.subtitle.clone(), (30, 54), ("sans-serif", 19).into_font().color(&INK))).map_err(e)?;
         let (sky, bottom) = rest.split_vertically(720);
         self.draw_sky(&sky)?;
-        let (banner, bottom) = bottom.split_vertically(76);
-        if !self.warning.is_empty() {
+        // The banner: every caution, then the Sun's warning (two lines each
+        // at most), in red on the chart itself, not only in the text.
+        let mut lines: Vec<String> = Vec::new();
+        for text in self.cautions.iter().chain(std::iter::once(&self.warning)).filter(|t| !t.is_empty()) {
+            let mut l = wrap(text, 150);
+            l.truncate(2);
+            lines.extend(l);
+        }
+        let banner_height = (24 * lines.len() as i32 + 28).max(76);
+        let (banner, bottom) = bottom.split_vertically(banner_height);
+        if !lines.is_empty() {
             let (w, _) = banner.dim_in_pixel();
+            let bottom_edge = banner_height - 8;
             banner
-                .draw(&Rectangle::new([(20, 6), (w as i32 - 20, 68)], RGBColor(255, 235, 235).filled()))
+                .draw(&Rectangle::new([(20, 6), (w as i32 - 20, bottom_edge)], RGBColor(255, 235, 235).filled()))
                 .map_err(|x| x.to_string())?;
             banner
-                .draw(&Rectangle::new([(20, 6), (w as i32 - 20, 68)], RGBColor(180, 0, 0).stroke_width(3)))
+                .draw(&Rectangle::new([(20, 6), (w as i32 - 20, bottom_edge)], RGBColor(180, 0, 0).stroke_width(3)))
                 .map_err(|x| x.to_string())?;
-            let mut lines = wrap(&self.warning, 150);
-            lines.truncate(2);
             for (k, line) in lines.iter().enumerate() {
                 banner
                     .draw(&Text::new(
@@ -153,7 +187,7 @@ impl SearchChart {
         if !self.zooms.is_empty() {
             let panels = bottom.split_evenly((1, self.zooms.len()));
             for (z, area) in self.zooms.iter().zip(&panels) {
-                draw_zoom(z, area)?;
+                draw_zoom(z, area, self.truth.as_ref(), self.zooms.len())?;
             }
         }
         Ok(())
@@ -166,7 +200,7 @@ impl SearchChart {
         let mut chart = ChartBuilder::on(area)
             .margin(20)
             .margin_right(260)
-            .build_cartesian_2d(-xr * 1.02..xr * 1.02, -yr * 1.04..yr * 1.04)
+            .build_cartesian_2d(-xr * 1.09..xr * 1.02, -yr * 1.04..yr * 1.04)
             .map_err(e)?;
         // Layers: near-Sun zone, 90%, 50%.
         for layer in [2u8, 0, 1] {
@@ -203,7 +237,11 @@ impl SearchChart {
             chart.draw_series(LineSeries::new(pts, grid.stroke_width(1))).map_err(e)?;
             let (x, y) = hammer_ra_dec(std::f64::consts::TAU - 1e-6, dec);
             chart
-                .draw_series([Text::new(format!("{d:+}°"), (x - 0.12, y), ("sans-serif", 16).into_font().color(&INK))])
+                .draw_series([Text::new(
+                    if d == 0 { "0°".to_string() } else { format!("{d:+}°") },
+                    (x - 0.2, y + 0.03),
+                    ("sans-serif", 16).into_font().color(&INK),
+                )])
                 .map_err(e)?;
         }
         // Outline.
@@ -242,6 +280,17 @@ impl SearchChart {
                 )])
                 .map_err(e)?;
         }
+        if let Some((d, label)) = &self.truth {
+            let p = hammer(*d);
+            chart.draw_series([EmptyElement::at(p) + diamond(0, 0, 9, TRUTH.filled())]).map_err(e)?;
+            chart
+                .draw_series([Text::new(
+                    label.clone(),
+                    (p.0 + 0.05, p.1 - 0.1),
+                    ("sans-serif", 18).into_font().color(&TRUTH),
+                )])
+                .map_err(e)?;
+        }
         // Legend, drawn by hand to the right of the map.
         let (w, _) = area.dim_in_pixel();
         let x0 = w as i32 - 250;
@@ -265,8 +314,15 @@ impl SearchChart {
             area.draw(&Text::new(label.to_string(), (x0 + 40, y - 9), font.clone())).map_err(e)?;
         }
         area.draw(&Text::new("×  mode centre", (x0 + 4, 60 + 34 * 6 - 9), font.clone())).map_err(e)?;
-        area.draw(&Text::new("RA grows to the left", (x0, 60 + 34 * 7 - 9), font.clone())).map_err(e)?;
-        area.draw(&Text::new("equal-area (Hammer-Aitoff)", (x0, 60 + 34 * 8 - 9), font)).map_err(e)?;
+        let mut row = 7;
+        if self.truth.is_some() {
+            let y = 60 + 34 * row;
+            area.draw(&diamond(x0 + 9, y, 8, TRUTH.filled())).map_err(e)?;
+            area.draw(&Text::new("true place (known)", (x0 + 26, y - 9), font.clone())).map_err(e)?;
+            row += 1;
+        }
+        area.draw(&Text::new("RA grows to the left", (x0, 60 + 34 * row - 9), font.clone())).map_err(e)?;
+        area.draw(&Text::new("equal-area (Hammer-Aitoff)", (x0, 60 + 34 * (row + 1) - 9), font)).map_err(e)?;
         Ok(())
     }
 }
@@ -287,11 +343,20 @@ fn wrap(text: &str, width: usize) -> Vec<String> {
     lines
 }
 
-fn draw_zoom<DB: DrawingBackend>(z: &ZoomPanel, area: &DrawingArea<DB, Shift>) -> Result<(), String> {
+fn draw_zoom<DB: DrawingBackend>(
+    z: &ZoomPanel,
+    area: &DrawingArea<DB, Shift>,
+    truth: Option<&(Vec3, String)>,
+    n_panels: usize,
+) -> Result<(), String> {
     let e = |x: DrawingAreaErrorKind<DB::ErrorType>| x.to_string();
     let h = z.half_width_deg;
-    let mut chart = ChartBuilder::on(area)
-        .caption(z.title.clone(), ("sans-serif", 19).into_font().color(&INK))
+    let (w, _) = area.dim_in_pixel();
+    // The density's colour bar on the right of each panel.
+    let (area, bar) = area.split_horizontally(w.saturating_sub(96));
+    let title_size = (f64::from(w) / 30.0).clamp(13.0, 19.0);
+    let mut chart = ChartBuilder::on(&area)
+        .caption(z.title.clone(), ("sans-serif", title_size).into_font().color(&INK))
         .margin(14)
         .x_label_area_size(45)
         .y_label_area_size(60)
@@ -303,6 +368,8 @@ fn draw_zoom<DB: DrawingBackend>(z: &ZoomPanel, area: &DrawingArea<DB, Shift>) -
         .disable_mesh()
         .x_desc("offset east (deg), RA grows to the left")
         .y_desc("offset north (deg)")
+        .x_label_formatter(&|x| crate::axes::round_label(*x))
+        .y_label_formatter(&|y| crate::axes::round_label(*y))
         .label_style(("sans-serif", 14).into_font().color(&INK))
         .axis_desc_style(("sans-serif", 15).into_font().color(&INK))
         .draw()
@@ -310,25 +377,29 @@ fn draw_zoom<DB: DrawingBackend>(z: &ZoomPanel, area: &DrawingArea<DB, Shift>) -
     let n = z.raster.len();
     let step = 2.0 * h / n as f64;
     let peak = z.raster.iter().flatten().copied().fold(0.0, f64::max).max(1e-300);
+    let shade = |v: f64| (245.0 * (1.0 - (v / peak).clamp(0.0, 1.0).sqrt())) as u8;
     chart
         .draw_series((0..n).flat_map(|i| (0..n).map(move |j| (i, j))).filter_map(|(i, j)| {
             let v = z.raster[j][i];
             if v <= 0.0 {
                 return None;
             }
-            let shade = (245.0 * (1.0 - (v / peak).sqrt())) as u8;
+            let g = shade(v);
             let x = -h + i as f64 * step;
             let y = -h + j as f64 * step;
-            Some(Rectangle::new([(x, y), (x + step, y + step)], RGBColor(shade, shade, shade).filled()))
+            Some(Rectangle::new([(x, y), (x + step, y + step)], RGBColor(g, g, g).filled()))
         }))
         .map_err(e)?;
-    // RA/Dec grid about the centre.
+    // RA/Dec grid about the centre, labelled a little inside the frame so
+    // that no label is cut at the edge.
     let (rc, dc) = ra_dec(z.centre);
     let (rc, dc) = (rc.to_degrees(), dc.to_degrees());
     let spacing = nice_step(2.0 * h / 4.0);
     let grid = RGBColor(120, 140, 200);
-    let ra_spacing = (spacing / dc.to_radians().cos().max(0.05)).min(90.0);
-    let ra_spacing = nice_step(ra_spacing);
+    let grid_font = ("sans-serif", 14).into_font().color(&grid).pos(Pos::new(HPos::Center, VPos::Center));
+    let inward = |p: (f64, f64)| (p.0 * 0.9, p.1 * 0.93);
+    // RA lines at round steps in time (minutes or hours).
+    let ra_spacing = ra_step_deg(spacing / dc.to_radians().cos().max(0.05));
     let reach = 3.0 * h / dc.to_radians().cos().max(0.05);
     let mut ra = ((rc - reach) / ra_spacing).floor() * ra_spacing;
     while ra <= rc + reach {
@@ -341,15 +412,9 @@ fn draw_zoom<DB: DrawingBackend>(z: &ZoomPanel, area: &DrawingArea<DB, Shift>) -
             .filter(|p| p.0.abs() <= h && p.1.abs() <= h)
             .collect();
         if pts.len() > 1 {
-            let label_at = pts[0];
+            let label_at = inward(pts[0]);
             chart.draw_series(LineSeries::new(pts, grid.stroke_width(1))).map_err(e)?;
-            chart
-                .draw_series([Text::new(
-                    format!("{:.1}h", ra.rem_euclid(360.0) / 15.0),
-                    label_at,
-                    ("sans-serif", 13).into_font().color(&grid),
-                )])
-                .map_err(e)?;
+            chart.draw_series([Text::new(ra_hm(ra), label_at, grid_font.clone())]).map_err(e)?;
         }
         ra += ra_spacing;
     }
@@ -366,15 +431,9 @@ fn draw_zoom<DB: DrawingBackend>(z: &ZoomPanel, area: &DrawingArea<DB, Shift>) -
                 .filter(|p| p.0.abs() <= h && p.1.abs() <= h)
                 .collect();
             if pts.len() > 1 {
-                let label_at = *pts.last().unwrap_or(&(0.0, 0.0));
+                let label_at = inward(*pts.last().unwrap_or(&(0.0, 0.0)));
                 chart.draw_series(LineSeries::new(pts, grid.stroke_width(1))).map_err(e)?;
-                chart
-                    .draw_series([Text::new(
-                        format!("{dec:+.1}°"),
-                        label_at,
-                        ("sans-serif", 13).into_font().color(&grid),
-                    )])
-                    .map_err(e)?;
+                chart.draw_series([Text::new(dec_label(dec, spacing), label_at, grid_font.clone())]).map_err(e)?;
             }
         }
         dec += spacing;
@@ -390,13 +449,77 @@ fn draw_zoom<DB: DrawingBackend>(z: &ZoomPanel, area: &DrawingArea<DB, Shift>) -
             }))
             .map_err(e)?;
     }
-    area.draw(&Text::new(
-        "grey: posterior density; light line: 90%, dark line: 50% contour",
-        (70, area.dim_in_pixel().1 as i32 - 18),
-        ("sans-serif", 13).into_font().color(&INK),
-    ))
-    .map_err(e)?;
+    if let Some((d, label)) = truth
+        && let Some(p) = tangent(z.centre, *d)
+        && p.0.abs() <= h
+        && p.1.abs() <= h
+    {
+        chart.draw_series([EmptyElement::at(p) + diamond(0, 0, 8, TRUTH.filled())]).map_err(e)?;
+        let text_at = (p.0 - 0.03 * h, p.1 + 0.03 * h);
+        chart
+            .draw_series([Text::new(label.clone(), text_at, ("sans-serif", 15).into_font().color(&TRUTH))])
+            .map_err(e)?;
+    }
+    let note = if n_panels >= 3 {
+        "grey: density; lines: 90%, 50%"
+    } else {
+        "grey: posterior density; light line: 90%, dark line: 50% contour"
+    };
+    area.draw(&Text::new(note, (70, area.dim_in_pixel().1 as i32 - 18), ("sans-serif", 13).into_font().color(&INK)))
+        .map_err(e)?;
+    draw_density_bar(&bar, peak).map_err(e)
+}
+
+/// The zoom's grey scale: probability per square degree, from zero (white)
+/// to the panel's peak (black), on the square-root scale the shading uses.
+fn draw_density_bar<DB: DrawingBackend>(
+    bar: &DrawingArea<DB, Shift>,
+    peak: f64,
+) -> Result<(), DrawingAreaErrorKind<DB::ErrorType>> {
+    let (_, ht) = bar.dim_in_pixel();
+    let (top, bottom) = (70, ht as i32 - 80);
+    let (x0, x1) = (8, 28);
+    let span = (bottom - top).max(1);
+    for k in 0..span {
+        // k = 0 at the bottom: zero density.
+        let f = f64::from(k) / f64::from(span);
+        let g = (245.0 * (1.0 - f)) as u8;
+        bar.draw(&Rectangle::new([(x0, bottom - k - 1), (x1, bottom - k)], RGBColor(g, g, g).filled()))?;
+    }
+    bar.draw(&Rectangle::new([(x0, top), (x1, bottom)], INK.stroke_width(1)))?;
+    let font = ("sans-serif", 13).into_font().color(&INK);
+    for frac in [0.0, 0.1, 0.25, 0.5, 1.0] {
+        let y = bottom - (frac_sqrt(frac) * f64::from(span)) as i32;
+        bar.draw(&PathElement::new(vec![(x1, y), (x1 + 5, y)], INK.stroke_width(1)))?;
+        bar.draw(&Text::new(density_label(frac * peak), (x1 + 8, y - 7), font.clone()))?;
+    }
+    bar.draw(&Text::new("per sq deg", (0, top - 36), font.clone()))?;
+    bar.draw(&Text::new("probability", (0, top - 54), font))?;
     Ok(())
+}
+
+fn frac_sqrt(f: f64) -> f64 {
+    f.max(0.0).sqrt()
+}
+
+/// A density for the colour bar with two significant digits.
+fn density_label(v: f64) -> String {
+    if v == 0.0 {
+        "0".into()
+    } else {
+        // Two significant digits, in plain decimals down to 1e-6.
+        let digits = (1 - v.log10().floor() as i32).clamp(0, 7) as usize;
+        format!("{v:.digits$}")
+    }
+}
+
+/// A round RA grid step in degrees: whole minutes of time (1, 2, 5, 10,
+/// 20, 30) or whole hours (1, 2, 3, 6).
+fn ra_step_deg(raw_deg: f64) -> f64 {
+    const MINUTES: [f64; 10] = [1.0, 2.0, 5.0, 10.0, 20.0, 30.0, 60.0, 120.0, 180.0, 360.0];
+    let raw_min = raw_deg * 4.0;
+    let pick = MINUTES.iter().copied().find(|m| *m >= raw_min * 0.7).unwrap_or(360.0);
+    pick / 4.0
 }
 
 fn nice_step(x: f64) -> f64 {
@@ -452,4 +575,41 @@ pub fn marching_squares(raster: &[Vec<f64>], level: f64) -> Vec<((f64, f64), (f6
         }
     }
     out
+}
+
+#[cfg(test)]
+mod label_tests {
+    use super::*;
+
+    #[test]
+    fn ra_labels_read_in_hours_and_minutes() {
+        assert_eq!(ra_hm(76.52), "5h 06m");
+        assert_eq!(ra_hm(90.0), "6h");
+        assert_eq!(ra_hm(359.999), "0h");
+        assert_eq!(ra_hm(-15.0), "23h");
+    }
+
+    #[test]
+    fn ra_steps_are_whole_minutes_or_hours() {
+        for raw in [0.1, 0.9, 2.4, 7.0, 13.0, 29.0, 44.0, 80.0] {
+            let minutes = ra_step_deg(raw) * 4.0;
+            assert!((minutes - minutes.round()).abs() < 1e-9 && minutes >= 1.0, "{raw}: {minutes}");
+            assert!(minutes >= 0.7 * raw * 4.0);
+        }
+    }
+
+    #[test]
+    fn density_labels_have_two_significant_digits() {
+        assert_eq!(density_label(0.0057123), "0.0057");
+        assert_eq!(density_label(0.0113), "0.011");
+        assert_eq!(density_label(0.25), "0.25");
+        assert_eq!(density_label(0.0), "0");
+    }
+
+    #[test]
+    fn dec_labels_are_round() {
+        assert_eq!(dec_label(40.0, 10.0), "+40°");
+        assert_eq!(dec_label(-0.0, 10.0), "+0°");
+        assert_eq!(dec_label(42.5, 0.5), "+42.5°");
+    }
 }

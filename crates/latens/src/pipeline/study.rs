@@ -296,16 +296,21 @@ impl TrackedArc {
                 return Err(PipelineError::Input(format!("line {l} of {file} holds no observation")));
             }
         }
-        let leaving = self.observations.iter().filter(|o| line_of(o).is_some_and(|l| lines.contains(&l))).count();
+        self.exclude_where(|o| line_of(o).is_some_and(|l| lines.contains(&l))).map(|_| ())
+    }
+
+    /// Leaves out by hand every observation `leave` picks (a date range, a
+    /// site); returns how many. Refused when fewer than 3 would remain.
+    pub fn exclude_where(&mut self, leave: impl Fn(&Observation) -> bool) -> Result<usize, PipelineError> {
+        let leaving = self.observations.iter().filter(|o| leave(o)).count();
         if self.observations.len() - leaving < 3 {
             return Err(PipelineError::Input(format!("leaving out {leaving} observation(s) leaves fewer than 3")));
         }
-        let (out, kept): (Vec<Observation>, Vec<Observation>) = std::mem::take(&mut self.observations)
-            .into_iter()
-            .partition(|o| line_of(o).is_some_and(|l| lines.contains(&l)));
+        let (out, kept): (Vec<Observation>, Vec<Observation>) =
+            std::mem::take(&mut self.observations).into_iter().partition(|o| leave(o));
         self.observations = kept;
         self.excluded_by_hand.extend(out.into_iter().map(|o| o.source));
-        Ok(())
+        Ok(leaving)
     }
 }
 

@@ -425,7 +425,7 @@ fn preliminary_orbit(
     }
     if scored.is_empty() {
         return Err(ReferenceError::NoPreliminaryOrbit(format!(
-            "{} triplets of observations gave no usable solution; give a starting orbit",
+            "{} triplets of observations gave no usable solution; give a starting orbit (`latens residuals --start-orbit FIT_JSON`)",
             triplets.len()
         )));
     }
