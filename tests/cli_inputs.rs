@@ -97,12 +97,122 @@ fn missing_required_column() {
 }
 
 #[test]
-fn unknown_column() {
+fn unknown_columns_are_kept_aside_with_a_note() {
     let text = format!(
         "epoch_utc,ra_deg,dec_deg,sigma_ra_arcsec,sigma_dec_arcsec,magnitude\n{}\n",
         good_rows().replace('\n', ",19.5\n") + ",19.5"
     );
-    expect_bad("unknown-column", &text, &[], &["obs.csv:1", "magnitude", "unknown column"]);
+    let case = Case::new("unknown-column");
+    let obs = case.file("obs.csv", text.as_bytes());
+    let (code, err) = case.run(&obs, &["--known", "none"]);
+    assert_ne!(code, Some(2), "refused: {err}");
+    assert!(err.contains("note: ") && err.contains("obs.csv:1") && err.contains("`magnitude`"), "{err}");
+    // The same observations as without the column.
+    let sites = latens::io::observations::SiteTable::new();
+    let plain = case.file("plain.csv", format!("{HEADER}{}\n", good_rows()).as_bytes());
+    let read = |p: &Path| latens::io::observations::read_observations(p, &sites, 3).unwrap();
+    let strip = |v: Vec<latens::io::observations::Observation>| {
+        v.into_iter().map(|o| (o.t_tdb_days, o.ra_rad, o.dec_rad, o.sigma_ra_arcsec)).collect::<Vec<_>>()
+    };
+    assert_eq!(strip(read(&obs)), strip(read(&plain)));
+}
+
+#[test]
+fn quoted_fields_are_unquoted() {
+    // RFC 4180 quoting, as spreadsheets write it.
+    let case = Case::new("quoted");
+    let quote = |l: &str| l.split(',').map(|f| format!("\"{f}\"")).collect::<Vec<_>>().join(",");
+    let text: Vec<String> = format!("{HEADER}{}", good_rows()).lines().map(quote).collect();
+    let quoted = case.file("quoted.csv", (text.join("\n") + "\n").as_bytes());
+    let plain = case.file("plain.csv", format!("{HEADER}{}\n", good_rows()).as_bytes());
+    let sites = latens::io::observations::SiteTable::new();
+    let a = latens::io::observations::read_observations(&quoted, &sites, 3).unwrap();
+    let b = latens::io::observations::read_observations(&plain, &sites, 3).unwrap();
+    assert_eq!(a.len(), 4);
+    for (x, y) in a.iter().zip(&b) {
+        assert_eq!((x.t_tdb_days, x.ra_rad, x.dec_rad, &x.site), (y.t_tdb_days, y.ra_rad, y.dec_rad, &y.site));
+        assert_eq!(x.source.rsplit(':').next(), y.source.rsplit(':').next(), "line numbers differ");
+    }
+}
+
+#[test]
+fn another_format_is_named_as_such() {
+    let tabs = format!("{HEADER}{}\n", good_rows()).replace(',', "\t");
+    expect_bad("tabs", &tabs, &[], &["obs.csv:1", "format not recognised (expected", "tab-separated"]);
+    let other = "date,alpha,delta\n2020-01-10,52.4,16.7\n";
+    expect_bad("other", other, &[], &["obs.csv:1", "format not recognised (expected", "ADES"]);
+}
+
+#[test]
+fn a_date_far_from_the_arc_is_warned_about_before_the_fit() {
+    // A typo in a year (1650 for 2020) on line 4: a warning naming the
+    // line before the fit starts; the run is not refused for it.
+    let case = Case::new("far-date");
+    let text = format!("{HEADER}{}\n", good_rows()).replace("2020-02-10", "1650-02-10");
+    let obs = case.file("obs.csv", text.as_bytes());
+    // Read stderr until the warning (it comes before the fit), then stop
+    // the run: the fit of such an arc is long and beside the point here.
+    let mut child = latens()
+        .args(["residuals", "--known", "none", "--obs"])
+        .arg(&obs)
+        .arg("--out")
+        .arg(case.dir.join("out"))
+        .stderr(std::process::Stdio::piped())
+        .stdout(std::process::Stdio::null())
+        .spawn()
+        .unwrap();
+    let mut err = String::new();
+    {
+        use std::io::BufRead as _;
+        let reader = std::io::BufReader::new(child.stderr.take().unwrap());
+        for line in reader.lines().map_while(Result::ok) {
+            err.push_str(&line);
+            err.push('\n');
+            if line.starts_with("warning: ") {
+                break;
+            }
+        }
+    }
+    let _ = child.kill();
+    let _ = child.wait();
+    assert!(err.contains("warning: ") && err.contains("obs.csv:3") && err.contains("1650-02-10"), "{err}");
+    assert!(err.contains("typing error"), "{err}");
+    // A regular arc, or two seasons years apart, gives no warning.
+    let sites = latens::io::observations::SiteTable::new();
+    let good = case.file("good.csv", format!("{HEADER}{}\n", good_rows()).as_bytes());
+    let obs = latens::io::observations::read_observations(&good, &sites, 3).unwrap();
+    assert!(latens::io::observations::date_outliers(&obs).is_empty());
+    let two =
+        format!("{HEADER}{}\n", good_rows()) + &good_rows().replace("2020-", "2031-").replace(",52.", ",58.") + "\n";
+    let two = case.file("two.csv", two.as_bytes());
+    let obs = latens::io::observations::read_observations(&two, &sites, 3).unwrap();
+    assert!(latens::io::observations::date_outliers(&obs).is_empty());
+}
+
+#[test]
+fn sites_as_parallax_constants_match_astropy() {
+    // tests/data/sites/parallax.csv: geodetic latitude and height of places
+    // given by rho cos phi', rho sin phi' (WGS84 equatorial radii), from
+    // astropy's EarthLocation (tests/data/sites/parallax_astropy.py).
+    let text = std::fs::read_to_string(concat!(env!("CARGO_MANIFEST_DIR"), "/tests/data/sites/parallax.csv")).unwrap();
+    let mut table = String::from("name,lon_deg,rho_cos_phi,rho_sin_phi\n");
+    let mut expected = Vec::new();
+    for (k, line) in text.lines().skip(1).enumerate() {
+        let f: Vec<f64> = line.split(',').map(|x| x.parse().unwrap()).collect();
+        table.push_str(&format!("s{k},10.0,{},{}\n", f[0], f[1]));
+        expected.push((format!("s{k}"), f[2], f[3]));
+    }
+    let sites = latens::io::observations::SiteTable::parse(&table, "sites.csv").unwrap();
+    for (name, lat, height) in expected {
+        let s = sites.get(&name).unwrap();
+        assert!((s.lat_deg - lat).abs() < 1e-9, "{name}: {} vs {lat}", s.lat_deg);
+        assert!((s.height_m - height).abs() < 1e-3, "{name}: {} vs {height}", s.height_m);
+    }
+    // Not a place on the Earth: named by file, line and field.
+    let bad =
+        latens::io::observations::SiteTable::parse("name,lon_deg,rho_cos_phi,rho_sin_phi\nx,10,0.5,0.1\n", "sites.csv")
+            .unwrap_err();
+    assert_eq!((bad.line, bad.field.as_deref()), (2, Some("rho_cos_phi")));
 }
 
 #[test]
@@ -188,6 +298,11 @@ fn too_few_observations() {
 #[test]
 fn empty_file() {
     expect_bad("empty", "", &[], &["obs.csv", "no header"]);
+    // A message about the whole file names no line ("line 0").
+    let case = Case::new("empty-line");
+    let obs = case.file("obs.csv", b"");
+    let (_, err) = case.run(&obs, &[]);
+    assert!(!err.contains(":0"), "{err}");
     expect_bad("comments-only", "# nothing here\n\n", &[], &["obs.csv", "no header"]);
 }
 

@@ -226,6 +226,16 @@ pub(super) fn run(args: &InferArgs) -> Result<(), CliError> {
         .into_iter()
         .flatten()
         .collect::<Vec<_>>();
+    for file in &plan.obs {
+        for note in latens::io::observations::column_notes(file) {
+            eprintln!("note: {note}");
+        }
+    }
+    for arc in &arcs {
+        for warning in latens::io::observations::date_outliers(&arc.observations) {
+            eprintln!("warning: {} {warning}", arc.name);
+        }
+    }
     if arcs.len() > 1 {
         if !plan.excluded_lines.is_empty() {
             return Err(CliError::bad_input(anyhow::anyhow!(

@@ -55,7 +55,20 @@ pub(super) fn read_inputs(obs: &Path, sites: Option<&PathBuf>) -> Result<(Vec<Ob
         None => SiteTable::new(),
     };
     let observations = read_observations(obs, &sites, 3).map_err(input_error)?;
+    tell_input_notes(obs, &observations);
     Ok((observations, sites))
+}
+
+/// Tells, before any fit, what in an observation file is odd but not wrong:
+/// unused columns (a note) and dates far from the rest of the arc (a
+/// warning: most often a typing error in the year).
+pub(super) fn tell_input_notes(file: &Path, observations: &[Observation]) {
+    for note in latens::io::observations::column_notes(file) {
+        eprintln!("note: {note}");
+    }
+    for warning in latens::io::observations::date_outliers(observations) {
+        eprintln!("warning: {warning}");
+    }
 }
 
 fn input_error(e: InputError) -> CliError {

@@ -25,13 +25,38 @@ pub const GEOCENTER: &str = "geocenter";
 
 /// A problem in an input file, located to its line and field.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
-#[error("{file}:{line}: {}{message}", field.as_ref().map(|f| format!("field `{f}`: ")).unwrap_or_default())]
+#[error("{file}{}: {}{message}", at_line(*.line), field.as_ref().map(|f| format!("field `{f}`: ")).unwrap_or_default())]
 pub struct InputError {
     pub file: String,
     /// 1-based line number (0 for the file as a whole).
     pub line: usize,
     pub field: Option<String>,
     pub message: String,
+}
+
+/// ":12" for line 12; nothing for the file as a whole (line 0).
+fn at_line(line: usize) -> String {
+    if line > 0 { format!(":{line}") } else { String::new() }
+}
+
+/// Geodetic latitude (deg) and height (m) on the WGS84 ellipsoid of a place
+/// given by its geocentric parallax constants rho cos phi' and rho sin phi'
+/// (Earth equatorial radii): Bowring's iteration (Bowring 1976, Survey
+/// Review 23, 323), to well below a millimetre in three steps.
+pub fn geodetic_from_parallax(rho_cos_phi: f64, rho_sin_phi: f64) -> (f64, f64) {
+    use crate::units::{EARTH_EQUATORIAL_RADIUS_M as A, EARTH_FLATTENING as F};
+    let (p, z) = (rho_cos_phi * A, rho_sin_phi * A);
+    let b = A * (1.0 - F);
+    let e2 = F * (2.0 - F);
+    let ep2 = e2 / (1.0 - e2);
+    let mut lat = (z / (p * (1.0 - e2))).atan();
+    for _ in 0..5 {
+        let beta = ((1.0 - F) * lat.tan()).atan();
+        lat = ((z + ep2 * b * beta.sin().powi(3)) / (p - e2 * A * beta.cos().powi(3))).atan();
+    }
+    let n = A / (1.0 - e2 * lat.sin().powi(2)).sqrt();
+    let height = if lat.cos().abs() > 1e-9 { p / lat.cos() - n } else { z.abs() - b };
+    (lat.to_degrees(), height)
 }
 
 /// An observing site: geodetic longitude (east positive) and latitude on the
@@ -82,15 +107,33 @@ impl SiteTable {
     pub fn parse(text: &str, file: &str) -> Result<SiteTable, InputError> {
         let table = Table::parse(text, file, ',')?;
         let mut sites = SiteTable::new();
-        table.require(&["name", "lon_deg", "lat_deg", "height_m"], &[], false)?;
+        // Geodetic (lat_deg, height_m) or the trade's geocentric parallax
+        // constants (rho cos phi', rho sin phi', in Earth equatorial radii).
+        let parallax =
+            !table.columns.iter().any(|c| c == "lat_deg") && table.columns.iter().any(|c| c == "rho_cos_phi");
+        if parallax {
+            table.require(&["name", "lon_deg", "rho_cos_phi", "rho_sin_phi"], &[])?;
+        } else {
+            table.require(&["name", "lon_deg", "lat_deg", "height_m"], &[])?;
+        }
         for row in &table.rows {
             let name = row.text("name")?.to_string();
             if name.is_empty() {
                 return Err(row.error("name", "a site needs a name"));
             }
             let lon = row.number("lon_deg")?;
-            let lat = row.number("lat_deg")?;
-            let height = row.number("height_m")?;
+            let (lat, height) = if parallax {
+                let (c, s) = (row.number("rho_cos_phi")?, row.number("rho_sin_phi")?);
+                if !(0.0..=1.1).contains(&c) || s.abs() > 1.1 || c.hypot(s) < 0.99 {
+                    return Err(row.error(
+                        "rho_cos_phi",
+                        &format!("({c}, {s}) is not a place on the Earth (Earth radii, about 1 from the centre)"),
+                    ));
+                }
+                geodetic_from_parallax(c, s)
+            } else {
+                (row.number("lat_deg")?, row.number("height_m")?)
+            };
             if !(-180.0..=360.0).contains(&lon) {
                 return Err(row.error("lon_deg", &format!("{lon} is not a longitude")));
             }
@@ -170,6 +213,76 @@ pub fn read_schedule(path: &Path, sites: &SiteTable, min_count: usize) -> Result
 /// The columns that name the body an observation is of: ADES's permanent
 /// designation, provisional designation and tracklet name (the first filled
 /// one names the body), and Latens CSV's `body`.
+const CSV_POSITION_COLUMNS: [&str; 5] = ["epoch_utc", "ra_deg", "dec_deg", "sigma_ra_arcsec", "sigma_dec_arcsec"];
+const CSV_SCHEDULE_COLUMNS: [&str; 3] = ["epoch_utc", "sigma_ra_arcsec", "sigma_dec_arcsec"];
+const CSV_OPTIONAL_COLUMNS: [&str; 3] = ["site", "corr", CSV_DESIGNATION];
+
+/// What a reader should know about an observation file that is not an
+/// error: columns that are read by nobody (kept in the file, not used).
+/// ADES files carry many fields by design and are not reported.
+pub fn column_notes(path: &Path) -> Vec<String> {
+    let Ok(text) = read_text(path) else { return Vec::new() };
+    let file = path.display().to_string();
+    let Ok(table) = Table::parse(&text, &file, ',') else { return Vec::new() };
+    if table.columns.iter().any(|c| c.contains('|')) {
+        return Vec::new();
+    }
+    let known: Vec<&str> = CSV_POSITION_COLUMNS.iter().chain(&CSV_OPTIONAL_COLUMNS).copied().collect();
+    let unused: Vec<&str> = table.columns.iter().map(String::as_str).filter(|c| !known.contains(c)).collect();
+    if unused.is_empty() {
+        return Vec::new();
+    }
+    vec![format!(
+        "{file}:{}: column(s) {} are not used (kept in the file, left out of the fit)",
+        table.header_line,
+        unused.iter().map(|c| format!("`{c}`")).collect::<Vec<_>>().join(", ")
+    )]
+}
+
+/// Warnings about observations whose dates lie far from the rest of the
+/// arc (more than a year, and more than twice the rest's span, beyond it):
+/// most often a typing error in the year. Told before the fit; the
+/// observations stay in (leave them out with `--exclude LINE`).
+pub fn date_outliers(observations: &[Observation]) -> Vec<String> {
+    let mut t: Vec<(f64, &Observation)> = observations.iter().map(|o| (o.t_tdb_days, o)).collect();
+    t.sort_by(|a, b| a.0.total_cmp(&b.0));
+    let (mut lo, mut hi) = (0usize, t.len());
+    let mut out = Vec::new();
+    let far = |gap: f64, span: f64| gap > 365.25 && gap > 2.0 * span;
+    while hi - lo > 3 {
+        let span_without_first = t[hi - 1].0 - t[lo + 1].0;
+        let span_without_last = t[hi - 2].0 - t[lo].0;
+        if far(t[lo + 1].0 - t[lo].0, span_without_first) {
+            let o = t[lo].1;
+            out.push(format!(
+                "{}: the observation of {} lies {:.0} years before the rest of the arc ({} to {}): a typing error in the date? \
+                 It is kept; leave it out with --exclude if it is wrong",
+                o.source,
+                o.epoch_text,
+                (t[lo + 1].0 - t[lo].0) / 365.25,
+                &t[lo + 1].1.epoch_text[..10.min(t[lo + 1].1.epoch_text.len())],
+                &t[hi - 1].1.epoch_text[..10.min(t[hi - 1].1.epoch_text.len())]
+            ));
+            lo += 1;
+        } else if far(t[hi - 1].0 - t[hi - 2].0, span_without_last) {
+            let o = t[hi - 1].1;
+            out.push(format!(
+                "{}: the observation of {} lies {:.0} years after the rest of the arc ({} to {}): a typing error in the date? \
+                 It is kept; leave it out with --exclude if it is wrong",
+                o.source,
+                o.epoch_text,
+                (t[hi - 1].0 - t[hi - 2].0) / 365.25,
+                &t[lo].1.epoch_text[..10.min(t[lo].1.epoch_text.len())],
+                &t[hi - 2].1.epoch_text[..10.min(t[hi - 2].1.epoch_text.len())]
+            ));
+            hi -= 1;
+        } else {
+            break;
+        }
+    }
+    out
+}
+
 const ADES_DESIGNATIONS: [&str; 3] = ["permID", "provID", "trkSub"];
 const CSV_DESIGNATION: &str = "body";
 
@@ -310,7 +423,7 @@ fn read_table_text(
     let names = if ades {
         // ADES defines many more fields (permID, mode, mag, ...): they are
         // allowed and ignored.
-        table.require(&["obsTime", "ra", "dec", "rmsRA", "rmsDec"], &["stn", "rmsCorr"], true)?;
+        table.require(&["obsTime", "ra", "dec", "rmsRA", "rmsDec"], &["stn", "rmsCorr"])?;
         ColumnNames {
             epoch: "obsTime",
             ra: "ra",
@@ -321,18 +434,10 @@ fn read_table_text(
             corr: "rmsCorr",
         }
     } else if positions {
-        table.require(
-            &["epoch_utc", "ra_deg", "dec_deg", "sigma_ra_arcsec", "sigma_dec_arcsec"],
-            &["site", "corr", CSV_DESIGNATION],
-            false,
-        )?;
+        table.require(&CSV_POSITION_COLUMNS, &CSV_OPTIONAL_COLUMNS)?;
         csv_names()
     } else {
-        table.require(
-            &["epoch_utc", "sigma_ra_arcsec", "sigma_dec_arcsec"],
-            &["site", "corr", "ra_deg", "dec_deg"],
-            false,
-        )?;
+        table.require(&CSV_SCHEDULE_COLUMNS, &["site", "corr", "ra_deg", "dec_deg"])?;
         csv_names()
     };
     let mut out = Vec::with_capacity(table.rows.len());
@@ -474,17 +579,44 @@ struct Row {
 }
 
 impl Table {
+    /// Reads the table with the csv crate (quoted fields unquoted, `#`
+    /// comment lines and blank lines skipped, every field trimmed); in ADES
+    /// PSV, `!` lines (header keywords) are skipped too. Line numbers are
+    /// the file's own.
     fn parse(text: &str, file: &str, separator: char) -> Result<Table, InputError> {
+        // `!` keyword lines of PSV become comments (same line count).
+        let owned;
+        let text = if separator == '|' {
+            owned = text
+                .split('\n')
+                .map(|l| if l.trim_start().starts_with('!') { "#" } else { l })
+                .collect::<Vec<_>>()
+                .join("\n");
+            owned.as_str()
+        } else {
+            text
+        };
+        let mut reader = csv::ReaderBuilder::new()
+            .delimiter(separator as u8)
+            .has_headers(false)
+            .comment(Some(b'#'))
+            .flexible(true)
+            .trim(csv::Trim::All)
+            .from_reader(text.as_bytes());
         let mut columns: Option<(Vec<String>, usize)> = None;
         let mut rows = Vec::new();
-        for (i, raw) in text.split('\n').enumerate() {
-            let line_no = i + 1;
-            let line = raw.strip_suffix('\r').unwrap_or(raw).trim();
-            // `#` starts a comment; in ADES PSV, `!` starts a header keyword line.
-            if line.is_empty() || line.starts_with('#') || (separator == '|' && line.starts_with('!')) {
+        for record in reader.records() {
+            let record = record.map_err(|e| InputError {
+                file: file.into(),
+                line: e.position().map_or(0, |p| p.line() as usize),
+                field: None,
+                message: format!("not readable as delimited text: {e}"),
+            })?;
+            let line_no = record.position().map_or(0, |p| p.line() as usize);
+            if record.iter().all(str::is_empty) {
                 continue;
             }
-            let fields: Vec<String> = line.split(separator).map(|f| f.trim().to_string()).collect();
+            let fields: Vec<String> = record.iter().map(str::to_string).collect();
             match &columns {
                 None => {
                     let mut seen = std::collections::HashSet::new();
@@ -531,29 +663,36 @@ impl Table {
         Ok(Table { file: file.into(), columns, header_line, rows })
     }
 
-    /// Checks that every `required` column is present and, unless
-    /// `allow_other`, that no column is unknown.
-    fn require(&self, required: &[&str], optional: &[&str], allow_other: bool) -> Result<(), InputError> {
+    /// Checks that every `required` column is present. When none of them
+    /// is, the file is in another format and says so. Other columns are
+    /// allowed ([`column_notes`] names them).
+    fn require(&self, required: &[&str], optional: &[&str]) -> Result<(), InputError> {
+        let has = |r: &&str| self.columns.iter().any(|c| c == r);
+        if !required.iter().any(has) {
+            let tabs = if self.columns.iter().any(|c| c.contains('\t')) {
+                "; this file is tab-separated: use commas"
+            } else {
+                ""
+            };
+            return Err(InputError {
+                file: self.file.clone(),
+                line: self.header_line,
+                field: None,
+                message: format!(
+                    "format not recognised (expected Latens CSV with the header {}{}, or ADES PSV with \
+                     obsTime|ra|dec|rmsRA|rmsDec){tabs}",
+                    required.join(","),
+                    optional.iter().map(|o| format!("[,{o}]")).collect::<String>(),
+                ),
+            });
+        }
         for r in required {
-            if !self.columns.iter().any(|c| c == r) {
+            if !has(r) {
                 return Err(InputError {
                     file: self.file.clone(),
                     line: self.header_line,
                     field: Some(r.to_string()),
                     message: "required column missing from the header".into(),
-                });
-            }
-        }
-        for c in &self.columns {
-            if !allow_other && !required.contains(&c.as_str()) && !optional.contains(&c.as_str()) {
-                return Err(InputError {
-                    file: self.file.clone(),
-                    line: self.header_line,
-                    field: Some(c.clone()),
-                    message: format!(
-                        "unknown column (known: {})",
-                        required.iter().chain(optional).copied().collect::<Vec<_>>().join(", ")
-                    ),
                 });
             }
         }
