@@ -446,3 +446,46 @@ fn bad_tracked_body_and_outlier_options_are_refused_before_any_work() {
         assert!(case.nothing_written(), "{extra:?}: something was written");
     }
 }
+
+/// A corrupted ephemeris file is named as such, with the segment and the
+/// record, exit status 2, before any fit: mutated copies of the DE421 test
+/// excerpt (a non-finite and an absurd coefficient, a scrambled block, a
+/// record's midpoint moved, a truncated file, the Sun's segment in another
+/// frame).
+#[test]
+fn a_corrupted_ephemeris_is_named_with_exit_two() {
+    let original = std::fs::read(concat!(env!("CARGO_MANIFEST_DIR"), "/tests/data/de421/excerpt.bsp")).unwrap();
+    let n = original.len();
+    let at = |f: f64| ((n as f64 * f) as usize) / 8 * 8;
+    let put = |bytes: &mut Vec<u8>, pos: usize, v: f64| bytes[pos..pos + 8].copy_from_slice(&v.to_le_bytes());
+    let int = |b: &[u8], pos: usize| i32::from_le_bytes(b[pos..pos + 4].try_into().unwrap());
+    // DAF layout (NAIF DAF Required Reading): FWARD at byte 76 of the file
+    // record; a summary record holds 3 control doubles, then summaries of
+    // ND=2 doubles and NI=6 ints (target, centre, frame, type, ...), 40 bytes each.
+    let summaries = (int(&original, 76) as usize - 1) * 1024;
+    let count = f64::from_le_bytes(original[summaries + 16..summaries + 24].try_into().unwrap()) as usize;
+    let sun = (0..count).map(|k| summaries + 24 + 40 * k + 16).find(|&p| int(&original, p) == 10).unwrap();
+    let mut cases: Vec<(&str, Vec<u8>)> = Vec::new();
+    let mut b = original.clone();
+    put(&mut b, at(0.5), f64::NAN);
+    cases.push(("nan", b));
+    let mut b = original.clone();
+    put(&mut b, at(0.33), 3.0e200);
+    cases.push(("absurd", b));
+    let mut b = original.clone();
+    b[at(0.41)..at(0.41) + 64].fill(0x5a);
+    cases.push(("scrambled", b));
+    cases.push(("truncated", original[..at(0.66)].to_vec()));
+    let mut b = original.clone();
+    b[sun + 8..sun + 12].copy_from_slice(&17i32.to_le_bytes());
+    cases.push(("frame", b));
+    let case = Case::new("corrupt-spk");
+    let obs = case.file("obs.csv", format!("{HEADER}{}\n", good_rows()).as_bytes());
+    for (name, bytes) in cases {
+        let spk = case.file(&format!("{name}.bsp"), &bytes);
+        let (code, err) = case.run(&obs, &["--ephemeris", spk.to_str().unwrap()]);
+        assert_eq!(code, Some(2), "{name}: exit {code:?}: {err}");
+        assert!(err.contains(&format!("{name}.bsp")) && !err.contains("preliminary orbit"), "{name}: {err}");
+        assert!(case.nothing_written(), "{name}: something was written");
+    }
+}

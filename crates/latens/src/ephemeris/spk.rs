@@ -349,8 +349,29 @@ fn read_segment(reader: &Words, info: SpkSegmentInfo, first: i32, last: i32) -> 
     }
     let records =
         reader.doubles(first - 1, total).ok_or_else(|| format!("{what}: its records lie past the end of the file"))?;
-    if records.chunks(record_len).any(|r| r[1] <= 0.0 || !r.iter().all(|x| x.is_finite())) {
-        return Err(format!("{what}: a record has a non-positive radius or a non-finite coefficient"));
+    // Each record covers its own interval: midpoint INIT + (k + 1/2) INTLEN
+    // and radius INTLEN / 2 (the SPK Required Reading, types 2 and 3); its
+    // coefficients are finite and of a size a solar-system body can have
+    // (below 1e13 km, about 67 000 au). A record that breaks this is
+    // corrupt, and named.
+    for (k, r) in records.chunks(record_len).enumerate() {
+        let mid = init_s + (k as f64 + 0.5) * interval_s;
+        let tolerance = 1e-6 * interval_s;
+        if !r.iter().all(|x| x.is_finite()) {
+            return Err(format!("{what}: record {} of {n_records} holds a non-finite coefficient", k + 1));
+        }
+        if (r[0] - mid).abs() > tolerance || (r[1] - 0.5 * interval_s).abs() > tolerance {
+            return Err(format!(
+                "{what}: record {} of {n_records} gives midpoint {:e} s and radius {:e} s where the directory implies {mid:e} s and {:e} s",
+                k + 1,
+                r[0],
+                r[1],
+                0.5 * interval_s
+            ));
+        }
+        if let Some(c) = r[2..].iter().find(|c| c.abs() > 1e13) {
+            return Err(format!("{what}: record {} of {n_records} holds an absurd coefficient ({c:e})", k + 1));
+        }
     }
     Ok(Segment {
         coef_per_component: (record_len - 2) / components as usize,

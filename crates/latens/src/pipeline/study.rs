@@ -138,6 +138,13 @@ impl EphemerisSource {
                         spk.check_covered(b, t).map_err(|e| PipelineError::Input(e.to_string()))?;
                     }
                 }
+                // Every needed body once: a segment in a frame Latens cannot
+                // use is the file's fault, told before any work.
+                if let Some(o) = observations.first() {
+                    for &b in &needed {
+                        spk.heliocentric_state(b, o.t_tdb_days).map_err(|e| PipelineError::Input(e.to_string()))?;
+                    }
+                }
                 Ok(Box::new(spk))
             }
         }
