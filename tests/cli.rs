@@ -477,5 +477,30 @@ fn a_starting_orbit_and_exclusions_by_site() {
         "{}",
         String::from_utf8_lossy(&out.stderr)
     );
+    // A date range left out, and another false-alarm level: both recorded.
+    let out = latens()
+        .args(["infer", "--obs"])
+        .arg(&obs)
+        .arg("--sites")
+        .arg(&sites)
+        .args(["--exclude-dates", "2016-01-01..2016-12-31", "--fap-level", "0.002", "--nulls", "500"])
+        .args(["--directions", "12", "--distances", "2", "--no-posterior", "--out"])
+        .arg(out_dir.join("dates"))
+        .output()
+        .unwrap();
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    let v = read(out_dir.join("dates").join("summary.json"));
+    assert_eq!(v["settings"]["fap_level"].as_f64(), Some(0.002));
+    let left: Vec<&str> =
+        v["outliers"]["excluded_by_hand"].as_array().unwrap().iter().map(|x| x.as_str().unwrap()).collect();
+    let text = std::fs::read_to_string(&obs).unwrap();
+    let in_2016: Vec<String> = text
+        .lines()
+        .enumerate()
+        .filter(|(_, l)| l.starts_with("2016-"))
+        .map(|(i, _)| format!("{}:{}", obs.display(), i + 1))
+        .collect();
+    assert!(!in_2016.is_empty());
+    assert_eq!(left, in_2016.iter().map(String::as_str).collect::<Vec<_>>());
     let _ = std::fs::remove_dir_all(&out_dir);
 }

@@ -431,6 +431,8 @@ fn bad_tracked_body_and_outlier_options_are_refused_before_any_work() {
         (["--reject-sigma", "lots"], "--reject-sigma"),
         (["--exclude", "99"], "line 99 of"),
         (["--exclude", "3-2"], "--exclude"),
+        (["--fap-level", "0.2"], "--fap-level"),
+        (["--fap-level", "0.0001"], "at least 10000"),
     ] {
         let out = latens()
             .args(["infer", "--obs"])

@@ -313,6 +313,11 @@ pub struct InferArgs {
     /// Null simulations for the false-alarm probability.
     #[arg(long, value_name = "N", default_value_t = 1000)]
     pub nulls: usize,
+    /// The false-alarm probability below which a perturber counts as
+    /// detected (0.0027 is 3 sigma; 5.7e-7, 5 sigma, needs 1.8 million
+    /// nulls). At least 1/P null simulations are needed.
+    #[arg(long, value_name = "P", default_value_t = latens::pipeline::DETECTION_FAP)]
+    pub fap_level: f64,
     /// Directions of the grid (equal-area over the whole sky).
     #[arg(long, value_name = "N", default_value_t = 768)]
     pub directions: usize,

@@ -21,7 +21,7 @@ use latens::io::results::{
 use latens::io::write_atomically;
 use latens::perturber::{KeplerOrbit, LinearKernel, Scored, SearchSettings};
 use latens::pipeline::{
-    Best, DETECTION_FAP, Detection, DetectionSettings, EphemerisSource, PosteriorSettings, Study, TrackedArc, detect,
+    Best, Detection, DetectionSettings, EphemerisSource, PosteriorSettings, Study, TrackedArc, detect,
     linearisation_error, parse_known,
 };
 use latens::reference::ReferenceFit;
@@ -139,10 +139,17 @@ impl InferPlan {
         let distance = super::parse_range(&args.distance_au, "--distance-au")?;
         // The false-alarm probability cannot go below 1/(nulls + 1): enough
         // nulls are needed for it to reach the detection threshold at all.
-        let min_nulls = (1.0 / DETECTION_FAP).ceil() as usize;
+        if !(args.fap_level > 0.0 && args.fap_level <= 0.05) {
+            return Err(CliError::bad_input(anyhow::anyhow!(
+                "--fap-level must lie in (0, 0.05] (0.0027 is 3 sigma), got {}",
+                args.fap_level
+            )));
+        }
+        let min_nulls = (1.0 / args.fap_level).ceil() as usize;
         if args.nulls < min_nulls {
             return Err(CliError::bad_input(anyhow::anyhow!(
-                "--nulls must be at least {min_nulls} for a false-alarm probability below the detection threshold {DETECTION_FAP}, got {}",
+                "--nulls must be at least {min_nulls} for a false-alarm probability below the detection threshold {}, got {}",
+                args.fap_level,
                 args.nulls
             )));
         }
@@ -175,6 +182,7 @@ impl InferPlan {
             seed: args.seed,
             n_directions: args.directions,
             n_distances: args.distances,
+            fap_level: args.fap_level,
             ..SearchSettings::default()
         };
         let search_epoch = match &args.search_epoch {
@@ -301,12 +309,12 @@ pub(super) fn execute(plan: &InferPlan) -> Result<InferSummary, CliError> {
         .collect::<Result<_, _>>()?;
     for (k, d) in described.iter().enumerate() {
         // Only a detection sends anyone to the telescope.
-        if d.solar_elongation_deg < latens::pipeline::SUN_WARNING_DEG && fap < DETECTION_FAP {
+        if d.solar_elongation_deg < latens::pipeline::SUN_WARNING_DEG && fap < settings.fap_level {
             warnings.push(sun_warning(k + 1, d.solar_elongation_deg));
         }
         // Only worth saying for a solution that stands out from the noise
         // and that the recentred kernel did not take over.
-        if d.linearisation_error_fraction > 0.05 && fap < DETECTION_FAP && centred.is_none() {
+        if d.linearisation_error_fraction > 0.05 && fap < settings.fap_level && centred.is_none() {
             warnings.push(format!(
                 "basin {}: the linear kernel differs from the full model by {:.0}% of the signal; treat its figures with caution",
                 k + 1,
@@ -572,6 +580,7 @@ pub(super) fn settings_file(
         speed_factors: s.speed_factors.clone(),
         min_separation_au: s.min_separation_au,
         basin_delta_chi2: s.basin_delta_chi2,
+        fap_level: s.fap_level,
         known_bodies: model.known.iter().map(|k| k.body.name().to_string()).collect(),
         folded_into_sun: model.folded.iter().map(|k| k.body.name().to_string()).collect(),
         central_gm_au3_per_day2: model.central_gm_au3_per_day2(),

@@ -19,8 +19,8 @@ use latens::io::results::{
 use latens::io::write_atomically;
 use latens::perturber::{KeplerOrbit, Scored, SignalKernel};
 use latens::pipeline::{
-    DETECTION_FAP, JointDetection, JointPosteriorOutcome, JointSettings, SUN_WARNING_DEG, SearchGeometry, Study,
-    TrackedArc, detect_joint,
+    JointDetection, JointPosteriorOutcome, JointSettings, SUN_WARNING_DEG, SearchGeometry, Study, TrackedArc,
+    detect_joint,
 };
 use latens::time::{epoch_from_tdb_days, utc_iso_from_epoch};
 use latens::units::{J2000_JD, RAD_PER_DEG};
@@ -135,7 +135,7 @@ pub(super) fn execute(plan: &InferPlan, arcs: Vec<TrackedArc>) -> Result<(), Cli
             left_out: found.bodies[l.body].name.clone(),
             delta_chi2: l.delta_chi2,
             false_alarm_probability: l.false_alarm_probability,
-            detected: l.false_alarm_probability < DETECTION_FAP,
+            detected: l.false_alarm_probability < settings.search.fap_level,
         }),
         posterior: posterior.run.as_ref().map(|r| r.summary.clone()),
         evidence: posterior.run.as_ref().and_then(|r| r.evidence.clone()),

@@ -372,6 +372,8 @@ pub struct InferSettingsFile {
     pub speed_factors: Vec<f64>,
     pub min_separation_au: f64,
     pub basin_delta_chi2: f64,
+    /// The false-alarm probability below which a perturber counts as detected.
+    pub fap_level: f64,
     pub known_bodies: Vec<String>,
     pub folded_into_sun: Vec<String>,
     /// The GM (au^3/day^2) of the central mass about which the perturber's

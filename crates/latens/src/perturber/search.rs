@@ -52,6 +52,9 @@ pub struct SearchSettings {
     pub basin_separation_deg: f64,
     pub n_null: usize,
     pub seed: u64,
+    /// The false-alarm probability below which a perturber counts as
+    /// detected (default 0.0027, 3 sigma); at least 1/level nulls are needed.
+    pub fap_level: f64,
 }
 
 impl Default for SearchSettings {
@@ -72,6 +75,7 @@ impl Default for SearchSettings {
             basin_separation_deg: 20.0,
             n_null: 1000,
             seed: 1,
+            fap_level: crate::pipeline::DETECTION_FAP,
         }
     }
 }

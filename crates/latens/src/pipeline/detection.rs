@@ -227,7 +227,7 @@ pub fn detect(
             stage = search(rest, &arc.sites, model, ephemeris, search_settings, observer)?;
         }
     }
-    let Searched { observations, null, geometry, kernel, result, refined, centred, basins, rounds } = stage;
+    let Searched { observations, null, geometry, kernel, result, refined, centred, basins, rounds, .. } = stage;
     let best_delta = result.grid_best_delta_chi2;
     let fap = result.false_alarm_probability();
     // A signal that repeats with the year points at a systematic error tied
@@ -235,7 +235,7 @@ pub fn detect(
     // planet, whose pull changes slowly.
     let (share, chi2) = annual_share(&null, &observations, best_delta);
     let annual = AnnualCheck { share, chi2 };
-    let detected = fap < DETECTION_FAP && best_delta > 0.0;
+    let detected = fap < search_settings.fap_level && best_delta > 0.0;
     let verdict = match (detected, annual.flagged()) {
         (true, true) => Verdict::AnnualSystematic,
         (true, false) => Verdict::Detected,
@@ -398,11 +398,13 @@ struct Searched {
     /// The basins the posterior starts from, drops against the null model.
     basins: Vec<Scored>,
     rounds: usize,
+    /// The false-alarm level of a detection (the settings').
+    fap_level: f64,
 }
 
 impl Searched {
     fn detected(&self) -> bool {
-        self.result.false_alarm_probability() < DETECTION_FAP && self.result.grid_best_delta_chi2 > 0.0
+        self.result.false_alarm_probability() < self.fap_level && self.result.grid_best_delta_chi2 > 0.0
     }
 
     /// Each observation's chi-square (both coordinates) against the best
@@ -462,6 +464,7 @@ fn search(
         refined: None,
         centred: None,
         rounds: 0,
+        fap_level: settings.fap_level,
     };
     let Some(best) = stage.result.best().copied().filter(|b| b.gm_au3_per_day2 > 0.0) else {
         return Ok(stage);

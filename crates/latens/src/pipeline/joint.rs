@@ -22,7 +22,7 @@
 
 use rayon::prelude::*;
 
-use super::detection::{DETECTION_FAP, Verdict};
+use super::detection::Verdict;
 use super::{PipelineError, Study};
 use crate::astrometry::ObservingGeometry;
 use crate::io::observations::Observation;
@@ -124,7 +124,9 @@ impl JointDetection {
         };
         let alone: Vec<&BodyEvidence> = self.evidence.iter().filter(|e| e.alone.is_some()).collect();
         if self.verdict.detected() && alone.len() == n {
-            let single = alone.iter().filter(|e| e.alone.is_some_and(|a| a.false_alarm_probability < DETECTION_FAP));
+            let single = alone
+                .iter()
+                .filter(|e| e.alone.is_some_and(|a| a.false_alarm_probability < self.settings.search.fap_level));
             let names: Vec<&str> = single.map(|e| e.name.as_str()).collect();
             if names.is_empty() {
                 text.push_str("; no body alone reaches the detection threshold");
@@ -136,7 +138,7 @@ impl JointDetection {
             && self.verdict.detected()
         {
             let name = &self.bodies[l.body].name;
-            if l.false_alarm_probability < DETECTION_FAP {
+            if l.false_alarm_probability < self.settings.search.fap_level {
                 text.push_str(&format!(
                     "; without {name}, which carries most of it, the detection stands (false-alarm probability {:.2e})",
                     l.false_alarm_probability
@@ -224,7 +226,7 @@ pub fn detect_joint(
     ));
     let search = grid_search(&kernel, &settings.search, observer);
     let fap = search.false_alarm_probability();
-    let detected = fap < DETECTION_FAP && search.grid_best_delta_chi2 > 0.0;
+    let detected = fap < settings.search.fap_level && search.grid_best_delta_chi2 > 0.0;
     let verdict = if detected {
         Verdict::Detected
     } else if fap < 0.05 {
