@@ -11,6 +11,9 @@
 pub enum Stage {
     /// The grid search over perturber hypotheses; units: hypotheses.
     Search,
+    /// The noise-only simulations of the search (false-alarm probability);
+    /// units: simulations.
+    Nulls,
     /// The posterior sampler on the linear kernel; units: steps.
     Sampling,
     /// The sampler restarted on the full nonlinear model; units: steps.
@@ -24,6 +27,7 @@ impl Stage {
     pub fn describe(self) -> &'static str {
         match self {
             Stage::Search => "searching",
+            Stage::Nulls => "simulating noise-only data",
             Stage::Sampling => "sampling the posterior",
             Stage::NonlinearSampling => "sampling on the nonlinear model",
             Stage::Sensitivity => "mapping",
@@ -34,6 +38,7 @@ impl Stage {
     pub fn unit(self) -> &'static str {
         match self {
             Stage::Search => "hypotheses",
+            Stage::Nulls => "simulations",
             Stage::Sampling | Stage::NonlinearSampling => "steps",
             Stage::Sensitivity => "distances",
         }

@@ -296,7 +296,11 @@ pub fn grid_search<K: SignalKernel + ?Sized>(
         settings.max_basins,
     );
 
-    // Null realisations, in parallel over nulls.
+    // Null realisations, in parallel over nulls (reported every 16).
+    if settings.n_null > 0 {
+        observer.begin(Stage::Nulls, settings.n_null as u64);
+    }
+    let nulls_done = std::sync::atomic::AtomicUsize::new(0);
     let null_maxima: Vec<f64> = (0..settings.n_null)
         .into_par_iter()
         .map(|r| {
@@ -315,9 +319,16 @@ pub fn grid_search<K: SignalKernel + ?Sized>(
                     best = t;
                 }
             }
+            let n = nulls_done.fetch_add(1, std::sync::atomic::Ordering::Relaxed) + 1;
+            if n % 16 == 0 || n == settings.n_null {
+                observer.advance(n as u64);
+            }
             f64::from(best) * f64::from(best)
         })
         .collect();
+    if settings.n_null > 0 {
+        observer.finish();
+    }
 
     SearchResult {
         n_hypotheses: hyps.len(),
