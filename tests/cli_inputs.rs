@@ -491,3 +491,25 @@ fn a_corrupted_ephemeris_is_named_with_exit_two() {
         assert!(case.nothing_written(), "{name}: something was written");
     }
 }
+
+#[test]
+fn a_demo_scenario_that_cannot_be_read_is_refused_before_any_work() {
+    let case = Case::new("demo-scenario");
+    let typo = std::fs::read_to_string(concat!(env!("CARGO_MANIFEST_DIR"), "/scenarios/demo.toml"))
+        .unwrap()
+        .replace("sigma_arcsec", "sigma_arcsecs");
+    let typo = case.file("typo.toml", typo.as_bytes());
+    for (scenario, needle) in [(typo, "sigma_arcsecs"), (case.dir.join("missing.toml"), "missing.toml")] {
+        let out = latens()
+            .args(["demo", "--seed", "7", "--scenario"])
+            .arg(&scenario)
+            .arg("--out")
+            .arg(case.dir.join("out"))
+            .output()
+            .unwrap();
+        let err = String::from_utf8_lossy(&out.stderr);
+        assert_eq!(out.status.code(), Some(2), "{err}");
+        assert!(err.contains(needle), "{err}");
+        assert!(case.nothing_written(), "something was written");
+    }
+}

@@ -49,7 +49,7 @@ pub enum Command {
             pulling on it, fits the orbit, finds the planet, samples its posterior, draws where to \
             look, maps the survey's sensitivity, and searches an invented population of twelve \
             bodies jointly. It needs no input files and takes about two minutes on two cores.",
-        after_long_help = "Examples:\n  latens demo\n  latens demo --out /tmp/demo"
+        after_long_help = "Examples:\n  latens demo\n  latens demo --out /tmp/demo --seed 7\n  latens demo --scenario scenarios/demo.toml --out /tmp/mine"
     )]
     Demo(DemoArgs),
     /// Fit the tracked body's reference orbit and show its O-C residuals.
@@ -409,6 +409,15 @@ pub struct DemoArgs {
     /// Directory to write into (created if missing).
     #[arg(long, value_name = "DIR", default_value = "output/demo")]
     pub out: PathBuf,
+    /// The noise seed of the simulated surveys (and of the searches and
+    /// samplers that follow), instead of the scenarios' own: another
+    /// realisation of the same sky.
+    #[arg(long, value_name = "N")]
+    pub seed: Option<u64>,
+    /// Run steps 1 to 4 on this scenario (TOML, as `latens simulate` reads)
+    /// instead of the built-in one; the joint section is left out.
+    #[arg(long, value_name = "SCENARIO_TOML")]
+    pub scenario: Option<PathBuf>,
 }
 
 #[cfg(test)]
@@ -420,6 +429,10 @@ mod tests {
         let a = Args::try_parse_from(["latens", "demo", "--out", "x/y"]).unwrap();
         let Command::Demo(d) = a.command else { panic!("not demo") };
         assert_eq!(d.out, PathBuf::from("x/y"));
+        assert_eq!((d.seed, d.scenario), (None, None));
+        let a = Args::try_parse_from(["latens", "demo", "--seed", "7", "--scenario", "s.toml"]).unwrap();
+        let Command::Demo(d) = a.command else { panic!("not demo") };
+        assert_eq!((d.seed, d.scenario), (Some(7), Some(PathBuf::from("s.toml"))));
         let a = Args::try_parse_from(["latens", "demo"]).unwrap();
         let Command::Demo(d) = a.command else { panic!("not demo") };
         assert_eq!(d.out, PathBuf::from("output/demo"));

@@ -28,13 +28,30 @@ const POPULATION: &str = include_str!("../../scenarios/population.toml");
 
 pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
     let started = std::time::Instant::now();
-    let scenario = parse(SCENARIO, "scenarios/demo.toml (built in)").map_err(CliError::failed)?;
+    // The scenario (checked before any work): the built-in one or the
+    // user's, with the seed given.
+    let (mut scenario, scenario_name) = match &args.scenario {
+        Some(path) => {
+            let text = std::fs::read_to_string(path)
+                .map_err(|e| CliError::bad_input(anyhow::anyhow!("--scenario {}: {e}", path.display())))?;
+            let name = path.display().to_string();
+            (parse(&text, &name).map_err(CliError::bad_input)?, name)
+        }
+        None => (
+            parse(SCENARIO, "scenarios/demo.toml (built in)").map_err(CliError::failed)?,
+            "scenarios/demo.toml".to_string(),
+        ),
+    };
+    if let Some(seed) = args.seed {
+        scenario.survey.seed = seed;
+    }
+    let (demo_seed, own_scenario) = (args.seed, args.scenario.is_some());
     let out = &args.out;
     println!("Latens demo: {} (invented)", scenario.name);
     println!("  {}", scenario.description);
 
     // 1. The survey's observations, from the full model with noise.
-    let sim = super::simulate::simulate(&scenario, "scenarios/demo.toml", out)?;
+    let sim = super::simulate::simulate(&scenario, &scenario_name, out)?;
     println!(
         "1. Simulated {} observations of {} by the {} ({}\" noise, seed {}), {} to {}; the giant planets move {} by up to {:.0}\" from a two-body orbit",
         sim.observations.len(),
@@ -116,7 +133,9 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
     args.seed = scenario.survey.seed;
     args.max_eccentricity = s.max_eccentricity;
     // The demo knows the truth: its charts mark it.
-    args.truth = Some(out.join("truth.json"));
+    if scenario.perturber.is_some() {
+        args.truth = Some(out.join("truth.json"));
+    }
     let mut plan = super::infer::InferPlan::from_args(&args)?;
     plan.detection.search.mass_earth = (s.mass_earth[0], s.mass_earth[1]);
     plan.detection.search.distance_au = (s.distance_au[0], s.distance_au[1]);
@@ -148,7 +167,12 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
     println!(
         "5. Twelve other bodies, one hidden planet that hardly any of them shows alone (latens infer with a directory of files):"
     );
-    let joint = joint_section(out)?;
+    let joint = if !own_scenario {
+        Some(joint_section(out, demo_seed)?)
+    } else {
+        println!("   (left out: the joint section runs on the built-in population only)");
+        None
+    };
 
     // In plain words.
     println!();
@@ -173,16 +197,18 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
     if let Some(text) = &truth_check {
         println!("  {text}");
     }
-    println!("  Twelve bodies together: {}", joint.0);
-    if let Some(text) = &joint.1 {
-        println!("  {text}");
+    if let Some(joint) = &joint {
+        println!("  Twelve bodies together: {}", joint.0);
+        if let Some(text) = &joint.1 {
+            println!("  {text}");
+        }
     }
     println!("  The demo took {:.0} s.", started.elapsed().as_secs_f64());
     println!("Files written in {}:", out.display());
     let list = [
         ("observations.csv, sites.csv", "the simulated survey (input for every other command)"),
         ("truth.json", "what the simulation put in: the true orbits and the hidden planet's true place"),
-        ("track.csv", "Vesk's monthly geocentric track and the planets' shift of it"),
+        ("track.csv", "the tracked body's monthly geocentric track and the planets' shift of it"),
         ("residuals/", "fit.json, residuals.csv, residuals.png/.svg: the reference orbit and its O-C"),
         ("search/summary.json", "the verdict, the posterior summary, the evidence and the alternative explanations"),
         ("search/null_fit.json", "the reference orbit (no perturber) the search started from"),
@@ -202,6 +228,9 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
         ("population/search/", "the joint study: summary.json, bodies.csv, posterior and search products"),
     ];
     for (name, what) in list {
+        if joint.is_none() && name.starts_with("population/") {
+            continue;
+        }
         println!("  {name:<38} {what}");
     }
     println!(
@@ -215,8 +244,11 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
 /// bodies together through `latens infer` with a directory of files (a
 /// coarser grid than the command's default, to keep the demo short).
 /// Returns the joint verdict and the check against the truth.
-fn joint_section(out: &Path) -> Result<(String, Option<String>), CliError> {
-    let scenario = parse(POPULATION, "scenarios/population.toml (built in)").map_err(CliError::failed)?;
+fn joint_section(out: &Path, seed: Option<u64>) -> Result<(String, Option<String>), CliError> {
+    let mut scenario = parse(POPULATION, "scenarios/population.toml (built in)").map_err(CliError::failed)?;
+    if let Some(seed) = seed {
+        scenario.survey.seed = seed;
+    }
     let dir = out.join("population");
     let sim = super::simulate::simulate(&scenario, "scenarios/population.toml", &dir)?;
     let bodies = scenario.all_bodies();

@@ -402,6 +402,8 @@ fn draw_zoom<DB: DrawingBackend>(
     let ra_spacing = ra_step_deg(spacing / dc.to_radians().cos().max(0.05));
     let reach = 3.0 * h / dc.to_radians().cos().max(0.05);
     let mut ra = ((rc - reach) / ra_spacing).floor() * ra_spacing;
+    // Near a pole the RA lines meet: a label only where no other is close.
+    let mut placed: Vec<(f64, f64)> = Vec::new();
     while ra <= rc + reach {
         let pts: Vec<(f64, f64)> = (0..=60)
             .filter_map(|k| {
@@ -412,9 +414,14 @@ fn draw_zoom<DB: DrawingBackend>(
             .filter(|p| p.0.abs() <= h && p.1.abs() <= h)
             .collect();
         if pts.len() > 1 {
-            let label_at = inward(pts[0]);
+            // At the end away from the nearer pole, where the lines spread.
+            let end = if dc >= 0.0 { pts[0] } else { pts[pts.len() - 1] };
+            let label_at = inward(end);
             chart.draw_series(LineSeries::new(pts, grid.stroke_width(1))).map_err(e)?;
-            chart.draw_series([Text::new(ra_hm(ra), label_at, grid_font.clone())]).map_err(e)?;
+            if placed.iter().all(|p| (p.0 - label_at.0).hypot(p.1 - label_at.1) > 0.12 * h) {
+                placed.push(label_at);
+                chart.draw_series([Text::new(ra_hm(ra), label_at, grid_font.clone())]).map_err(e)?;
+            }
         }
         ra += ra_spacing;
     }
