@@ -387,6 +387,57 @@ fn ades_psv_is_read_like_the_csv() {
 }
 
 #[test]
+fn ades_xml_is_read_like_the_csv() {
+    // tests/data/ades/optical.xml: the same four observations in the ADES
+    // XML form (written to the published ADES description), with a radar
+    // observation that is not a position.
+    let case = Case::new("ades-xml");
+    let xml_path = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("tests/data/ades/optical.xml");
+    let sites = latens::io::observations::SiteTable::new();
+    let csv = case.file("obs.csv", format!("{HEADER}{}\n", good_rows()).as_bytes());
+    let from_csv = latens::io::observations::read_observations(&csv, &sites, 3).unwrap();
+    let from_xml = latens::io::observations::read_observations(&xml_path, &sites, 3).unwrap();
+    assert_eq!(from_xml.len(), 4);
+    for (a, b) in from_xml.iter().zip(&from_csv) {
+        assert_eq!(
+            (a.epoch, a.ra_rad, a.dec_rad, a.sigma_ra_arcsec, a.sigma_dec_arcsec, &a.site),
+            (b.epoch, b.ra_rad, b.dec_rad, b.sigma_ra_arcsec, b.sigma_dec_arcsec, &b.site)
+        );
+    }
+    // Each observation is located at its <optical> element's line.
+    assert!(from_xml[0].source.ends_with("optical.xml:24"), "{}", from_xml[0].source);
+    // The tracklet names the body; the radar observation gets a note.
+    let bodies = latens::io::observations::read_bodies(&xml_path, &sites, 3).unwrap();
+    assert_eq!(bodies.len(), 1);
+    assert_eq!(bodies[0].0.as_deref(), Some("T0001"));
+    let notes = latens::io::observations::column_notes(&xml_path);
+    assert!(notes.len() == 1 && notes[0].contains("1 observation(s)") && notes[0].contains("radar"), "{notes:?}");
+    // A bad value, a missing element, another root and broken XML: named
+    // with the file and line.
+    let good = std::fs::read_to_string(&xml_path).unwrap();
+    for (name, text, needles) in [
+        (
+            "ra.xml",
+            good.replacen("<ra>52.30</ra>", "<ra>52.3x</ra>", 1),
+            vec!["ra.xml:37", "field `ra`", "not a number"],
+        ),
+        ("gone.xml", good.replacen("<rmsDec>0.1</rmsDec>", "", 1), vec!["gone.xml:24", "rmsDec", "missing"]),
+        ("root.xml", good.replace("ades", "records"), vec!["root.xml", "format not recognised", "<ades>"]),
+        ("broken.xml", good.replacen("</optical>", "</opticl>", 1), vec!["broken.xml:36", "not well-formed XML"]),
+    ] {
+        let path = case.file(name, text.as_bytes());
+        let err = latens::io::observations::read_observations(&path, &sites, 3).unwrap_err().to_string();
+        for n in needles {
+            assert!(err.contains(n), "{name}: `{n}` not in: {err}");
+        }
+    }
+    // Through the command: the same fit as from the CSV.
+    let (code, err) = case.run(&xml_path, &["--known", "none"]);
+    assert_ne!(code, Some(2), "refused: {err}");
+    assert!(err.contains("radar"), "{err}");
+}
+
+#[test]
 fn bad_scenarios_and_bad_infer_options_name_what_is_wrong() {
     // A scenario with a misspelt key, and one with an impossible value:
     // exit 2, the file and the key named, nothing written.

@@ -259,7 +259,7 @@ fn a_joint_study_names_the_body_and_file_of_bad_input() {
     std::fs::create_dir_all(&empty).unwrap();
     let o = latens().args(["infer", "--obs"]).arg(&empty).output().unwrap();
     assert_eq!(o.status.code(), Some(2));
-    assert!(String::from_utf8_lossy(&o.stderr).contains("no .csv or .psv"));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("no .csv, .psv or .xml"));
     // Commands for one body say so.
     let o = latens().args(["residuals", "--obs"]).arg(&a).arg("--obs").arg(&b).output().unwrap();
     assert_eq!(o.status.code(), Some(2));

@@ -74,7 +74,7 @@ pub enum Command {
             A grid of perturber hypotheses (directions x distances x orbit orientations x speeds) is \
             scored through a linearised kernel with the mass profiled; null simulations of the same \
             search on noise alone give the false-alarm probability (the look-elsewhere effect \
-            included), and a detection needs it below 0.0027. The best solution is refined on the \
+            included), and a detection needs it below --fap-level (0.0027, 3 sigma). The best solution is refined on the \
             full model; the perturber's posterior is sampled (tempered ensemble MCMC) and weighed \
             against the alternatives; for a detection, the sky map, the 50% and 90% credible regions \
             and their modes say where to look. Several --obs (or a directory) search several bodies \
@@ -229,13 +229,14 @@ pub enum SensitivityCommand {
 /// What every fitting command reads: observations, sites, force model, ephemeris.
 #[derive(Debug, Clone, clap::Args)]
 pub struct InputArgs {
-    /// Observations: Latens CSV or IAU ADES PSV (see docs/formats.md).
+    /// Observations: Latens CSV or IAU ADES (PSV or XML; see docs/formats.md).
     /// `infer` takes several tracked bodies that share one perturber:
-    /// repeat --obs, or give a directory holding one file per body (.csv
-    /// or .psv); each body is named after its file.
+    /// repeat --obs, or give a directory holding one file per body (.csv,
+    /// .psv or .xml); each body is named after its file.
     #[arg(long, value_name = "FILE|DIR", required = true)]
     pub obs: Vec<PathBuf>,
-    /// Observing sites: CSV with name, lon_deg, lat_deg, height_m.
+    /// Observing sites: CSV with name, lon_deg, lat_deg, height_m (or name, lon_deg,
+    /// rho_cos_phi, rho_sin_phi: geocentric parallax constants).
     #[arg(long, value_name = "FILE")]
     pub sites: Option<PathBuf>,
     /// Planets in the model, comma-separated, or `none` for a two-body orbit.
@@ -258,7 +259,7 @@ pub struct InputArgs {
 
 impl InputArgs {
     /// The observation files: each --obs, directories expanded to their
-    /// .csv and .psv files in name order.
+    /// .csv, .psv and .xml files in name order.
     pub fn obs_files(&self) -> Result<Vec<PathBuf>, String> {
         let mut out = Vec::new();
         for p in &self.obs {
@@ -269,12 +270,12 @@ impl InputArgs {
                     .filter(|f| {
                         f.is_file()
                             && f.extension()
-                                .is_some_and(|x| x.eq_ignore_ascii_case("csv") || x.eq_ignore_ascii_case("psv"))
+                                .is_some_and(|x| ["csv", "psv", "xml"].iter().any(|e| x.eq_ignore_ascii_case(e)))
                     })
                     .collect();
                 files.sort();
                 if files.is_empty() {
-                    return Err(format!("--obs {}: the directory holds no .csv or .psv file", p.display()));
+                    return Err(format!("--obs {}: the directory holds no .csv, .psv or .xml file", p.display()));
                 }
                 out.extend(files);
             } else {

@@ -223,6 +223,21 @@ const CSV_OPTIONAL_COLUMNS: [&str; 3] = ["site", "corr", CSV_DESIGNATION];
 pub fn column_notes(path: &Path) -> Vec<String> {
     let Ok(text) = read_text(path) else { return Vec::new() };
     let file = path.display().to_string();
+    if text.trim_start().starts_with('<') {
+        // ADES XML: observations that are not optical positions.
+        let Ok(doc) = roxmltree::Document::parse(&text) else { return Vec::new() };
+        let others = doc
+            .descendants()
+            .filter(|n| n.is_element() && matches!(n.tag_name().name(), "radar" | "offset" | "occultation"))
+            .count();
+        return if others > 0 {
+            vec![format!(
+                "{file}: {others} observation(s) that are not optical positions (radar, offset, occultation) are left out"
+            )]
+        } else {
+            Vec::new()
+        };
+    }
     let Ok(table) = Table::parse(&text, &file, ',') else { return Vec::new() };
     if table.columns.iter().any(|c| c.contains('|')) {
         return Vec::new();
@@ -299,18 +314,13 @@ pub type BodyObservations = (Option<String>, Vec<Observation>);
 pub fn read_bodies(path: &Path, sites: &SiteTable, min_count: usize) -> Result<Vec<BodyObservations>, InputError> {
     let file = path.display().to_string();
     let text = read_text(path)?;
-    let ades = text
-        .lines()
-        .map(str::trim)
-        .find(|l| !l.is_empty() && !l.starts_with('#') && !l.starts_with('!'))
-        .is_some_and(|h| h.contains('|'));
-    let table = Table::parse(&text, &file, if ades { '|' } else { ',' })?;
+    let (table, ades) = table_of(&text, &file)?;
     let designation = |row: &Row| -> Option<String> {
         let names: &[&str] = if ades { &ADES_DESIGNATIONS } else { &[CSV_DESIGNATION] };
         names.iter().filter_map(|n| row.optional_text(n)).find(|t| !t.is_empty()).map(str::to_string)
     };
     let mut order: Vec<String> = Vec::new();
-    let mut line_body: HashMap<usize, usize> = HashMap::new();
+    let mut body_of_row: Vec<Option<usize>> = Vec::with_capacity(table.rows.len());
     let mut unnamed: Option<usize> = None;
     for row in &table.rows {
         match designation(row) {
@@ -319,13 +329,16 @@ pub fn read_bodies(path: &Path, sites: &SiteTable, min_count: usize) -> Result<V
                     order.push(d.clone());
                     order.len() - 1
                 });
-                line_body.insert(row.line, k);
+                body_of_row.push(Some(k));
             }
-            None => unnamed = unnamed.or(Some(row.line)),
+            None => {
+                unnamed = unnamed.or(Some(row.line));
+                body_of_row.push(None);
+            }
         }
     }
     if order.is_empty() {
-        return Ok(vec![(None, read_table_text(&text, &file, sites, min_count, true)?)]);
+        return Ok(vec![(None, observations_from_table(&table, ades, sites, min_count, true)?)]);
     }
     if let Some(line) = unnamed {
         let field = if ades { ADES_DESIGNATIONS.join("/") } else { CSV_DESIGNATION.to_string() };
@@ -336,23 +349,22 @@ pub fn read_bodies(path: &Path, sites: &SiteTable, min_count: usize) -> Result<V
             message: "this row names no body while other rows do: every row of a file with several bodies needs its designation".into(),
         });
     }
-    // Each body read from the file with the other bodies' rows blanked, so
-    // that every message keeps the file's own line numbers.
-    let lines: Vec<&str> = text.split('\n').collect();
+    // Each body read from its own rows, with the file's line numbers.
     order
         .iter()
         .enumerate()
         .map(|(k, name)| {
-            let own: String = lines
-                .iter()
-                .enumerate()
-                .map(|(i, l)| match line_body.get(&(i + 1)) {
-                    Some(&b) if b != k => "",
-                    _ => l,
-                })
-                .collect::<Vec<&str>>()
-                .join("\n");
-            let list = read_table_text(&own, &file, sites, min_count, true).map_err(|mut e| {
+            let own = Table {
+                rows: table
+                    .rows
+                    .iter()
+                    .zip(&body_of_row)
+                    .filter(|(_, b)| **b == Some(k))
+                    .map(|(r, _)| r.clone())
+                    .collect(),
+                ..table.clone()
+            };
+            let list = observations_from_table(&own, ades, sites, min_count, true).map_err(|mut e| {
                 if e.line == 0 {
                     e.message = format!("body `{name}`: {}", e.message);
                 }
@@ -363,8 +375,6 @@ pub fn read_bodies(path: &Path, sites: &SiteTable, min_count: usize) -> Result<V
         .collect()
 }
 
-/// Observations as Latens CSV text (what `simulate` writes): epochs as
-/// given, RA and Dec to 1e-9 degree (4 microarcsec), sigmas and sites.
 pub fn observations_csv(observations: &[Observation]) -> String {
     use std::fmt::Write as _;
     let mut csv = String::from("epoch_utc,ra_deg,dec_deg,sigma_ra_arcsec,sigma_dec_arcsec,site\n");
@@ -408,18 +418,37 @@ fn read_table_text(
     min_count: usize,
     positions: bool,
 ) -> Result<Vec<Observation>, InputError> {
-    let file = file.to_string();
+    let (table, ades) = table_of(text, file)?;
+    observations_from_table(&table, ades, sites, min_count, positions)
+}
+
+/// The table an observation file holds, and whether it is ADES (PSV or
+/// XML): ADES XML when the text starts with `<`, ADES PSV when the header
+/// has `|` separators, Latens CSV otherwise.
+fn table_of(text: &str, file: &str) -> Result<(Table, bool), InputError> {
+    if text.trim_start().starts_with('<') {
+        return Ok((Table::from_ades_xml(text, file)?, true));
+    }
     let header = text.lines().map(str::trim).find(|l| !l.is_empty() && !l.starts_with('#') && !l.starts_with('!'));
     let Some(header) = header else {
         return Err(InputError {
-            file,
+            file: file.into(),
             line: 0,
             field: None,
             message: "the file has no header and no observations".into(),
         });
     };
     let ades = header.contains('|');
-    let table = Table::parse(text, &file, if ades { '|' } else { ',' })?;
+    Ok((Table::parse(text, file, if ades { '|' } else { ',' })?, ades))
+}
+
+fn observations_from_table(
+    table: &Table,
+    ades: bool,
+    sites: &SiteTable,
+    min_count: usize,
+    positions: bool,
+) -> Result<Vec<Observation>, InputError> {
     let names = if ades {
         // ADES defines many more fields (permID, mode, mag, ...): they are
         // allowed and ignored.
@@ -565,6 +594,7 @@ fn read_text(path: &Path) -> Result<String, InputError> {
 }
 
 /// A delimited text table with a header; comment and blank lines skipped.
+#[derive(Clone)]
 struct Table {
     file: String,
     columns: Vec<String>,
@@ -572,6 +602,7 @@ struct Table {
     rows: Vec<Row>,
 }
 
+#[derive(Clone)]
 struct Row {
     file: String,
     line: usize,
@@ -579,6 +610,67 @@ struct Row {
 }
 
 impl Table {
+    /// Reads the optical observations of an IAU ADES XML file (root
+    /// `<ades>`, `<obsBlock>`s holding `<obsData>` with `<optical>`
+    /// elements whose child elements are the fields, named as in PSV):
+    /// one row per `<optical>`, located at its line. Other observation
+    /// kinds (`<radar>`, `<offset>`, `<occultation>`) are not positions and
+    /// are left out ([`column_notes`] counts them). The XML is parsed by
+    /// roxmltree.
+    fn from_ades_xml(text: &str, file: &str) -> Result<Table, InputError> {
+        let doc = roxmltree::Document::parse(text).map_err(|e| InputError {
+            file: file.into(),
+            line: e.pos().row as usize,
+            field: None,
+            message: format!("not well-formed XML: {e}"),
+        })?;
+        let root = doc.root_element();
+        if root.tag_name().name() != "ades" {
+            return Err(InputError {
+                file: file.into(),
+                line: doc.text_pos_at(root.range().start).row as usize,
+                field: None,
+                message: format!(
+                    "format not recognised (expected ADES XML with an <ades> root element, found <{}>)",
+                    root.tag_name().name()
+                ),
+            });
+        }
+        let mut columns: Vec<String> = Vec::new();
+        let mut rows = Vec::new();
+        for optical in root.descendants().filter(|n| n.is_element() && n.tag_name().name() == "optical") {
+            let line = doc.text_pos_at(optical.range().start).row as usize;
+            let mut values = HashMap::new();
+            for field in optical.children().filter(|n| n.is_element()) {
+                let name = field.tag_name().name().to_string();
+                let value = field.text().unwrap_or("").trim().to_string();
+                if values.insert(name.clone(), value).is_some() {
+                    return Err(InputError {
+                        file: file.into(),
+                        line: doc.text_pos_at(field.range().start).row as usize,
+                        field: Some(name),
+                        message: "element given twice in one <optical>".into(),
+                    });
+                }
+                if !columns.contains(&name) {
+                    columns.push(name);
+                }
+            }
+            rows.push(Row { file: file.into(), line, values });
+        }
+        let header_line = rows.first().map_or(1, |r| r.line);
+        // Every row has every column the format requires; a missing element
+        // is named at its own <optical>.
+        for required in ["obsTime", "ra", "dec", "rmsRA", "rmsDec"] {
+            if let Some(r) = rows.iter().find(|r| !r.values.contains_key(required))
+                && columns.iter().any(|c| c == required)
+            {
+                return Err(r.error(required, "element missing from this <optical>"));
+            }
+        }
+        Ok(Table { file: file.into(), columns, header_line, rows })
+    }
+
     /// Reads the table with the csv crate (quoted fields unquoted, `#`
     /// comment lines and blank lines skipped, every field trimmed); in ADES
     /// PSV, `!` lines (header keywords) are skipped too. Line numbers are
