@@ -564,3 +564,25 @@ fn a_demo_scenario_that_cannot_be_read_is_refused_before_any_work() {
         assert!(case.nothing_written(), "something was written");
     }
 }
+
+#[test]
+fn charts_are_written_in_the_formats_asked_for() {
+    for (formats, expected) in [("svg", vec!["residuals.svg"]), ("none", vec![]), ("png", vec!["residuals.png"])] {
+        let case = Case::new(&format!("charts-{formats}"));
+        let obs = case.file("obs.csv", format!("{HEADER}{}\n", good_rows()).as_bytes());
+        let (code, err) = case.run(&obs, &["--known", "none", "--charts", formats]);
+        assert_eq!(code, Some(0), "{formats}: {err}");
+        let mut charts: Vec<String> = std::fs::read_dir(case.dir.join("out"))
+            .unwrap()
+            .filter_map(|e| e.ok().map(|e| e.file_name().to_string_lossy().into_owned()))
+            .filter(|n| n.ends_with(".png") || n.ends_with(".svg"))
+            .collect();
+        charts.sort();
+        assert_eq!(charts, expected, "{formats}");
+    }
+    let case = Case::new("charts-bad");
+    let obs = case.file("obs.csv", format!("{HEADER}{}\n", good_rows()).as_bytes());
+    let (code, err) = case.run(&obs, &["--charts", "gif"]);
+    assert_eq!(code, Some(2), "{err}");
+    assert!(err.contains("gif"), "{err}");
+}

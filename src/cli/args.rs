@@ -14,6 +14,22 @@ pub struct Args {
     /// Worker threads for the parallel stages (default: one per core).
     #[arg(long, value_name = "N", global = true)]
     pub threads: Option<usize>,
+    /// Which chart files to write: png, svg, both or none.
+    #[arg(long, value_enum, value_name = "FORMATS", global = true, default_value = "both")]
+    pub charts: ChartFormats,
+}
+
+/// The chart files the commands write (`--charts`).
+#[derive(Clone, Copy, Debug, PartialEq, Eq, clap::ValueEnum)]
+pub enum ChartFormats {
+    /// PNG and SVG.
+    Both,
+    /// PNG only (raster, for reading).
+    Png,
+    /// SVG only (vector, for papers).
+    Svg,
+    /// No charts (tables and JSON only, for scripts).
+    None,
 }
 
 const TOP_ABOUT: &str = "\

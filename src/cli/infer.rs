@@ -686,10 +686,13 @@ fn write_outputs(
         title: format!("Best perturber solution: chi2 = {:.1} (delta {best_delta:.1})", null.chi2 - best_delta),
         subtitle: "O-C with the best perturber's linear signal and its orbit correction removed".into(),
     };
-    let svg = ResidualChart::draw_pair_svg(&left, &right).map_err(|e| anyhow::anyhow!("drawing the charts: {e}"))?;
     std::fs::create_dir_all(out).with_context(|| format!("creating {}", out.display()))?;
-    super::write_png(&out.join("residuals_null_vs_best.png"), |tmp| ResidualChart::draw_pair_png(&left, &right, tmp))?;
-    write_atomically(&out.join("residuals_null_vs_best.svg"), svg.as_bytes())?;
+    super::write_chart(
+        out,
+        "residuals_null_vs_best",
+        |tmp| ResidualChart::draw_pair_png(&left, &right, tmp),
+        || ResidualChart::draw_pair_svg(&left, &right),
+    )?;
     write_atomically(&out.join("null_fit.json"), null_products.fit_json.as_bytes())?;
     write_atomically(&out.join("summary.json"), json.as_bytes())?;
     Ok(())

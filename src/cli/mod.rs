@@ -76,7 +76,31 @@ where
     }
 }
 
+/// The chart files this run writes (`--charts`), set once at the start.
+static CHART_FORMATS: std::sync::OnceLock<args::ChartFormats> = std::sync::OnceLock::new();
+
+/// Writes a chart as `stem.png` (through a temporary file) and `stem.svg`
+/// in `dir`, as `--charts` asks; each appears whole or not at all.
+pub(crate) fn write_chart(
+    dir: &std::path::Path,
+    stem: &str,
+    png: impl FnOnce(&std::path::Path) -> Result<(), String>,
+    svg: impl FnOnce() -> Result<String, String>,
+) -> anyhow::Result<()> {
+    use args::ChartFormats::{Both, Png, Svg};
+    let formats = CHART_FORMATS.get().copied().unwrap_or(Both);
+    if matches!(formats, Both | Png) {
+        write_png(&dir.join(format!("{stem}.png")), png)?;
+    }
+    if matches!(formats, Both | Svg) {
+        let text = svg().map_err(|e| anyhow::anyhow!("drawing {stem}: {e}"))?;
+        latens::io::write_atomically(&dir.join(format!("{stem}.svg")), text.as_bytes())?;
+    }
+    Ok(())
+}
+
 fn run(args: Args) -> Result<(), CliError> {
+    let _ = CHART_FORMATS.set(args.charts);
     if let Some(n) = args.threads {
         if n == 0 {
             return Err(CliError::bad_input(anyhow::anyhow!("--threads must be at least 1")));

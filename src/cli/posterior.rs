@@ -272,9 +272,5 @@ where
     P: FnOnce(&latens_charts::PngArea<'_>) -> Result<(), String>,
     S: FnOnce(&latens_charts::SvgArea<'_>) -> Result<(), String>,
 {
-    let fail = |e: String| CliError::failed(anyhow::anyhow!("drawing {stem}: {e}"));
-    super::write_png(&out.join(format!("{stem}.png")), |tmp| render_png(tmp, size, png)).map_err(CliError::failed)?;
-    let text = render_svg(size, svg).map_err(fail)?;
-    write_atomically(&out.join(format!("{stem}.svg")), text.as_bytes()).map_err(CliError::failed)?;
-    Ok(())
+    super::write_chart(out, stem, |tmp| render_png(tmp, size, png), || render_svg(size, svg)).map_err(CliError::failed)
 }

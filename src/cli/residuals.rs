@@ -345,10 +345,8 @@ impl ResidualProducts {
             title: self.chart_title.clone(),
             subtitle: self.chart_subtitle.clone(),
         };
-        let svg = chart.draw_svg().map_err(|e| anyhow::anyhow!("drawing the residual chart: {e}"))?;
         std::fs::create_dir_all(out).with_context(|| format!("creating {}", out.display()))?;
-        super::write_png(&out.join("residuals.png"), |tmp| chart.draw_png(tmp))?;
-        write_atomically(&out.join("residuals.svg"), svg.as_bytes())?;
+        super::write_chart(out, "residuals", |tmp| chart.draw_png(tmp), || chart.draw_svg())?;
         write_atomically(&out.join("residuals.csv"), self.residuals_csv.as_bytes())?;
         write_atomically(&out.join("fit.json"), self.fit_json.as_bytes())?;
         Ok(())

@@ -185,10 +185,8 @@ fn write_products(out: &Path, csv: &str, cells: &[Cell], meta: &SensitivityFile)
         exclusion_95: keep(&c95),
         title: format!("Detection probability (threshold delta chi2 {threshold:.1})"),
     };
-    let svg = chart.draw_svg().map_err(|e| anyhow::anyhow!("drawing the map: {e}"))?;
     std::fs::create_dir_all(out).with_context(|| format!("creating {}", out.display()))?;
-    super::write_png(&out.join("sensitivity.png"), |tmp| chart.draw_png(tmp))?;
-    write_atomically(&out.join("sensitivity.svg"), svg.as_bytes())?;
+    super::write_chart(out, "sensitivity", |tmp| chart.draw_png(tmp), || chart.draw_svg())?;
     write_atomically(&out.join("sensitivity.csv"), csv.as_bytes())?;
     write_atomically(&out.join("sensitivity.json"), json_text(meta).as_bytes())?;
     println!("Mass detected with 50% / 90% probability, and excluded at 95% if nothing is detected:");
