@@ -502,5 +502,23 @@ fn a_starting_orbit_and_exclusions_by_site() {
         .collect();
     assert!(!in_2016.is_empty());
     assert_eq!(left, in_2016.iter().map(String::as_str).collect::<Vec<_>>());
+    // infer --start-orbit: the same search as from Gauss's method.
+    let null_chi2 = |start: bool, name: &str| {
+        let mut c = latens();
+        c.args(["infer", "--obs"]).arg(&obs).arg("--sites").arg(&sites);
+        if start {
+            c.arg("--start-orbit").arg(dir.join("residuals").join("fit.json"));
+        }
+        let out = c
+            .args(["--nulls", "400", "--directions", "12", "--distances", "2", "--no-posterior", "--out"])
+            .arg(out_dir.join(name))
+            .output()
+            .unwrap();
+        assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+        let v = read(out_dir.join(name).join("summary.json"));
+        (v["null_model"]["chi2"].as_f64().unwrap(), v["detection"]["delta_chi2"].as_f64().unwrap())
+    };
+    let (a, b) = (null_chi2(false, "gauss"), null_chi2(true, "start"));
+    assert!((a.0 - b.0).abs() < 1e-6 * a.0 && (a.1 - b.1).abs() < 1e-4 * a.1, "{a:?} vs {b:?}");
     let _ = std::fs::remove_dir_all(&out_dir);
 }

@@ -76,6 +76,7 @@ fn detection_settings() -> DetectionSettings {
             ..SearchSettings::default()
         },
         reject_sigma: Some(10.0),
+        start_orbit: None,
     }
 }
 

@@ -389,6 +389,11 @@ pub struct InferArgs {
     /// file, comma-separated (ranges as A-B).
     #[arg(long, value_name = "LINES")]
     pub exclude: Option<String>,
+    /// Start the reference fit from this orbit (a fit.json of `latens
+    /// residuals`) instead of Gauss's method: for arcs where no preliminary
+    /// orbit is found. One tracked body only.
+    #[arg(long, value_name = "FIT_JSON")]
+    pub start_orbit: Option<PathBuf>,
     /// Observations to leave out by date: FROM..TO (UTC dates or times,
     /// inclusive); repeat for several ranges.
     #[arg(long, value_name = "FROM..TO")]

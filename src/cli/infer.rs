@@ -203,6 +203,13 @@ impl InferPlan {
             )));
         }
         let truth = args.truth.as_deref().map(Truth::read).transpose()?;
+        if obs.len() > 1 && args.start_orbit.is_some() {
+            return Err(CliError::bad_input(anyhow::anyhow!(
+                "--start-orbit applies to one tracked body; --obs gives {} files for a joint study",
+                obs.len()
+            )));
+        }
+        let start_orbit = args.start_orbit.as_deref().map(super::sensitivity::read_orbit).transpose()?;
         Ok(InferPlan {
             truth,
             obs,
@@ -214,7 +221,7 @@ impl InferPlan {
             excluded_lines,
             excluded_dates,
             excluded_sites,
-            detection: DetectionSettings { search, reject_sigma },
+            detection: DetectionSettings { search, reject_sigma, start_orbit },
             posterior,
             out,
         })
@@ -245,9 +252,13 @@ pub(super) fn run(args: &InferArgs) -> Result<(), CliError> {
         }
     }
     if arcs.len() > 1 {
-        if !plan.excluded_lines.is_empty() {
+        if !plan.excluded_lines.is_empty()
+            || !plan.excluded_dates.is_empty()
+            || !plan.excluded_sites.is_empty()
+            || plan.detection.start_orbit.is_some()
+        {
             return Err(CliError::bad_input(anyhow::anyhow!(
-                "--exclude applies to one tracked body; the observations hold {} bodies",
+                "--exclude, --exclude-dates, --exclude-site and --start-orbit apply to one tracked body; the observations hold {} bodies",
                 arcs.len()
             )));
         }

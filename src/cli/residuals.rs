@@ -17,7 +17,6 @@ use latens::reference::{ReferenceFit, ReferenceSettings, fit_reference_orbit};
 use latens::stats::chi_square_survival;
 use latens::time::{parse_epoch, tdb_days_from_j2000};
 use latens::units::JULIAN_YEAR_DAYS;
-use latens::vec3::Vec3;
 use latens_charts::residual_chart::ResidualChart;
 
 /// The force model and the tracked body from `--known`, `--tracked-mass`
@@ -92,22 +91,10 @@ pub(super) fn run(args: &ResidualsArgs) -> Result<(), CliError> {
     };
     let epoch = epoch.or(start.map(|(t, _)| t));
     let start_state = match start {
-        Some((t, s)) => {
-            let at = epoch.unwrap_or(t);
-            let mu = model.tracked_two_body_gm_au3_per_day2();
-            let (r, v) = latens::dynamics::kepler::propagate(
-                mu,
-                Vec3::new(s[0], s[1], s[2]),
-                Vec3::new(s[3], s[4], s[5]),
-                at - t,
-            )
-            .map_err(|e| {
-                CliError::bad_input(anyhow::anyhow!(
-                    "--start-orbit: cannot carry the orbit to the reference epoch: {e}"
-                ))
-            })?;
-            Some([r.x, r.y, r.z, v.x, v.y, v.z])
-        }
+        Some((t, s)) => Some(
+            latens::reference::carried_start(&model, t, s, epoch.unwrap_or(t))
+                .map_err(|e| CliError::bad_input(anyhow::anyhow!("--start-orbit: {e}")))?,
+        ),
         None => None,
     };
     let settings = ReferenceSettings { epoch_tdb_days: epoch, ..ReferenceSettings::default() };

@@ -708,7 +708,7 @@ fn detection_settings(
         n_distances: distances,
         ..SearchSettings::default()
     };
-    Ok(DetectionSettings { search, reject_sigma })
+    Ok(DetectionSettings { search, reject_sigma, start_orbit: None })
 }
 
 /// A joint search of several tracked bodies for one shared perturber: the

@@ -70,6 +70,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
             ..SearchSettings::default()
         },
         reject_sigma: Some(10.0),
+        start_orbit: None,
     };
     let detection = detect(&study, &settings, &Log)?;
     println!("Verdict: {}", detection.verdict_text());

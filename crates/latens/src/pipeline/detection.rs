@@ -37,6 +37,9 @@ pub struct DetectionSettings {
     /// Observations beyond this many sigma against the best model are set
     /// aside and the search runs again; `None` sets nothing aside.
     pub reject_sigma: Option<f64>,
+    /// A starting orbit for the reference fit, instead of Gauss's method:
+    /// (epoch, TDB days after J2000; heliocentric ICRF state, au and au/day).
+    pub start_orbit: Option<(f64, [f64; 6])>,
 }
 
 /// The model outliers were judged against.
@@ -200,7 +203,8 @@ pub fn detect(
     let arc = study.single()?;
     let (model, ephemeris) = (&arc.model, study.ephemeris.as_ref());
     let search_settings = &settings.search;
-    let mut stage = search(arc.observations.clone(), &arc.sites, model, ephemeris, search_settings, observer)?;
+    let start = settings.start_orbit;
+    let mut stage = search(arc.observations.clone(), &arc.sites, model, ephemeris, search_settings, start, observer)?;
     // Outliers are judged against the best model: with the perturber when
     // one is detected (in the strong regime the largest residuals are the
     // signal), else against the null model. Those set aside, the whole
@@ -224,7 +228,7 @@ pub fn detect(
             ));
             let rest: Vec<Observation> =
                 stage.observations.iter().zip(&keep).filter(|(_, k)| **k).map(|(o, _)| o.clone()).collect();
-            stage = search(rest, &arc.sites, model, ephemeris, search_settings, observer)?;
+            stage = search(rest, &arc.sites, model, ephemeris, search_settings, start, observer)?;
         }
     }
     let Searched { observations, null, geometry, kernel, result, refined, centred, basins, rounds, .. } = stage;
@@ -443,11 +447,19 @@ fn search(
     model: &ForceModel,
     ephemeris: &dyn Ephemeris,
     settings: &SearchSettings,
+    start: Option<(f64, [f64; 6])>,
     observer: &dyn Observer,
 ) -> Result<Searched, PipelineError> {
     use crate::perturber::refine::{recentre, refine};
     observer.note(&format!("Fitting the reference orbit (no perturber) to {} observations...", observations.len()));
-    let null = fit_reference_orbit(&observations, sites, model, ephemeris, &INFER_REFERENCE_SETTINGS, None)
+    let start = match start {
+        Some((t, state)) => Some(
+            crate::reference::carried_start(model, t, state, crate::reference::default_epoch(&observations))
+                .map_err(PipelineError::failed("reference fit"))?,
+        ),
+        None => None,
+    };
+    let null = fit_reference_orbit(&observations, sites, model, ephemeris, &INFER_REFERENCE_SETTINGS, start)
         .map_err(PipelineError::failed("reference fit"))?;
     let geometry =
         observing_geometry(&observations, sites, ephemeris).map_err(PipelineError::failed("observing geometry"))?;

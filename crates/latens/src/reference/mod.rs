@@ -193,6 +193,28 @@ pub fn observing_geometry(
         .collect()
 }
 
+/// A starting state given at `from_tdb_days` carried on a two-body orbit
+/// about `force_model`'s central mass to `to_tdb_days`: a start for a fit,
+/// which refines it under the full model.
+pub fn carried_start(
+    force_model: &ForceModel,
+    from_tdb_days: f64,
+    state: [f64; 6],
+    to_tdb_days: f64,
+) -> Result<[f64; 6], ReferenceError> {
+    let mu = force_model.tracked_two_body_gm_au3_per_day2();
+    let (r, v) = kepler::propagate(
+        mu,
+        Vec3::new(state[0], state[1], state[2]),
+        Vec3::new(state[3], state[4], state[5]),
+        to_tdb_days - from_tdb_days,
+    )
+    .map_err(|e| {
+        ReferenceError::NoPreliminaryOrbit(format!("the starting orbit cannot be carried to the epoch: {e}"))
+    })?;
+    Ok([r.x, r.y, r.z, v.x, v.y, v.z])
+}
+
 /// The default reference epoch: the whole TDB day (noon, JD x.0) nearest the
 /// middle of the observed arc.
 pub fn default_epoch(observations: &[Observation]) -> f64 {
@@ -425,7 +447,7 @@ fn preliminary_orbit(
     }
     if scored.is_empty() {
         return Err(ReferenceError::NoPreliminaryOrbit(format!(
-            "{} triplets of observations gave no usable solution; give a starting orbit (`latens residuals --start-orbit FIT_JSON`)",
+            "{} triplets of observations gave no usable solution; give a starting orbit (`--start-orbit FIT_JSON` on the command line)",
             triplets.len()
         )));
     }
