@@ -3,6 +3,7 @@ checkpoint is saved, and resuming from it gives the samples of a run that
 was never interrupted."""
 
 import _thread
+import signal
 
 import numpy as np
 import pytest
@@ -23,8 +24,16 @@ def test_interrupt_saves_a_checkpoint_that_resumes_to_the_same_samples(py_run, t
             asked.append(done)
             _thread.interrupt_main()
 
-    with pytest.raises(KeyboardInterrupt) as e:
-        latens.posterior(study, det, checkpoint=checkpoint, progress=ctrl_c_midway, **SAMPLER)
+    # Python raises KeyboardInterrupt on SIGINT only when its own handler is
+    # installed; a job started in the background (as CI may be) inherits
+    # SIGINT ignored, and interrupt_main() then does nothing. An interactive
+    # session has the handler, so install it for this test.
+    before = signal.signal(signal.SIGINT, signal.default_int_handler)
+    try:
+        with pytest.raises(KeyboardInterrupt) as e:
+            latens.posterior(study, det, checkpoint=checkpoint, progress=ctrl_c_midway, **SAMPLER)
+    finally:
+        signal.signal(signal.SIGINT, before)
     assert asked, "the sampler reported progress"
     assert checkpoint.exists()
     assert any("resume=True" in n for n in getattr(e.value, "__notes__", []))
