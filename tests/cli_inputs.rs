@@ -29,6 +29,12 @@ impl Case {
 
     /// Runs `latens residuals` and returns (exit code, stderr).
     fn run(&self, obs: &Path, extra: &[&str]) -> (Option<i32>, String) {
+        let (code, _, err) = self.run_with_output(obs, extra);
+        (code, err)
+    }
+
+    /// `latens residuals`: exit code, standard output, standard error.
+    fn run_with_output(&self, obs: &Path, extra: &[&str]) -> (Option<i32>, String, String) {
         let out = latens()
             .arg("residuals")
             .arg("--obs")
@@ -38,7 +44,11 @@ impl Case {
             .args(extra)
             .output()
             .unwrap();
-        (out.status.code(), String::from_utf8_lossy(&out.stderr).into_owned())
+        (
+            out.status.code(),
+            String::from_utf8_lossy(&out.stdout).into_owned(),
+            String::from_utf8_lossy(&out.stderr).into_owned(),
+        )
     }
 
     fn nothing_written(&self) -> bool {
@@ -570,7 +580,7 @@ fn charts_are_written_in_the_formats_asked_for() {
     for (formats, expected) in [("svg", vec!["residuals.svg"]), ("none", vec![]), ("png", vec!["residuals.png"])] {
         let case = Case::new(&format!("charts-{formats}"));
         let obs = case.file("obs.csv", format!("{HEADER}{}\n", good_rows()).as_bytes());
-        let (code, err) = case.run(&obs, &["--known", "none", "--charts", formats]);
+        let (code, listed, err) = case.run_with_output(&obs, &["--known", "none", "--charts", formats]);
         assert_eq!(code, Some(0), "{formats}: {err}");
         let mut charts: Vec<String> = std::fs::read_dir(case.dir.join("out"))
             .unwrap()
@@ -579,6 +589,10 @@ fn charts_are_written_in_the_formats_asked_for() {
             .collect();
         charts.sort();
         assert_eq!(charts, expected, "{formats}");
+        // The list of files written names exactly the charts written.
+        let named: Vec<&str> =
+            listed.split_whitespace().filter(|w| w.ends_with(".png") || w.ends_with(".svg")).collect();
+        assert_eq!(named, expected, "{formats}: {listed}");
     }
     let case = Case::new("charts-bad");
     let obs = case.file("obs.csv", format!("{HEADER}{}\n", good_rows()).as_bytes());

@@ -205,29 +205,57 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
     }
     println!("  The demo took {:.0} s.", started.elapsed().as_secs_f64());
     println!("Files written in {}:", out.display());
+    let chart = |stem: &str| super::chart_name(&format!("search/{stem}"));
     let list = [
-        ("observations.csv, sites.csv", "the simulated survey (input for every other command)"),
-        ("truth.json", "what the simulation put in: the true orbits and the hidden planet's true place"),
-        ("track.csv", "the tracked body's monthly geocentric track and the planets' shift of it"),
-        ("residuals/", "fit.json, residuals.csv, residuals.png/.svg: the reference orbit and its O-C"),
-        ("search/summary.json", "the verdict, the posterior summary, the evidence and the alternative explanations"),
-        ("search/null_fit.json", "the reference orbit (no perturber) the search started from"),
-        ("search/residuals_null_vs_best.png", "O-C without and with the best perturber"),
-        ("search/posterior.csv, posterior_*.png", "posterior samples; corner and trace charts"),
-        ("search/search_chart.png", "where to point, the whole sky and a zoom on each mode"),
-        (
-            "search/skymap.fits, region50/90.*",
-            "the sky map and the credible regions as MOCs (for Aladin, mocpy, astropy)",
-        ),
-        ("search/modes.csv", "each sky mode: centre, area, distance, brightness, motion, when observable"),
-        (
-            "sensitivity/",
-            "sensitivity.csv, .json, .png/.svg: what this survey could have revealed, and with which settings",
-        ),
-        ("population/bodies/", "the twelve bodies' simulated observations, one file each"),
-        ("population/search/", "the joint study: summary.json, bodies.csv, posterior and search products"),
+        Some((
+            "observations.csv, sites.csv".to_string(),
+            "the simulated survey (input for every other command)".to_string(),
+        )),
+        Some((
+            "truth.json".into(),
+            "what the simulation put in: the true orbits and the hidden planet's true place".into(),
+        )),
+        Some(("track.csv".into(), "the tracked body's monthly geocentric track and the planets' shift of it".into())),
+        Some((
+            "residuals/".into(),
+            format!("fit.json, residuals.csv{}: the reference orbit and its O-C", super::and_chart("residuals")),
+        )),
+        Some((
+            "search/summary.json".into(),
+            "the verdict, the posterior summary, the evidence and the alternative explanations".into(),
+        )),
+        Some(("search/null_fit.json".into(), "the reference orbit (no perturber) the search started from".into())),
+        chart("residuals_null_vs_best").map(|n| (n, "O-C without and with the best perturber".into())),
+        Some((
+            "search/posterior.csv".into(),
+            format!(
+                "posterior samples{}",
+                if super::chart_name("x").is_some() { "; corner and trace charts (posterior_*)" } else { "" }
+            ),
+        )),
+        chart("search_chart").map(|n| (n, "where to point, the whole sky and a zoom on each mode".into())),
+        Some((
+            "search/skymap.fits, region50/90.*".into(),
+            "the sky map and the credible regions as MOCs (for Aladin, mocpy, astropy)".into(),
+        )),
+        Some((
+            "search/modes.csv".into(),
+            "each sky mode: centre, area, distance, brightness, motion, when observable".into(),
+        )),
+        Some((
+            "sensitivity/".into(),
+            format!(
+                "sensitivity.csv, .json{}: what this survey could have revealed, and with which settings",
+                super::and_chart("sensitivity")
+            ),
+        )),
+        Some(("population/bodies/".into(), "the twelve bodies' simulated observations, one file each".into())),
+        Some((
+            "population/search/".into(),
+            "the joint study: summary.json, bodies.csv, posterior and search products".into(),
+        )),
     ];
-    for (name, what) in list {
+    for (name, what) in list.into_iter().flatten() {
         if joint.is_none() && name.starts_with("population/") {
             continue;
         }

@@ -473,9 +473,10 @@ pub(super) fn execute(plan: &InferPlan) -> Result<InferSummary, CliError> {
     print!("{text}");
     println!("Files written in {}:", out.display());
     println!("  summary.json         the verdict, the best solution and every basin, the settings and the seed");
-    println!(
-        "  residuals_null_vs_best.png (.svg)  O-C of the null model and of the best perturber solution, side by side"
-    );
+    println!("  null_fit.json        the reference orbit (no perturber) the search started from");
+    if let Some(name) = super::chart_name("residuals_null_vs_best") {
+        println!("  {name}  O-C of the null model and of the best perturber solution, side by side");
+    }
     for (name, what) in stage.files.iter().chain(search_products.iter().flat_map(|s| s.files.iter())) {
         println!("  {name:<20} {what}");
     }

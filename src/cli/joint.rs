@@ -65,7 +65,7 @@ pub(super) fn execute(plan: &InferPlan, arcs: Vec<TrackedArc>) -> Result<(), Cli
         _ => None,
     };
     if let Some(s) = &sky {
-        files.extend(s.files.iter().copied());
+        files.extend(s.files.iter().cloned());
     }
 
     let search = SearchGeometry::new(study.wide.as_ref(), study.search_epoch_tdb_days)?;
@@ -246,7 +246,7 @@ fn report(
     out: &Path,
     posterior_text: &str,
     sky_text: &str,
-    files: &[(&'static str, &'static str)],
+    files: &[(String, &'static str)],
 ) -> String {
     let mut text = String::new();
     let _ = writeln!(
@@ -302,7 +302,11 @@ fn report(
         text,
         "  bodies.csv      one row per body: observations, null chi-square, share of the signal, the body searched alone"
     );
-    let _ = writeln!(text, "  bodies/NAME/    each body's reference fit (fit.json, residuals.csv, residuals.png)");
+    let _ = writeln!(
+        text,
+        "  bodies/NAME/    each body's reference fit (fit.json, residuals.csv{})",
+        super::and_chart("residuals")
+    );
     for (name, what) in files {
         let _ = writeln!(text, "  {name:<15} {what}");
     }

@@ -99,6 +99,24 @@ pub(crate) fn write_chart(
     Ok(())
 }
 
+/// How a chart `stem` appears in a list of files written, as `--charts`
+/// asks ("stem.png (.svg)", "stem.png", "stem.svg"), or `None` when no
+/// chart is written.
+pub(crate) fn chart_name(stem: &str) -> Option<String> {
+    use args::ChartFormats::{Both, None as Neither, Png, Svg};
+    match CHART_FORMATS.get().copied().unwrap_or(Both) {
+        Both => Some(format!("{stem}.png (.svg)")),
+        Png => Some(format!("{stem}.png")),
+        Svg => Some(format!("{stem}.svg")),
+        Neither => None,
+    }
+}
+
+/// `chart_name(stem)` after ", " for a list of files, or nothing.
+pub(crate) fn and_chart(stem: &str) -> String {
+    chart_name(stem).map(|n| format!(", {n}")).unwrap_or_default()
+}
+
 fn run(args: Args) -> Result<(), CliError> {
     let _ = CHART_FORMATS.set(args.charts);
     if let Some(n) = args.threads {

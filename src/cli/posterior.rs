@@ -48,7 +48,7 @@ pub(super) fn settings(
 pub(super) struct Outcome {
     pub result: PosteriorOutcome,
     pub text: String,
-    pub files: Vec<(&'static str, &'static str)>,
+    pub files: Vec<(String, &'static str)>,
 }
 
 impl Outcome {
@@ -78,7 +78,7 @@ pub(super) fn run(
 }
 
 /// The files a stage wrote: name and what it holds.
-pub(super) type Files = Vec<(&'static str, &'static str)>;
+pub(super) type Files = Vec<(String, &'static str)>;
 
 /// Runs the posterior of a joint study, writes its files into `out` and
 /// says what it found (the bodies' own orbit corrections included).
@@ -133,20 +133,21 @@ fn write_run(
     out: &Path,
     run: &PosteriorRun,
     text: &mut String,
-    files: &mut Vec<(&'static str, &'static str)>,
+    files: &mut Vec<(String, &'static str)>,
     truth: Option<&Truth>,
 ) -> Result<(), CliError> {
     std::fs::create_dir_all(out).map_err(|e| CliError::failed(anyhow::anyhow!("creating {}: {e}", out.display())))?;
     write_posterior_files(out, run, truth)?;
     files.push((
-        "posterior.csv",
+        "posterior.csv".into(),
         "equally weighted posterior samples: mass, elements, sky position at the search epoch",
     ));
-    files.push(("posterior_corner.png (.svg)", "the posterior of mass, distance and sky position, pair by pair"));
-    files.push((
-        "posterior_trace.png (.svg)",
-        "walkers' paths through the sampler's steps (a convergence check by eye)",
-    ));
+    if let Some(name) = super::chart_name("posterior_corner") {
+        files.push((name, "the posterior of mass, distance and sky position, pair by pair"));
+    }
+    if let Some(name) = super::chart_name("posterior_trace") {
+        files.push((name, "walkers' paths through the sampler's steps (a convergence check by eye)"));
+    }
     let pf = &run.summary;
     let _ = writeln!(
         text,

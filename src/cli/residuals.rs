@@ -109,7 +109,9 @@ pub(super) fn run(args: &ResidualsArgs) -> Result<(), CliError> {
         "  fit.json         the orbit (heliocentric ecliptic J2000 elements, ICRF state, covariance) and fit statistics"
     );
     println!("  residuals.csv    O-C of every observation: RA*cos(Dec) and Dec in arcsec, sigmas, used or set aside");
-    println!("  residuals.png    the O-C chart (and residuals.svg, the same as vector graphics)");
+    if let Some(name) = super::chart_name("residuals") {
+        println!("  {name:<16} the O-C chart");
+    }
     Ok(())
 }
 

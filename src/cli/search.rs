@@ -23,7 +23,7 @@ pub(super) struct Outcome {
     pub sky: SkyFile,
     pub text: String,
     pub warnings: Vec<String>,
-    pub files: Vec<(&'static str, &'static str)>,
+    pub files: Vec<(String, &'static str)>,
 }
 
 /// Computes the sky products of a posterior, writes them into `out` and
@@ -121,12 +121,17 @@ pub(super) fn run_at(
         sky,
         text,
         warnings,
-        files: vec![
-            ("skymap.fits", "the posterior's multi-order HEALPix map (UNIQ, PROBDENSITY per sr)"),
-            ("region50/90.fits (.json)", "the 50% and 90% credible regions as IVOA MOCs"),
-            ("modes.csv", "each sky mode: centre, areas, distances, brightness, motion, when observable"),
-            ("search_chart.png (.svg)", "where to point: the whole sky and a zoom on each major mode"),
-        ],
+        files: [
+            ("skymap.fits".to_string(), "the posterior's multi-order HEALPix map (UNIQ, PROBDENSITY per sr)"),
+            ("region50/90.fits (.json)".into(), "the 50% and 90% credible regions as IVOA MOCs"),
+            ("modes.csv".into(), "each sky mode: centre, areas, distances, brightness, motion, when observable"),
+        ]
+        .into_iter()
+        .chain(
+            super::chart_name("search_chart")
+                .map(|name| (name, "where to point: the whole sky and a zoom on each major mode")),
+        )
+        .collect(),
     })
 }
 

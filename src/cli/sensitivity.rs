@@ -195,8 +195,9 @@ fn write_products(out: &Path, csv: &str, cells: &[Cell], meta: &SensitivityFile)
         println!("  at {d:7.1} au: {} / {} / {}", f(m50), f(m90), f(m95));
     }
     println!(
-        "Files written in {}: sensitivity.csv (the map), sensitivity.json (its settings and threshold), sensitivity.png, sensitivity.svg",
-        out.display()
+        "Files written in {}: sensitivity.csv (the map), sensitivity.json (its settings and threshold){}",
+        out.display(),
+        super::and_chart("sensitivity")
     );
     Ok(())
 }
