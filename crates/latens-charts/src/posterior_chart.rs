@@ -4,6 +4,7 @@
 
 use plotters::coord::Shift;
 use plotters::prelude::*;
+use plotters::style::text_anchor::{HPos, Pos, VPos};
 
 use crate::axes::{TickedAxis, round_label};
 
@@ -346,8 +347,20 @@ impl TraceChart {
     pub fn draw<DB: DrawingBackend>(&self, root: &DrawingArea<DB, Shift>) -> Result<(), String> {
         let e = |x: DrawingAreaErrorKind<DB::ErrorType>| x.to_string();
         root.fill(&WHITE).map_err(e)?;
-        let (top, body) = root.split_vertically(60);
-        top.titled(&self.title, ("sans-serif", 26).into_font().color(&INK)).map_err(e)?;
+        // The key sits under the title, above the panels: nothing is drawn
+        // over the walkers' paths.
+        let (top, body) = root.split_vertically(84);
+        let (title, key) = top.split_vertically(50);
+        title.titled(&self.title, ("sans-serif", 26).into_font().color(&INK)).map_err(e)?;
+        let (kw, kh) = key.dim_in_pixel();
+        let key_text = "shaded: burn-in (discarded; its first quarter may leave the axes)";
+        let key_font = ("sans-serif", 16).into_font().color(&INK);
+        let text_w = key.estimate_text_size(key_text, &key_font).map(|s| s.0 as i32).unwrap_or(480);
+        let x0 = (kw as i32 - text_w - 32) / 2;
+        let y0 = kh as i32 / 2;
+        key.draw(&Rectangle::new([(x0, y0 - 8), (x0 + 22, y0 + 8)], RGBColor(230, 230, 230).filled())).map_err(e)?;
+        key.draw(&Rectangle::new([(x0, y0 - 8), (x0 + 22, y0 + 8)], INK.stroke_width(1))).map_err(e)?;
+        key.draw(&Text::new(key_text, (x0 + 32, y0), key_font.pos(Pos::new(HPos::Left, VPos::Center)))).map_err(e)?;
         let areas = body.split_evenly((self.panels.len().max(1), 1));
         for ((label, walkers), area) in self.panels.iter().zip(&areas) {
             // Every point after the start-up inside the axes: a walker
@@ -381,9 +394,7 @@ impl TraceChart {
                     [(0.0, yr.0), (self.burn_in as f64, yr.1)],
                     RGBColor(230, 230, 230).filled(),
                 )])
-                .map_err(e)?
-                .label("burn-in (discarded; its first quarter may leave the axes)")
-                .legend(|(x, y)| Rectangle::new([(x - 10, y - 6), (x + 10, y + 6)], RGBColor(230, 230, 230).filled()));
+                .map_err(e)?;
             for (k, w) in walkers.iter().enumerate() {
                 // One colour per walker (a qualitative palette), so paths
                 // that cross stay told apart.
@@ -391,14 +402,6 @@ impl TraceChart {
                 let clipped = w.iter().map(|p| (p.0, p.1.clamp(yr.0, yr.1)));
                 chart.draw_series(LineSeries::new(clipped, colour.stroke_width(1))).map_err(e)?;
             }
-            chart
-                .configure_series_labels()
-                .position(SeriesLabelPosition::UpperRight)
-                .label_font(("sans-serif", 15).into_font().color(&INK))
-                .background_style(WHITE.mix(0.9))
-                .border_style(INK)
-                .draw()
-                .map_err(e)?;
         }
         Ok(())
     }
@@ -407,6 +410,48 @@ impl TraceChart {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// Nothing covers the walkers' paths: a walker running along the top
+    /// of each panel shows its colour across the whole width, the upper
+    /// right included (where a key used to sit).
+    #[test]
+    fn the_trace_key_sits_above_the_panels_not_over_the_paths() {
+        let steps = 400;
+        let path = |level: f64| (0..steps).map(|i| (i as f64, level)).collect::<Vec<_>>();
+        let walkers: WalkerPaths = vec![path(1.0), path(0.0), path(0.5)];
+        let chart = TraceChart {
+            title: "trace".into(),
+            burn_in: 100,
+            panels: vec![("a".into(), walkers.clone()), ("b".into(), walkers)],
+        };
+        crate::register_fonts();
+        let (w, h) = TraceChart::SIZE;
+        let mut buf = vec![0u8; (w * h * 3) as usize];
+        {
+            let root = BitMapBackend::with_buffer(&mut buf, (w, h)).into_drawing_area();
+            chart.draw(&root).unwrap();
+            root.present().unwrap();
+        }
+        let top = WALKER_COLOURS[0];
+        let is_top = |x: u32, y: u32| {
+            let i = ((y * w + x) * 3) as usize;
+            (buf[i], buf[i + 1], buf[i + 2]) == (top.0, top.1, top.2)
+        };
+        // Columns (every 10 px across the right 40% of the image) in which
+        // the top walker's colour appears in the upper panel.
+        let upper = 84..(84 + (h - 84) / 2);
+        let columns: Vec<u32> = (w * 6 / 10..w - 40).step_by(10).collect();
+        let seen = columns.iter().filter(|&&x| upper.clone().any(|y| is_top(x, y))).count();
+        assert!(seen + 2 >= columns.len(), "the top walker shows in {seen} of {} columns", columns.len());
+        // The key strip under the title holds no walker.
+        assert!((50..84).all(|y| (0..w).all(|x| !is_top(x, y))));
+        if let Some(dir) = std::env::var_os("LATENS_CHART_DIR") {
+            let path = std::path::Path::new(&dir).join("trace_test.png");
+            let root = BitMapBackend::new(&path, (w, h)).into_drawing_area();
+            chart.draw(&root).unwrap();
+            root.present().unwrap();
+        }
+    }
 
     #[test]
     fn the_credible_region_holds_its_level_and_is_outlined_closed() {
