@@ -600,3 +600,44 @@ fn charts_are_written_in_the_formats_asked_for() {
     assert_eq!(code, Some(2), "{err}");
     assert!(err.contains("gif"), "{err}");
 }
+
+/// `--quiet`: the files are the result; standard output stays empty and
+/// notes (an unused column) are not printed, but a warning still reaches
+/// standard error.
+#[test]
+fn quiet_runs_print_nothing_but_warnings() {
+    let case = Case::new("quiet");
+    let text =
+        HEADER.replace('\n', ",seeing\n") + &good_rows().lines().map(|l| format!("{l},1.2\n")).collect::<String>();
+    let obs = case.file("obs.csv", text.as_bytes());
+    let (code, out, err) = case.run_with_output(&obs, &["--known", "none", "--quiet"]);
+    assert_eq!(code, Some(0), "{err}");
+    assert!(out.is_empty(), "{out}");
+    // (This tiny arc draws a warning from the fit; warnings stay.)
+    assert!(err.lines().all(|l| l.starts_with("warning: ")), "{err}");
+    assert!(case.dir.join("out").join("fit.json").is_file());
+    // The same file without --quiet: the report, and the note on the column.
+    let (code, out, err) = case.run_with_output(&obs, &["--known", "none"]);
+    assert_eq!(code, Some(0), "{err}");
+    assert!(out.contains("Files written") && err.contains("note: ") && err.contains("seeing"), "{out} {err}");
+    // A date far from the arc is warned about under --quiet too.
+    let far = case.file("far.csv", format!("{HEADER}{}\n", good_rows()).replace("2020-02-10", "1650-02-10").as_bytes());
+    let mut child = latens()
+        .args(["residuals", "--quiet", "--known", "none", "--obs"])
+        .arg(&far)
+        .arg("--out")
+        .arg(case.dir.join("far"))
+        .stderr(std::process::Stdio::piped())
+        .stdout(std::process::Stdio::null())
+        .spawn()
+        .unwrap();
+    let mut first = String::new();
+    {
+        use std::io::BufRead as _;
+        let mut reader = std::io::BufReader::new(child.stderr.take().unwrap());
+        let _ = reader.read_line(&mut first);
+    }
+    let _ = child.kill();
+    let _ = child.wait();
+    assert!(first.starts_with("warning: ") && first.contains("1650-02-10"), "{first}");
+}

@@ -11,7 +11,7 @@
 //! `infer` draws regions, and the mass rates over every run.
 //!
 //! Two signal strengths (mass ranges of the prior) and two observation
-//! densities, on an invented distant body; 26 injections each (104 in all).
+//! densities, on an invented distant body; 20 injections each (80 in all).
 //! A second check: on four of the data sets, two grid sizes and two sampler
 //! lengths give 90% regions that each contain the other's best place.
 
@@ -65,7 +65,7 @@ const CAMPAIGNS: [Campaign; 4] = [
     Campaign { name: "strong-dense", mass_earth: (20.0, 200.0), visit_every_days: 10.0 },
 ];
 
-const PER_CAMPAIGN: usize = 26;
+const PER_CAMPAIGN: usize = 20;
 
 /// A perturber drawn from `infer`'s prior: mass log-uniform, position
 /// isotropic with log-uniform heliocentric distance, velocity from the
@@ -313,8 +313,8 @@ fn infer_regions_and_mass_intervals_cover_injected_perturbers() {
     if std::env::var_os("LATENS_KEEP_INJECTIONS").is_none() {
         let _ = std::fs::remove_dir_all(&root);
     }
-    assert!(all.runs >= 100);
-    assert!(all.detected >= 40, "too few detections to calibrate the regions: {all:?}");
+    assert!(all.runs >= 80);
+    assert!(all.detected >= 30, "too few detections to calibrate the regions: {all:?}");
     assert!(within_2sd(all.mass50, all.runs, 0.5), "mass 50%: {all:?}");
     assert!(within_2sd(all.mass90, all.runs, 0.9), "mass 90%: {all:?}");
     assert!(within_2sd(all.sky50, all.detected, 0.5), "sky 50%: {all:?}");

@@ -17,6 +17,11 @@ pub struct Args {
     /// Which chart files to write: png, svg, both or none.
     #[arg(long, value_enum, value_name = "FORMATS", global = true, default_value = "both")]
     pub charts: ChartFormats,
+    /// No report on standard output, no progress or notes: the files are
+    /// the result (for scripts). Warnings still go to standard error, and
+    /// errors as always.
+    #[arg(long, short = 'q', global = true)]
+    pub quiet: bool,
 }
 
 /// The chart files the commands write (`--charts`).

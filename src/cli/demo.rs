@@ -47,12 +47,12 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
     }
     let (demo_seed, own_scenario) = (args.seed, args.scenario.is_some());
     let out = &args.out;
-    println!("Latens demo: {} (invented)", scenario.name);
-    println!("  {}", scenario.description);
+    say!("Latens demo: {} (invented)", scenario.name);
+    say!("  {}", scenario.description);
 
     // 1. The survey's observations, from the full model with noise.
     let sim = super::simulate::simulate(&scenario, &scenario_name, out)?;
-    println!(
+    say!(
         "1. Simulated {} observations of {} by the {} ({}\" noise, seed {}), {} to {}; the giant planets move {} by up to {:.0}\" from a two-body orbit",
         sim.observations.len(),
         scenario.tracked.name,
@@ -65,9 +65,10 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
         sim.largest_planetary_shift_arcsec
     );
     if let Some(p) = &scenario.perturber {
-        println!(
+        say!(
             "   The positions include the pull of the hidden planet {} ({} Earth masses), which nothing downstream is told about.",
-            p.name, p.mass_earth
+            p.name,
+            p.mass_earth
         );
     }
 
@@ -92,17 +93,17 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
     let residual_dir = out.join("residuals");
     products.write(&residual_dir).map_err(CliError::failed)?;
     let recovered = Vec3::new(fit.state[0], fit.state[1], fit.state[2]);
-    println!("2. Fitted the reference orbit from the observations alone ({}):", fit.start);
+    say!("2. Fitted the reference orbit from the observations alone ({}):", fit.start);
     for line in products.summary.lines() {
-        println!("   {line}");
+        say!("   {line}");
     }
-    println!(
+    say!(
         "   the fitted position is {:.0} km from the true one",
         (recovered - sim.initial.tracked_position_au).norm() * latens::units::AU_KM
     );
 
     // 3. The search, the verdict, the posterior and the search products.
-    println!("3. Searching the residuals for an unseen perturber (latens infer):");
+    say!("3. Searching the residuals for an unseen perturber (latens infer):");
     let input = InputArgs {
         obs: vec![sim.observations_path.clone()],
         sites: Some(sim.sites_path.clone()),
@@ -143,7 +144,7 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
     let truth_check = truth_against_region(&sim.truth, &search_dir);
 
     // 4. What the survey could have revealed at all.
-    println!("4. Mapping which perturber masses at which distances this survey could reveal (latens sensitivity):");
+    say!("4. Mapping which perturber masses at which distances this survey could reveal (latens sensitivity):");
     let sensitivity_dir = out.join("sensitivity");
     super::sensitivity::run(&SensitivityArgs {
         command: None,
@@ -164,25 +165,25 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
     })?;
 
     // 5. Many bodies, one perturber.
-    println!(
+    say!(
         "5. Twelve other bodies, one hidden planet that hardly any of them shows alone (latens infer with a directory of files):"
     );
     let joint = if !own_scenario {
         Some(joint_section(out, demo_seed)?)
     } else {
-        println!("   (left out: the joint section runs on the built-in population only)");
+        say!("   (left out: the joint section runs on the built-in population only)");
         None
     };
 
     // In plain words.
-    println!();
-    println!("In short:");
-    println!("  {}", summary.detection.verdict);
+    say!();
+    say!("In short:");
+    say!("  {}", summary.detection.verdict);
     if let Some(ex) = &summary.explanation {
-        println!("  {}", ex.text);
+        say!("  {}", ex.text);
     }
     if let (Some(p), Some(sky)) = (&summary.posterior, &summary.sky) {
-        println!(
+        say!(
             "  The perturber weighs {:.1} Earth masses (68%: {:.1} to {:.1}) and is {:.0} au away (68%: {:.0} to {:.0}); to find it, search {:.0} square degrees (90%) on {}.",
             p.mass_earth.median,
             p.mass_earth.lo68,
@@ -195,16 +196,16 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
         );
     }
     if let Some(text) = &truth_check {
-        println!("  {text}");
+        say!("  {text}");
     }
     if let Some(joint) = &joint {
-        println!("  Twelve bodies together: {}", joint.0);
+        say!("  Twelve bodies together: {}", joint.0);
         if let Some(text) = &joint.1 {
-            println!("  {text}");
+            say!("  {text}");
         }
     }
-    println!("  The demo took {:.0} s.", started.elapsed().as_secs_f64());
-    println!("Files written in {}:", out.display());
+    say!("  The demo took {:.0} s.", started.elapsed().as_secs_f64());
+    say!("Files written in {}:", out.display());
     let chart = |stem: &str| super::chart_name(&format!("search/{stem}"));
     let list = [
         Some((
@@ -259,12 +260,9 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
         if joint.is_none() && name.starts_with("population/") {
             continue;
         }
-        println!("  {name:<38} {what}");
+        say!("  {name:<38} {what}");
     }
-    println!(
-        "Next: `latens predict --from {}` gives each mode's place date by date for scheduling.",
-        search_dir.display()
-    );
+    say!("Next: `latens predict --from {}` gives each mode's place date by date for scheduling.", search_dir.display());
     Ok(())
 }
 
@@ -280,7 +278,7 @@ fn joint_section(out: &Path, seed: Option<u64>) -> Result<(String, Option<String
     let dir = out.join("population");
     let sim = super::simulate::simulate(&scenario, "scenarios/population.toml", &dir)?;
     let bodies = scenario.all_bodies();
-    println!(
+    say!(
         "   Simulated {} bodies ({} observations together) with the pull of {}, {} Earth masses at {} au",
         bodies.len(),
         sim.truth.n_observations,

@@ -109,12 +109,12 @@ impl Truth {
         let t = truth?;
         let at = parse_epoch(&t.epoch_utc).map(tdb_days_from_j2000).ok()?;
         if (at - search_epoch_tdb_days).abs() * 1440.0 > 1.0 {
-            eprintln!(
-                "note: --truth gives {}'s place at {}, not at the search epoch {}: it is not marked",
+            super::note(&format!(
+                "--truth gives {}'s place at {}, not at the search epoch {}: it is not marked",
                 t.name,
                 t.epoch_utc,
                 utc_iso_from_epoch(epoch_from_tdb_days(search_epoch_tdb_days))
-            );
+            ));
             return None;
         }
         Some(t.clone())
@@ -243,7 +243,7 @@ pub(super) fn run(args: &InferArgs) -> Result<(), CliError> {
         .collect::<Vec<_>>();
     for file in &plan.obs {
         for note in latens::io::observations::column_notes(file) {
-            eprintln!("note: {note}");
+            super::note(&note);
         }
     }
     for arc in &arcs {
@@ -470,15 +470,15 @@ pub(super) fn execute(plan: &InferPlan) -> Result<InferSummary, CliError> {
     for w in &warnings {
         let _ = writeln!(text, "warning: {w}");
     }
-    print!("{text}");
-    println!("Files written in {}:", out.display());
-    println!("  summary.json         the verdict, the best solution and every basin, the settings and the seed");
-    println!("  null_fit.json        the reference orbit (no perturber) the search started from");
+    super::report(&text);
+    say!("Files written in {}:", out.display());
+    say!("  summary.json         the verdict, the best solution and every basin, the settings and the seed");
+    say!("  null_fit.json        the reference orbit (no perturber) the search started from");
     if let Some(name) = super::chart_name("residuals_null_vs_best") {
-        println!("  {name}  O-C of the null model and of the best perturber solution, side by side");
+        say!("  {name}  O-C of the null model and of the best perturber solution, side by side");
     }
     for (name, what) in stage.files.iter().chain(search_products.iter().flat_map(|s| s.files.iter())) {
-        println!("  {name:<20} {what}");
+        say!("  {name:<20} {what}");
     }
     Ok(summary)
 }

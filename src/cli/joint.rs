@@ -149,7 +149,7 @@ pub(super) fn execute(plan: &InferPlan, arcs: Vec<TrackedArc>) -> Result<(), Cli
     };
     write_outputs(out, &summary, &found, &study).map_err(CliError::failed)?;
     let sky_text = sky.as_ref().map_or("", |s| s.text.as_str());
-    print!("{}", report(&summary, out, &posterior_text, sky_text, &files));
+    super::report(&report(&summary, out, &posterior_text, sky_text, &files));
     Ok(())
 }
 

@@ -3,6 +3,17 @@
 //! Exit codes: 0 success; 1 the run failed; 2 the input or the arguments are
 //! wrong (nothing has been written).
 
+/// A line of the report on standard output (`println!` unless `--quiet`;
+/// see [`report`]).
+macro_rules! say {
+    () => {
+        $crate::cli::report("\n")
+    };
+    ($($t:tt)*) => {
+        $crate::cli::report(&format!("{}\n", format_args!($($t)*)))
+    };
+}
+
 mod args;
 mod demo;
 mod index;
@@ -76,6 +87,35 @@ where
     }
 }
 
+/// `--quiet`: no report on standard output, no progress bars or notes.
+static QUIET: std::sync::atomic::AtomicBool = std::sync::atomic::AtomicBool::new(false);
+
+pub(crate) fn quiet() -> bool {
+    QUIET.load(std::sync::atomic::Ordering::Relaxed)
+}
+
+/// Prints report text on standard output; under `--quiet` only its warning
+/// lines are printed, on standard error: a warning (the Sun near a search
+/// region, say) is never silenced.
+pub(crate) fn report(text: &str) {
+    if !quiet() {
+        print!("{text}");
+        return;
+    }
+    for line in text.lines().map(str::trim_start) {
+        if line.to_ascii_lowercase().starts_with("warning") {
+            eprintln!("{line}");
+        }
+    }
+}
+
+/// A note on standard error ("note: ..."), unless `--quiet`.
+pub(crate) fn note(text: &str) {
+    if !quiet() {
+        eprintln!("note: {text}");
+    }
+}
+
 /// The chart files this run writes (`--charts`), set once at the start.
 static CHART_FORMATS: std::sync::OnceLock<args::ChartFormats> = std::sync::OnceLock::new();
 
@@ -119,6 +159,7 @@ pub(crate) fn and_chart(stem: &str) -> String {
 
 fn run(args: Args) -> Result<(), CliError> {
     let _ = CHART_FORMATS.set(args.charts);
+    QUIET.store(args.quiet, std::sync::atomic::Ordering::Relaxed);
     if let Some(n) = args.threads {
         if n == 0 {
             return Err(CliError::bad_input(anyhow::anyhow!("--threads must be at least 1")));

@@ -152,7 +152,7 @@ pub(super) fn run(args: &PredictArgs) -> Result<(), CliError> {
     std::fs::create_dir_all(&out_dir)
         .map_err(|e| CliError::failed(anyhow::anyhow!("creating {}: {e}", out_dir.display())))?;
     write_atomically(&out_dir.join("predict.csv"), &bytes).map_err(CliError::failed)?;
-    println!(
+    say!(
         "Predicted {} mode(s) at {steps} dates from {} to {} ({} days apart)",
         n_modes,
         &utc_iso_from_epoch(epoch_from_tdb_days(start))[..10],
@@ -160,11 +160,11 @@ pub(super) fn run(args: &PredictArgs) -> Result<(), CliError> {
         args.step_days
     );
     if near_sun_rows > 0 {
-        println!(
+        say!(
             "warning: {near_sun_rows} predicted places lie within 45 deg of the Sun (near_sun = true): pointing a telescope or any optics near the Sun can blind and destroy eyes and instruments; such fields are observable only in twilight, if at all"
         );
     }
-    println!("Files written in {}:", out_dir.display());
-    println!("  predict.csv          per mode and date: centre, 1-sigma ellipse, V range, motion, solar elongation");
+    say!("Files written in {}:", out_dir.display());
+    say!("  predict.csv          per mode and date: centre, 1-sigma ellipse, V range, motion, solar elongation");
     Ok(())
 }

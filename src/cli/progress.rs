@@ -35,6 +35,9 @@ impl Bars {
 
 impl Observer for Bars {
     fn begin(&self, stage: Stage, total: u64) {
+        if super::quiet() {
+            return;
+        }
         let bar = indicatif::ProgressBar::new(total);
         let template = format!("{} {{bar:40}} {{pos}}/{{len}} {} ({{eta}} left)", stage.describe(), stage.unit());
         bar.set_style(
@@ -59,7 +62,9 @@ impl Observer for Bars {
     }
 
     fn note(&self, text: &str) {
-        eprintln!("{text}");
+        if !super::quiet() {
+            eprintln!("{text}");
+        }
     }
 
     fn stop_requested(&self) -> bool {

@@ -63,7 +63,7 @@ pub(super) fn read_inputs(obs: &Path, sites: Option<&PathBuf>) -> Result<(Vec<Ob
 /// warning: most often a typing error in the year).
 pub(super) fn tell_input_notes(file: &Path, observations: &[Observation]) {
     for note in latens::io::observations::column_notes(file) {
-        eprintln!("note: {note}");
+        super::note(&note);
     }
     for warning in latens::io::observations::date_outliers(observations) {
         eprintln!("warning: {warning}");
@@ -103,14 +103,14 @@ pub(super) fn run(args: &ResidualsArgs) -> Result<(), CliError> {
 
     let files = ResidualProducts::build(&fit, &observations, &model, ephemeris.description());
     files.write(&args.out).map_err(CliError::failed)?;
-    print!("{}", files.summary);
-    println!("Files written in {}:", args.out.display());
-    println!(
+    super::report(&files.summary);
+    say!("Files written in {}:", args.out.display());
+    say!(
         "  fit.json         the orbit (heliocentric ecliptic J2000 elements, ICRF state, covariance) and fit statistics"
     );
-    println!("  residuals.csv    O-C of every observation: RA*cos(Dec) and Dec in arcsec, sigmas, used or set aside");
+    say!("  residuals.csv    O-C of every observation: RA*cos(Dec) and Dec in arcsec, sigmas, used or set aside");
     if let Some(name) = super::chart_name("residuals") {
-        println!("  {name:<16} the O-C chart");
+        say!("  {name:<16} the O-C chart");
     }
     Ok(())
 }

@@ -122,13 +122,13 @@ pub(super) fn run(args: &SensitivityArgs) -> Result<(), CliError> {
             let path = args.out.join(format!("sensitivity.part-{k}-of-{n}.csv"));
             write_atomically(&path.with_extension("json"), json_text(&meta).as_bytes()).map_err(CliError::failed)?;
             write_atomically(&path, csv.as_bytes()).map_err(CliError::failed)?;
-            println!(
+            say!(
                 "Shard {k} of {n}: {} cells written to {} (settings in {})",
                 cells.len(),
                 path.display(),
                 path.with_extension("json").display()
             );
-            println!("Join the shards with: latens sensitivity merge DIR... --out DIR");
+            say!("Join the shards with: latens sensitivity merge DIR... --out DIR");
         }
         None => {
             write_products(&args.out, &csv, cells, &meta).map_err(CliError::failed)?;
@@ -189,12 +189,12 @@ fn write_products(out: &Path, csv: &str, cells: &[Cell], meta: &SensitivityFile)
     super::write_chart(out, "sensitivity", |tmp| chart.draw_png(tmp), || chart.draw_svg())?;
     write_atomically(&out.join("sensitivity.csv"), csv.as_bytes())?;
     write_atomically(&out.join("sensitivity.json"), json_text(meta).as_bytes())?;
-    println!("Mass detected with 50% / 90% probability, and excluded at 95% if nothing is detected:");
+    say!("Mass detected with 50% / 90% probability, and excluded at 95% if nothing is detected:");
     for ((d, m50), ((_, m90), (_, m95))) in c50.iter().zip(c90.iter().zip(&c95)).step_by((c50.len() / 8).max(1)) {
         let f = |m: &Option<f64>| m.map_or("beyond the grid".to_string(), |m| format!("{m:.3} Earth masses"));
-        println!("  at {d:7.1} au: {} / {} / {}", f(m50), f(m90), f(m95));
+        say!("  at {d:7.1} au: {} / {} / {}", f(m50), f(m90), f(m95));
     }
-    println!(
+    say!(
         "Files written in {}: sensitivity.csv (the map), sensitivity.json (its settings and threshold){}",
         out.display(),
         super::and_chart("sensitivity")

@@ -107,7 +107,7 @@ pub(super) fn run(args: &super::args::SimulateArgs) -> Result<(), CliError> {
     let scenario = read(&args.scenario).map_err(CliError::bad_input)?;
     let sim = simulate(&scenario, &args.scenario.display().to_string(), &args.out)?;
     let names: Vec<String> = scenario.all_bodies().into_iter().map(|b| b.name).collect();
-    println!(
+    say!(
         "Simulated {} observations of {} from {} ({}), seed {}",
         sim.truth.n_observations,
         names.join(", "),
@@ -116,25 +116,25 @@ pub(super) fn run(args: &super::args::SimulateArgs) -> Result<(), CliError> {
         scenario.survey.seed
     );
     match &sim.truth.perturber {
-        Some(p) => println!(
+        Some(p) => say!(
             "  with the hidden perturber {} ({} Earth masses); its true place is in truth.json",
             p.name,
             p.mass_earth.unwrap_or(0.0)
         ),
-        None => println!("  with no hidden perturber"),
+        None => say!("  with no hidden perturber"),
     }
-    println!("Files written in {}:", args.out.display());
-    println!(
+    say!("Files written in {}:", args.out.display());
+    say!(
         "  observations.csv     the simulated astrometry of {} (Latens CSV), input to residuals, infer, sensitivity",
         names[0]
     );
     if names.len() > 1 {
-        println!(
+        say!(
             "  bodies/              one such file per tracked body; `latens infer --obs DIR/bodies` searches them jointly"
         );
     }
-    println!("  sites.csv            the survey's sites");
-    println!("  truth.json           the true orbits, and the perturber's true place at the search epoch");
-    println!("  track.csv            the body's monthly geocentric track and the planets' shift of it");
+    say!("  sites.csv            the survey's sites");
+    say!("  truth.json           the true orbits, and the perturber's true place at the search epoch");
+    say!("  track.csv            the body's monthly geocentric track and the planets' shift of it");
     Ok(())
 }
