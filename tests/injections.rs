@@ -283,15 +283,22 @@ fn temp_root(name: &str) -> PathBuf {
 #[test]
 fn infer_regions_and_mass_intervals_cover_injected_perturbers() {
     let root = temp_root("injections");
-    // Two campaigns at a time on the 2 cores; each `infer` also uses rayon.
+    // Two runs at a time on the 2 cores (each `infer` also uses rayon),
+    // taken from one queue so that neither worker idles while the other
+    // still has a campaign of slow runs ahead.
     let jobs: Vec<(Campaign, usize)> = CAMPAIGNS.iter().flat_map(|c| (0..PER_CAMPAIGN).map(move |k| (*c, k))).collect();
+    let next = std::sync::atomic::AtomicUsize::new(0);
     let tallies: Vec<(Campaign, Tally)> = std::thread::scope(|s| {
-        let chunks: Vec<_> = jobs.chunks(jobs.len().div_ceil(2)).collect();
-        let handles: Vec<_> = chunks
-            .into_iter()
-            .map(|chunk| {
-                let root = &root;
-                s.spawn(move || chunk.iter().map(|(c, k)| (*c, run_one(root, c, *k))).collect::<Vec<_>>())
+        let handles: Vec<_> = (0..2)
+            .map(|_| {
+                let (root, jobs, next) = (&root, &jobs, &next);
+                s.spawn(move || {
+                    let mut done = Vec::new();
+                    while let Some((c, k)) = jobs.get(next.fetch_add(1, std::sync::atomic::Ordering::SeqCst)) {
+                        done.push((*c, run_one(root, c, *k)));
+                    }
+                    done
+                })
             })
             .collect();
         handles.into_iter().flat_map(|h| h.join().unwrap()).collect()
