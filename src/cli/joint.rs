@@ -12,6 +12,10 @@ use std::path::Path;
 use super::CliError;
 use super::infer::InferPlan;
 use super::residuals::{ResidualProducts, orbit_file};
+use latens_charts::residual_chart::ResidualOverview;
+
+/// Bodies drawn in the residual overview at most.
+const OVERVIEW_ROWS: usize = 24;
 use latens::dynamics::kepler::{OUTPUT_FRAME, OutputElements};
 use latens::io::results::{
     DetectionFile, JointBasinFile, JointBodyFile, JointSummaryFile, LeaveOneOutFile, SearchStatsFile,
@@ -232,11 +236,36 @@ fn write_outputs(out: &Path, summary: &JointSummaryFile, found: &JointDetection,
         );
     }
     write_atomically(&out.join("bodies.csv"), csv.as_bytes())?;
+    let mut products = Vec::new();
     for (b, arc) in found.bodies.iter().zip(&study.bodies) {
         let dir = out.join("bodies").join(dir_name(&b.name));
         std::fs::create_dir_all(&dir).map_err(|e| anyhow::anyhow!("creating {}: {e}", dir.display()))?;
-        ResidualProducts::build(&b.null, &b.observations, &arc.model, study.ephemeris.description()).write(&dir)?;
+        let p = ResidualProducts::build(&b.null, &b.observations, &arc.model, study.ephemeris.description());
+        p.write(&dir)?;
+        products.push((b.name.as_str(), p));
     }
+    // The overview: every body's O-C on one page; past OVERVIEW_ROWS
+    // bodies, those whose residuals fit worst (largest chi2/dof).
+    let n = products.len();
+    products.sort_by(|a, b| b.1.fit_stats.0.total_cmp(&a.1.fit_stats.0));
+    products.truncate(OVERVIEW_ROWS);
+    products.sort_by_key(|(name, _)| found.bodies.iter().position(|b| b.name == *name));
+    let overview = ResidualOverview {
+        title: format!("O-C of {n} bodies under the null model (no perturber)"),
+        subtitle: if n > OVERVIEW_ROWS {
+            format!("the {OVERVIEW_ROWS} of {n} bodies that fit worst (largest chi2/dof); every body in bodies/NAME/")
+        } else {
+            "each body's orbit fitted alone; one time axis, each row on its own scale".into()
+        },
+        rows: products
+            .iter()
+            .map(|(name, p)| {
+                let (c, ra, dec) = p.fit_stats;
+                (format!("{name}: chi2/dof {c:.2}, RMS {ra:.3}\" / {dec:.3}\""), p.chart())
+            })
+            .collect(),
+    };
+    super::write_chart(out, "residuals_overview", |tmp| overview.draw_png(tmp), || overview.draw_svg())?;
     Ok(())
 }
 
@@ -307,6 +336,9 @@ fn report(
         "  bodies/NAME/    each body's reference fit (fit.json, residuals.csv{})",
         super::and_chart("residuals")
     );
+    if let Some(name) = super::chart_name("residuals_overview") {
+        let _ = writeln!(text, "  {name}  every body's O-C on one page (the worst-fitting {OVERVIEW_ROWS} past that)");
+    }
     for (name, what) in files {
         let _ = writeln!(text, "  {name:<15} {what}");
     }

@@ -129,6 +129,9 @@ pub(crate) struct ResidualProducts {
     chart_used: Vec<bool>,
     chart_title: String,
     chart_subtitle: String,
+    /// chi2/dof, RMS in RA cos(Dec) and Dec (arcsec): a body's line in an
+    /// overview.
+    pub fit_stats: (f64, f64, f64),
 }
 
 /// A p-value for people: three significant digits, or a bound below the
@@ -319,12 +322,13 @@ impl ResidualProducts {
             chart_used: used,
             chart_title,
             chart_subtitle,
+            fit_stats: (chi2_per_dof, fit.rms_ra_arcsec, fit.rms_dec_arcsec),
         }
     }
 
-    /// Writes the files; each appears whole or not at all.
-    pub(crate) fn write(&self, out: &Path) -> anyhow::Result<()> {
-        let chart = ResidualChart {
+    /// The residual chart's data (for `residuals.png` and overviews).
+    pub(crate) fn chart(&self) -> ResidualChart<'_> {
+        ResidualChart {
             years: &self.chart_years,
             ra_arcsec: &self.chart_ra,
             dec_arcsec: &self.chart_dec,
@@ -333,7 +337,12 @@ impl ResidualProducts {
             used: &self.chart_used,
             title: self.chart_title.clone(),
             subtitle: self.chart_subtitle.clone(),
-        };
+        }
+    }
+
+    /// Writes the files; each appears whole or not at all.
+    pub(crate) fn write(&self, out: &Path) -> anyhow::Result<()> {
+        let chart = self.chart();
         std::fs::create_dir_all(out).with_context(|| format!("creating {}", out.display()))?;
         super::write_chart(out, "residuals", |tmp| chart.draw_png(tmp), || chart.draw_svg())?;
         write_atomically(&out.join("residuals.csv"), self.residuals_csv.as_bytes())?;

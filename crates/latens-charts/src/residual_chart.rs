@@ -5,6 +5,7 @@
 
 use plotters::coord::Shift;
 use plotters::prelude::*;
+use plotters::style::text_anchor::{HPos, Pos, VPos};
 
 use crate::axes::{TickedAxis, round_label};
 
@@ -210,6 +211,132 @@ impl ResidualChart<'_> {
     }
 }
 
+/// Several bodies' O-C on one page (a joint study's overview): a row per
+/// body, RA cos(Dec) left and Dec right, one time axis for all, each row on
+/// its own y-scale (shared by its two panels) with the body named and its
+/// reduced chi-square and RMS beside it.
+pub struct ResidualOverview<'a> {
+    pub title: String,
+    pub subtitle: String,
+    /// Per body: its label ("Name: chi2/dof 1.02, RMS 0.10\" / 0.11\"")
+    /// and its residuals.
+    pub rows: Vec<(String, ResidualChart<'a>)>,
+}
+
+impl ResidualOverview<'_> {
+    const WIDTH: u32 = 1800;
+    const HEADER: u32 = 140;
+    const ROW: u32 = 190;
+
+    fn size(&self) -> (u32, u32) {
+        (Self::WIDTH, Self::HEADER + Self::ROW * self.rows.len().max(1) as u32)
+    }
+
+    /// Draws the overview as a PNG file at `png_path` (1800 pixels wide,
+    /// 190 per body).
+    pub fn draw_png(&self, png_path: &std::path::Path) -> Result<(), String> {
+        super::register_fonts();
+        let root = BitMapBackend::new(png_path, self.size()).into_drawing_area();
+        self.draw(&root).map_err(|e| e.to_string())?;
+        root.present().map_err(|e| e.to_string())
+    }
+
+    /// Draws the overview as SVG text.
+    pub fn draw_svg(&self) -> Result<String, String> {
+        super::register_fonts();
+        let mut out = String::new();
+        {
+            let root = SVGBackend::with_string(&mut out, self.size()).into_drawing_area();
+            self.draw(&root).map_err(|e| e.to_string())?;
+            root.present().map_err(|e| e.to_string())?;
+        }
+        Ok(out)
+    }
+
+    fn draw<DB: DrawingBackend>(
+        &self,
+        root: &DrawingArea<DB, Shift>,
+    ) -> Result<(), DrawingAreaErrorKind<DB::ErrorType>> {
+        root.fill(&WHITE)?;
+        let (header, body) = root.split_vertically(Self::HEADER);
+        header.draw(&Text::new(self.title.clone(), (30, 12), ("sans-serif", 28).into_font().color(&INK)))?;
+        header.draw(&Text::new(self.subtitle.clone(), (30, 50), ("sans-serif", 19).into_font().color(&INK)))?;
+        // The key (in the header, never over the data).
+        let font = ("sans-serif", 17).into_font().color(&INK);
+        let y = 88;
+        header.draw(&Circle::new((40, y), 3, INK.filled()))?;
+        header.draw(&Text::new("used", (50, y - 9), font.clone()))?;
+        header.draw(&Cross::new((120, y), 5, SET_ASIDE.stroke_width(2)))?;
+        header.draw(&Text::new("set aside", (132, y - 9), font.clone()))?;
+        header.draw(&PathElement::new([(240, y), (264, y)], ACCENT.stroke_width(3)))?;
+        header.draw(&Text::new("weighted mean in 20 time bins", (272, y - 9), font.clone()))?;
+        header.draw(&Polygon::new(vec![(590, y - 6), (584, y + 5), (596, y + 5)], INK.filled()))?;
+        header.draw(&Text::new("beyond the axes, at the edge", (604, y - 9), font))?;
+        // Column headings, centred over the plotting areas.
+        let heading = ("sans-serif", 19).into_font().color(&INK).pos(Pos::new(HPos::Center, VPos::Top));
+        let half = Self::WIDTH as i32 / 2;
+        for (k, text) in ["RA cos(Dec), O-C (arcsec)", "Dec, O-C (arcsec)"].into_iter().enumerate() {
+            header.draw(&Text::new(text, (k as i32 * half + 86 + (half - 86 - 31) / 2, 112), heading.clone()))?;
+        }
+        let years: Vec<f64> = self.rows.iter().flat_map(|(_, c)| c.years.iter().copied()).collect();
+        let (t0, t1) = span(&years);
+        let pad = 0.02 * (t1 - t0).max(0.1);
+        let rows = body.split_evenly((self.rows.len().max(1), 1));
+        for (k, ((label, chart), row)) in self.rows.iter().zip(&rows).enumerate() {
+            let (name_strip, panels) = row.split_vertically(28);
+            name_strip.draw(&Text::new(label.clone(), (30, 6), ("sans-serif", 19).into_font().color(&INK)))?;
+            let limits = chart.limits();
+            let limit = limits[0].max(limits[1]);
+            let last = k + 1 == self.rows.len();
+            let halves = panels.split_evenly((1, 2));
+            for (half, (values, sigmas)) in halves
+                .iter()
+                .zip([(chart.ra_arcsec, chart.sigma_ra_arcsec), (chart.dec_arcsec, chart.sigma_dec_arcsec)])
+            {
+                let mut c = ChartBuilder::on(half)
+                    .margin(6)
+                    .margin_right(25)
+                    .x_label_area_size(if last { 40 } else { 22 })
+                    .y_label_area_size(80)
+                    .build_cartesian_2d(
+                        TickedAxis::linear((t0 - pad)..(t1 + pad), 10),
+                        TickedAxis::linear(-limit..limit, 4),
+                    )?;
+                c.configure_mesh()
+                    .x_label_formatter(&|x| round_label(*x))
+                    .y_label_formatter(&|y| round_label(*y))
+                    .x_desc(if last { "year (TDB)" } else { "" })
+                    .label_style(("sans-serif", 15).into_font().color(&INK))
+                    .axis_desc_style(("sans-serif", 17).into_font().color(&INK))
+                    .light_line_style(RGBColor(245, 245, 245))
+                    .bold_line_style(RGBColor(220, 220, 220))
+                    .draw()?;
+                c.draw_series(LineSeries::new([(t0 - pad, 0.0), (t1 + pad, 0.0)], INK.stroke_width(1)))?;
+                let clamp = |v: f64| v.clamp(-limit, limit);
+                let inside = |v: f64| v.abs() <= limit;
+                let pts = || chart.years.iter().zip(values.iter()).zip(chart.used).map(|((&t, &v), &u)| (t, v, u));
+                c.draw_series(
+                    pts().filter(|p| p.2 && inside(p.1)).map(|(t, v, _)| Circle::new((t, v), 2, INK.filled())),
+                )?;
+                c.draw_series(
+                    pts()
+                        .filter(|p| !p.2 && inside(p.1))
+                        .map(|(t, v, _)| Cross::new((t, v), 4, SET_ASIDE.stroke_width(2))),
+                )?;
+                c.draw_series(pts().filter(|p| !inside(p.1)).map(|(t, v, used)| {
+                    let colour = if used { INK } else { SET_ASIDE };
+                    let tip = if v > 0.0 { -1 } else { 1 };
+                    EmptyElement::at((t, clamp(v)))
+                        + Polygon::new(vec![(0, 0), (-5, 9 * tip), (5, 9 * tip)], colour.filled())
+                }))?;
+                let mean = running_mean(chart.years, values, sigmas, chart.used);
+                c.draw_series(LineSeries::new(mean.into_iter().map(|(t, v)| (t, clamp(v))), ACCENT.stroke_width(3)))?;
+            }
+        }
+        Ok(())
+    }
+}
+
 fn span(v: &[f64]) -> (f64, f64) {
     let lo = v.iter().copied().fold(f64::INFINITY, f64::min);
     let hi = v.iter().copied().fold(f64::NEG_INFINITY, f64::max);
@@ -268,6 +395,45 @@ fn running_mean(t: &[f64], v: &[f64], s: &[f64], used: &[bool]) -> Vec<(f64, f64
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// The overview draws a row per body, each named.
+    #[test]
+    fn the_overview_names_every_body_on_one_time_axis() {
+        let years: Vec<Vec<f64>> =
+            (0..3).map(|b| (0..80).map(|k| 2010.0 + b as f64 + 0.15 * k as f64).collect()).collect();
+        let v: Vec<f64> = (0..80).map(|k| 0.1 * ((k as f64) * 0.35).sin()).collect();
+        let s = vec![0.1; 80];
+        let mut used = vec![true; 80];
+        used[5] = false;
+        let rows = ["Arvel", "Lumen", "Tamsin"]
+            .iter()
+            .zip(&years)
+            .map(|(name, y)| {
+                (
+                    format!("{name}: chi2/dof 1.00"),
+                    ResidualChart {
+                        years: y,
+                        ra_arcsec: &v,
+                        dec_arcsec: &v,
+                        sigma_ra_arcsec: &s,
+                        sigma_dec_arcsec: &s,
+                        used: &used,
+                        title: String::new(),
+                        subtitle: String::new(),
+                    },
+                )
+            })
+            .collect();
+        let overview = ResidualOverview { title: "three bodies".into(), subtitle: String::new(), rows };
+        let svg = overview.draw_svg().unwrap();
+        for name in ["Arvel", "Lumen", "Tamsin"] {
+            assert!(svg.contains(name), "{name}");
+        }
+        assert_eq!(overview.size(), (1800, 140 + 3 * 190));
+        if let Some(dir) = std::env::var_os("LATENS_CHART_DIR") {
+            overview.draw_png(&std::path::Path::new(&dir).join("overview_test.png")).unwrap();
+        }
+    }
 
     #[test]
     fn every_used_point_and_its_bar_lies_inside_the_axes() {
