@@ -254,6 +254,26 @@ fn a_joint_study_names_the_body_and_file_of_bad_input() {
     let err = String::from_utf8_lossy(&o.stderr);
     assert_eq!(o.status.code(), Some(2), "{err}");
     assert!(err.contains("--exclude"), "{err}");
+    // BODY=VALUE must name a body read; one plain value per option.
+    for (extra, needle) in [
+        (["--kind", "nobody=planet"], "no body is called nobody"),
+        (["--kind", "comet"], "two values for every body"),
+        (["--tracked-mass", "vell=heavy"], "vell: --tracked-mass"),
+    ] {
+        let o = latens()
+            .args(["infer", "--kind", "small-body"])
+            .args(extra)
+            .arg("--obs")
+            .arg(a.join("vell.csv"))
+            .output()
+            .unwrap();
+        let err = String::from_utf8_lossy(&o.stderr);
+        assert_eq!(o.status.code(), Some(2), "{extra:?}: {err}");
+        assert!(err.contains(needle), "{extra:?}: {err}");
+    }
+    let o = latens().args(["residuals", "--kind", "vell=planet", "--obs"]).arg(a.join("vell.csv")).output().unwrap();
+    assert_eq!(o.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("BODY=VALUE"));
     // A directory with no observation file.
     let empty = dir.join("empty");
     std::fs::create_dir_all(&empty).unwrap();
@@ -413,6 +433,37 @@ fn one_ades_file_with_designations_is_the_same_study_as_one_file_per_body() {
     let (da, db) = (a["detection"]["delta_chi2"].as_f64().unwrap(), b["detection"]["delta_chi2"].as_f64().unwrap());
     assert!((da - db).abs() <= 1e-6 * da.abs().max(1.0), "joint delta chi2 {da} from files, {db} from ADES");
     assert!(b["bodies"][0]["file"].as_str().unwrap().ends_with("all.psv"));
+
+    // One body of its own kind and mass (BODY=VALUE): a planet has no
+    // non-gravitational push, so that alternative is weighed on the others.
+    let planet = &names[1];
+    run_ok(
+        latens()
+            .args(["infer", "--obs"])
+            .arg(&each)
+            .arg("--sites")
+            .arg(dir.join("sites.csv"))
+            .args(["--kind", &format!("{planet}=planet"), "--tracked-mass", &format!("{planet}=0.5")])
+            .args(["--directions", "48", "--distances", "4", "--nulls", "400", "--no-posterior", "--out"])
+            .arg(dir.join("own_kind")),
+    );
+    let c = json(&dir.join("own_kind").join("summary.json"));
+    let has_push = |v: &serde_json::Value| {
+        v["alternatives"].as_array().unwrap().iter().any(|a| a["name"].as_str().unwrap().starts_with("non-grav"))
+    };
+    for (k, body) in c["bodies"].as_array().unwrap().iter().enumerate() {
+        let own = k == 1;
+        assert_eq!(body["kind"], if own { "planet" } else { "small-body" }, "{body}");
+        assert_eq!(body["tracked_mass_earth"].as_f64().unwrap(), if own { 0.5 } else { 0.0 });
+        assert_eq!(has_push(body), !own, "{}", body["alternatives"]);
+    }
+    let push =
+        c["alternatives"].as_array().unwrap().iter().find(|a| a["name"].as_str().unwrap().starts_with("non-grav"));
+    let n = names.len() - 1;
+    assert!(push.unwrap()["description"].as_str().unwrap().contains(&format!("each of {n} bodies")), "{push:?}");
+    let csv = std::fs::read_to_string(dir.join("own_kind").join("bodies.csv")).unwrap();
+    assert!(csv.lines().next().unwrap().ends_with(",kind,tracked_mass_earth"), "{csv}");
+    assert!(csv.lines().nth(2).unwrap().contains(",planet,5.000000e-1"), "{csv}");
 
     // A row without a designation among rows with one is refused, naming
     // the file, the line and the field.

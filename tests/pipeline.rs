@@ -91,6 +91,7 @@ fn posterior_settings(study: &Study) -> PosteriorSettings {
         alternatives: ImpostorPriors {
             gm_inflation: 1000.0,
             nongrav_au_per_day2: nongrav_prior_for(study.bodies[0].tracked.kind),
+            nongrav_from_kind: false,
             offset_arcsec: 0.2,
         },
         sample: true,

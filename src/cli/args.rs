@@ -268,17 +268,93 @@ pub struct InputArgs {
     #[arg(long, value_name = "builtin|FILE", default_value = "builtin")]
     pub ephemeris: String,
     /// The tracked body's own mass: a planet's name (its GM is used, e.g.
-    /// `uranus`) or a number of Earth masses; 0 for a small body.
-    #[arg(long, value_name = "NAME|EARTH_MASSES", default_value = "0")]
-    pub tracked_mass: String,
+    /// `uranus`) or a number of Earth masses; 0 (the default) for a small
+    /// body. With several bodies, `BODY=MASS` gives one body its own
+    /// (repeat it; a plain value applies to the others).
+    #[arg(long, value_name = "[BODY=]NAME|EARTH_MASSES")]
+    pub tracked_mass: Vec<String>,
     /// What the tracked body is: planet, dwarf-planet, small-body or comet
     /// (decides which alternative explanations are possible). Default: from
     /// --tracked-mass (a named planet is a planet, otherwise a small body).
-    #[arg(long, value_name = "KIND")]
-    pub kind: Option<String>,
+    /// With several bodies, `BODY=KIND` gives one body its own (repeat it).
+    #[arg(long, value_name = "[BODY=]KIND")]
+    pub kind: Vec<String>,
+}
+
+/// A plain value (for every body not named) and `BODY=VALUE` entries.
+type Entries<'a> = (Option<&'a str>, Vec<(&'a str, &'a str)>);
+
+/// `--tracked-mass` or `--kind` entries: a plain value (for every body
+/// not named) and `BODY=VALUE` ones.
+fn split_entries<'a>(option: &str, entries: &'a [String]) -> Result<Entries<'a>, String> {
+    let mut plain = None;
+    let mut named: Vec<(&str, &str)> = Vec::new();
+    for e in entries {
+        match e.split_once('=') {
+            Some((body, value)) => {
+                let body = body.trim();
+                if body.is_empty() {
+                    return Err(format!("{option} {e}: a body's name is missing before `=`"));
+                }
+                if named.iter().any(|(b, _)| *b == body) {
+                    return Err(format!("{option}: {body} is given twice"));
+                }
+                named.push((body, value.trim()));
+            }
+            None if plain.is_some() => {
+                return Err(format!(
+                    "{option}: two values for every body ({} and {e}); give one, and BODY=VALUE for a body of its own",
+                    plain.unwrap_or_default()
+                ));
+            }
+            None => plain = Some(e.as_str()),
+        }
+    }
+    Ok((plain, named))
 }
 
 impl InputArgs {
+    /// The tracked body for every body not named by a `BODY=` entry; the
+    /// named ones' values are checked too (before any work).
+    pub fn tracked(&self) -> Result<latens::dynamics::TrackedBody, String> {
+        for (option, entries) in [("--tracked-mass", &self.tracked_mass), ("--kind", &self.kind)] {
+            for (body, _) in split_entries(option, entries)?.1 {
+                self.tracked_for(body)?;
+            }
+        }
+        self.tracked_for("")
+    }
+
+    /// The tracked body `name` (its `BODY=` entries, else the plain ones).
+    pub fn tracked_for(&self, name: &str) -> Result<latens::dynamics::TrackedBody, String> {
+        let (mass, masses) = split_entries("--tracked-mass", &self.tracked_mass)?;
+        let (kind, kinds) = split_entries("--kind", &self.kind)?;
+        let own = |list: &[(&str, &'_ str)]| list.iter().find(|(b, _)| *b == name).map(|(_, v)| v.to_string());
+        let mass = own(&masses).or(mass.map(str::to_string)).unwrap_or_else(|| "0".into());
+        let kind = own(&kinds).or(kind.map(str::to_string));
+        latens::dynamics::TrackedBody::parse(&mass, kind.as_deref())
+            .map_err(|e| if name.is_empty() { e } else { format!("{name}: {e}") })
+    }
+
+    /// Whether any `BODY=` entry is given.
+    pub fn has_named_bodies(&self) -> bool {
+        self.tracked_mass.iter().chain(&self.kind).any(|e| e.contains('='))
+    }
+
+    /// Every `BODY=` entry names one of `bodies` (checked once they are
+    /// read, before any fit).
+    pub fn check_named_bodies(&self, bodies: &[&str]) -> Result<(), String> {
+        for (option, entries) in [("--tracked-mass", &self.tracked_mass), ("--kind", &self.kind)] {
+            let (_, named) = split_entries(option, entries)?;
+            for (b, _) in named {
+                if !bodies.contains(&b) {
+                    return Err(format!("{option} {b}=...: no body is called {b} (the bodies: {})", bodies.join(", ")));
+                }
+            }
+        }
+        Ok(())
+    }
+
     /// The observation files: each --obs, directories expanded to their
     /// .csv, .psv and .xml files in name order.
     pub fn obs_files(&self) -> Result<Vec<PathBuf>, String> {

@@ -109,8 +109,8 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
         sites: Some(sim.sites_path.clone()),
         known: scenario.model.known.clone(),
         ephemeris: "builtin".into(),
-        tracked_mass: "0".into(),
-        kind: None,
+        tracked_mass: Vec::new(),
+        kind: Vec::new(),
     };
     let search_dir = out.join("search");
     let s = &scenario.search;

@@ -192,8 +192,7 @@ impl InferPlan {
             None => None,
         };
         let known = parse_known(&args.input.known).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
-        let tracked = TrackedBody::parse(&args.input.tracked_mass, args.input.kind.as_deref())
-            .map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+        let tracked = args.input.tracked().map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
         let posterior = super::posterior::settings(args, &out, tracked.kind)?;
         let obs = args.input.obs_files().map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
         if obs.len() > 1 && (args.exclude.is_some() || !excluded_dates.is_empty() || !excluded_sites.is_empty()) {
@@ -228,12 +227,27 @@ impl InferPlan {
     }
 }
 
+/// Gives the bodies named in `--tracked-mass BODY=...` / `--kind BODY=...`
+/// their own mass and kind; every such name must be a body read.
+pub(super) fn own_bodies(input: &super::args::InputArgs, arcs: &mut [TrackedArc]) -> Result<(), CliError> {
+    if !input.has_named_bodies() {
+        return Ok(());
+    }
+    let names: Vec<&str> = arcs.iter().map(|a| a.name.as_str()).collect();
+    input.check_named_bodies(&names).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+    for arc in arcs.iter_mut() {
+        let tracked = input.tracked_for(&arc.name).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+        arc.set_tracked(tracked)?;
+    }
+    Ok(())
+}
+
 /// `latens infer`: one body, or several searched jointly.
 pub(super) fn run(args: &InferArgs) -> Result<(), CliError> {
-    let plan = InferPlan::from_args(args)?;
+    let mut plan = InferPlan::from_args(args)?;
     // Every body of every file: several make a joint study (a file may hold
     // several, told apart by a designation column).
-    let arcs = plan
+    let mut arcs = plan
         .obs
         .iter()
         .map(|p| TrackedArc::load_all(p, plan.sites.as_deref(), &plan.known, plan.tracked.clone()))
@@ -241,6 +255,16 @@ pub(super) fn run(args: &InferArgs) -> Result<(), CliError> {
         .into_iter()
         .flatten()
         .collect::<Vec<_>>();
+    own_bodies(&args.input, &mut arcs)?;
+    if let [arc] = arcs.as_slice() {
+        // One body: its own mass and kind (given by name or not) decide the
+        // model and, unless --nongrav-prior says, the push prior.
+        plan.tracked = arc.tracked.clone();
+        if plan.posterior.alternatives.nongrav_from_kind {
+            plan.posterior.alternatives.nongrav_au_per_day2 =
+                latens::posterior::impostors::nongrav_prior_for(arc.tracked.kind);
+        }
+    }
     for file in &plan.obs {
         for note in latens::io::observations::column_notes(file) {
             super::note(&note);

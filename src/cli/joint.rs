@@ -98,6 +98,8 @@ pub(super) fn execute(plan: &InferPlan, arcs: Vec<TrackedArc>) -> Result<(), Cli
             name: b.name.clone(),
             file: file.clone(),
             n_observations: b.observations.len(),
+            kind: study.bodies[k].tracked.kind.name().into(),
+            tracked_mass_earth: study.bodies[k].tracked.gm_au3_per_day2 / latens::units::GM_EARTH_MASS_AU3_PER_DAY2,
             null_chi2: b.null.chi2,
             null_dof: b.null.dof,
             delta_chi2_at_best: e.delta_chi2_at_best,
@@ -213,14 +215,14 @@ fn write_outputs(out: &Path, summary: &JointSummaryFile, found: &JointDetection,
     write_atomically(&out.join("summary.json"), json.as_bytes())?;
     let opt = |x: Option<f64>| x.map_or(String::new(), |v| format!("{v:.6e}"));
     let mut csv = String::from(
-        "name,file,n_observations,null_chi2,null_dof,delta_chi2_at_best,share_of_best,alone_delta_chi2,alone_false_alarm_probability,orbit_correction_km_median,orbit_correction_m_per_s_median,nongrav_log10_bayes_factor\n",
+        "name,file,n_observations,null_chi2,null_dof,delta_chi2_at_best,share_of_best,alone_delta_chi2,alone_false_alarm_probability,orbit_correction_km_median,orbit_correction_m_per_s_median,nongrav_log10_bayes_factor,kind,tracked_mass_earth\n",
     );
     for b in &summary.bodies {
         let nongrav =
             b.alternatives.iter().find(|a| a.name.starts_with("non-gravitational")).map(|a| a.log10_bayes_factor);
         let _ = writeln!(
             csv,
-            "{},{},{},{:.4},{},{:.4},{:.4},{},{},{},{},{}",
+            "{},{},{},{:.4},{},{:.4},{:.4},{},{},{},{},{},{},{:.6e}",
             field(&b.name),
             field(&b.file),
             b.n_observations,
@@ -232,7 +234,9 @@ fn write_outputs(out: &Path, summary: &JointSummaryFile, found: &JointDetection,
             opt(b.alone_false_alarm_probability),
             opt(b.orbit_correction_km.map(|c| c.median)),
             opt(b.orbit_correction_m_per_s.map(|c| c.median)),
-            opt(nongrav)
+            opt(nongrav),
+            b.kind,
+            b.tracked_mass_earth
         );
     }
     write_atomically(&out.join("bodies.csv"), csv.as_bytes())?;

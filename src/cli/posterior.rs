@@ -35,6 +35,7 @@ pub(super) fn settings(
             gm_inflation: args.gm_prior_inflation,
             nongrav_au_per_day2: args.nongrav_prior.unwrap_or(impostors::nongrav_prior_for(kind)),
             offset_arcsec: args.offset_prior,
+            nongrav_from_kind: args.nongrav_prior.is_none(),
         },
         sample: !args.no_posterior,
         checkpoint: Some(out.join("checkpoint.json")),

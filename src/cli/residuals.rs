@@ -25,8 +25,12 @@ pub(super) fn model_from_input(
     input: &super::args::InputArgs,
 ) -> Result<(ForceModel, latens::dynamics::TrackedBody), CliError> {
     let known = latens::pipeline::parse_known(&input.known).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
-    let tracked = latens::dynamics::TrackedBody::parse(&input.tracked_mass, input.kind.as_deref())
-        .map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+    if input.has_named_bodies() {
+        return Err(CliError::bad_input(anyhow::anyhow!(
+            "--tracked-mass/--kind BODY=VALUE give one body of several its own value (infer, sensitivity); this command takes one body: give the plain value"
+        )));
+    }
+    let tracked = input.tracked().map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
     if let Some(b) = tracked.named
         && known.contains(&b)
     {

@@ -7,7 +7,6 @@ use anyhow::Context;
 
 use super::CliError;
 use super::args::{SensitivityArgs, SensitivityCommand};
-use latens::dynamics::TrackedBody;
 use latens::io::results::SensitivityFile;
 use latens::io::write_atomically;
 use latens::perturber::search::SearchSettings;
@@ -61,8 +60,7 @@ pub(super) fn run(args: &SensitivityArgs) -> Result<(), CliError> {
     };
     plan.check()?;
     let known = parse_known(&input.known).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
-    let tracked = TrackedBody::parse(&input.tracked_mass, input.kind.as_deref())
-        .map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+    let tracked = input.tracked().map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
     let source = EphemerisSource::parse(&input.ephemeris);
     let files = input.obs_files().map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
     if files.len() > 1 && args.orbit.is_some() {
@@ -74,17 +72,23 @@ pub(super) fn run(args: &SensitivityArgs) -> Result<(), CliError> {
     let study = match &args.orbit {
         None => {
             // One body, or a population mapped together.
-            let arcs: Vec<TrackedArc> = files
+            let mut arcs: Vec<TrackedArc> = files
                 .iter()
                 .map(|f| TrackedArc::load_all(f, input.sites.as_deref(), &known, tracked.clone()))
                 .collect::<Result<Vec<_>, _>>()?
                 .into_iter()
                 .flatten()
                 .collect();
+            super::infer::own_bodies(input, &mut arcs)?;
             Study::new(arcs, &source, None)?
         }
         Some(orbit_path) => {
             let obs = input.single_obs("sensitivity").map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
+            if input.has_named_bodies() {
+                return Err(CliError::bad_input(anyhow::anyhow!(
+                    "--tracked-mass/--kind BODY=VALUE: --orbit maps one planned body; give the plain value"
+                )));
+            }
             let (t0, state) = read_orbit(orbit_path)?;
             let arc = TrackedArc::load_schedule(&obs, input.sites.as_deref(), &known, tracked)?;
             let mut study = Study::new(vec![arc], &source, None)?;

@@ -1054,6 +1054,7 @@ fn posterior(
         alternatives: ImpostorPriors {
             gm_inflation: gm_prior_inflation,
             nongrav_au_per_day2: nongrav_prior.unwrap_or(impostors::nongrav_prior_for(kind)),
+            nongrav_from_kind: nongrav_prior.is_none(),
             offset_arcsec: offset_prior,
         },
         sample,

@@ -550,6 +550,10 @@ pub struct JointBodyFile {
     pub name: String,
     pub file: String,
     pub n_observations: usize,
+    /// What the body is (planet, dwarf-planet, small-body, comet) and its
+    /// own mass in the model (Earth masses).
+    pub kind: String,
+    pub tracked_mass_earth: f64,
     pub null_chi2: f64,
     pub null_dof: usize,
     /// Its part of the best joint solution's chi-square drop (at the joint mass).

@@ -151,31 +151,59 @@ fn weigh_alternatives(
         .bodies()
         .iter()
         .zip(&detection.bodies)
-        .map(|(k, b)| {
+        .zip(&study.bodies)
+        .map(|((k, b), arc)| {
+            // A body's own push prior: from its kind in a study of bodies
+            // of several kinds; none for a planet.
+            let own = impostors::ImpostorPriors {
+                nongrav_au_per_day2: if priors.nongrav_from_kind {
+                    impostors::nongrav_prior_for(arc.tracked.kind)
+                } else {
+                    priors.nongrav_au_per_day2
+                },
+                ..*priors
+            };
             let mut models = Vec::new();
-            if priors.nongrav_au_per_day2 > 0.0 {
-                models.push(impostors::nongravitational_model(k, priors));
+            if own.nongrav_au_per_day2 > 0.0 {
+                models.push(impostors::nongravitational_model(k, &own));
             }
-            models.push(impostors::offset_model(k, &b.observations, priors));
+            models.push(impostors::offset_model(k, &b.observations, &own));
             models.iter().map(|m| impostors::compare(k, m)).collect()
         })
         .collect();
     let mut joint: Vec<ImpostorFile> = Vec::new();
-    // Block-diagonal alternatives: the bodies' log Bayes factors add.
-    for m in 0..per_body.first().map_or(0, Vec::len) {
-        let parts: Vec<&Comparison> = per_body.iter().map(|c| &c[m]).collect();
-        let first = parts[0];
+    // Block-diagonal alternatives: the bodies' log Bayes factors add. A
+    // body that cannot have an alternative (a planet has no push) adds
+    // nothing to it: under that alternative the body is as in the null.
+    let mut kinds: Vec<&str> = Vec::new();
+    for c in per_body.iter().flatten() {
+        if !kinds.contains(&c.name.as_str()) {
+            kinds.push(&c.name);
+        }
+    }
+    for kind in kinds {
+        let parts: Vec<(&Comparison, &&str)> = per_body
+            .iter()
+            .zip(&names)
+            .filter_map(|(cs, n)| cs.iter().find(|c| c.name == kind).map(|c| (c, n)))
+            .collect();
+        let first = parts[0].0;
+        let each = if parts.len() == per_body.len() {
+            "each body its own".to_string()
+        } else {
+            format!("each of {} bodies its own (the others cannot have one)", parts.len())
+        };
         let mut file = impostor_file(&Comparison {
             name: first.name.clone(),
-            description: format!("{}, each body its own", first.description),
-            n_parameters: parts.iter().map(|c| c.n_parameters).sum(),
-            delta_chi2: parts.iter().map(|c| c.delta_chi2).sum(),
-            ln_bayes_factor: parts.iter().map(|c| c.ln_bayes_factor).sum(),
+            description: format!("{}, {each}", first.description),
+            n_parameters: parts.iter().map(|(c, _)| c.n_parameters).sum(),
+            delta_chi2: parts.iter().map(|(c, _)| c.delta_chi2).sum(),
+            ln_bayes_factor: parts.iter().map(|(c, _)| c.ln_bayes_factor).sum(),
             estimates: Vec::new(),
         });
         file.estimates = parts
             .iter()
-            .zip(&names)
+            .map(|(c, name)| (*c, *name))
             .flat_map(|(c, name)| {
                 c.estimates.iter().map(move |(p, mean, sigma, unit)| EstimateFile {
                     parameter: format!("{name}: {p}"),

@@ -222,6 +222,23 @@ impl TrackedArc {
         })
     }
 
+    /// Gives this body its own GM and kind (a study of bodies of several
+    /// kinds): the force model takes the GM; a planet named by its GM
+    /// cannot also be a known body of the model.
+    pub fn set_tracked(&mut self, tracked: TrackedBody) -> Result<(), PipelineError> {
+        if let Some(b) = tracked.named
+            && self.model.known.iter().any(|k| k.body == b)
+        {
+            return Err(PipelineError::Input(format!(
+                "{}: --tracked-mass {b}: {b} is also in --known; the tracked body cannot pull on itself (leave it out of --known)",
+                self.name
+            )));
+        }
+        self.model = self.model.clone().with_tracked_gm(tracked.gm_au3_per_day2);
+        self.tracked = tracked;
+        Ok(())
+    }
+
     /// The sites and the force model of an arc, the tracked body checked
     /// against the known planets.
     fn setting(

@@ -40,6 +40,10 @@ pub struct ImpostorPriors {
     pub nongrav_au_per_day2: f64,
     /// Standard deviation of each systematic offset, arcsec.
     pub offset_arcsec: f64,
+    /// In a joint study, each body's non-gravitational prior from its own
+    /// kind ([`nongrav_prior_for`]) instead of `nongrav_au_per_day2` (which
+    /// then applies to one-body studies only): bodies of several kinds.
+    pub nongrav_from_kind: bool,
 }
 
 impl Default for ImpostorPriors {
@@ -51,7 +55,7 @@ impl Default for ImpostorPriors {
     /// practice). Offsets of 0.2 arcsec (the size of zonal errors of pre-Gaia
     /// catalogues; common practice).
     fn default() -> Self {
-        ImpostorPriors { gm_inflation: 1000.0, nongrav_au_per_day2: 1e-8, offset_arcsec: 0.2 }
+        ImpostorPriors { gm_inflation: 1000.0, nongrav_au_per_day2: 1e-8, offset_arcsec: 0.2, nongrav_from_kind: false }
     }
 }
 
