@@ -195,8 +195,8 @@ def Study(
     sites: Any = None,
     known: Union[str, Sequence[str]] = DEFAULT_KNOWN,
     ephemeris: str = "builtin",
-    tracked_mass: Union[str, float] = "0",
-    kind: Optional[str] = None,
+    tracked_mass: Union[str, float, Mapping[str, Union[str, float]]] = "0",
+    kind: Union[None, str, Mapping[str, str]] = None,
     search_epoch: Any = None,
     names: Optional[Sequence[str]] = None,
 ) -> "_native.Study":
@@ -213,7 +213,8 @@ def Study(
     tracked_mass: the tracked body's own mass: a planet's name or a number
         of Earth masses (0 for a small body).
     kind: planet, dwarf-planet, small-body or comet (default from
-        tracked_mass).
+        tracked_mass). Either may be a dict {body name: value} for bodies of
+        their own mass or kind (the others: 0 and from their mass).
     search_epoch: when to give the perturber's sky position (ISO UTC,
         ``JD <days> TDB``, a datetime or an astropy Time); default the last
         observation.
@@ -240,6 +241,13 @@ def Study(
         known = ",".join(known) if known else "none"
     if search_epoch is not None and not isinstance(search_epoch, str):
         search_epoch = _epoch_texts([search_epoch] if not hasattr(search_epoch, "shape") else search_epoch)[0]
+    own_masses, own_kinds = [], []
+    if isinstance(tracked_mass, Mapping):
+        own_masses = [(str(b), str(v)) for b, v in tracked_mass.items()]
+        tracked_mass = "0"
+    if isinstance(kind, Mapping):
+        own_kinds = [(str(b), str(v)) for b, v in kind.items()]
+        kind = None
     return _native.Study(
         files,
         texts,
@@ -250,6 +258,8 @@ def Study(
         tracked_mass=str(tracked_mass),
         kind=kind,
         search_epoch=search_epoch,
+        own_masses=own_masses,
+        own_kinds=own_kinds,
     )
 
 

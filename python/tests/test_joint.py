@@ -62,3 +62,29 @@ def test_joint_study_matches_latens_infer(population):
     if summary["sky"] is not None:
         sky = latens.sky_products(study, det, post)
         assert sky.summary == summary["sky"]
+
+
+def test_bodies_of_their_own_kind_match_latens_infer(population, tmp_path):
+    # One body a planet of 0.5 Earth masses among small bodies: dicts here,
+    # BODY=VALUE on the command line; the same study either way (a planet
+    # has no non-gravitational push, so that alternative leaves it out).
+    d, _, _ = population
+    out = tmp_path / "own"
+    run_cli(
+        "infer", "--obs", d / "bodies", "--sites", d / "sites.csv",
+        "--kind", "Lumen=planet", "--tracked-mass", "Lumen=0.5",
+        "--nulls", SEARCH["nulls"], "--directions", SEARCH["directions"],
+        "--distances", SEARCH["distances"], "--seed", SEARCH["seed"],
+        "--no-posterior", "--out", out,
+    )
+    summary = json.loads((out / "summary.json").read_text())
+    study = latens.Study(d / "bodies", sites=d / "sites.csv", kind={"Lumen": "planet"}, tracked_mass={"Lumen": 0.5})
+    det = latens.detect(study, **SEARCH)
+    assert det.delta_chi2 == summary["detection"]["delta_chi2"]
+    post = latens.posterior(study, det, sample=False)
+    assert post.alternatives == summary["alternatives"]
+    lumen = next(b for b in summary["bodies"] if b["name"] == "Lumen")
+    assert lumen["kind"] == "planet" and lumen["tracked_mass_earth"] == 0.5
+    assert not any(a["name"].startswith("non-grav") for a in lumen["alternatives"])
+    with pytest.raises(latens.InputError, match="no body is called Nobody"):
+        latens.Study(d / "bodies", sites=d / "sites.csv", kind={"Nobody": "planet"})

@@ -270,13 +270,15 @@ struct PyStudy {
 #[pymethods]
 impl PyStudy {
     /// Study(files, texts, sites_file=None, sites_text=None, known=..., ephemeris="builtin",
-    /// tracked_mass="0", kind=None, search_epoch=None)
+    /// tracked_mass="0", kind=None, search_epoch=None, own_masses=[], own_kinds=[])
     ///
     /// The low-level constructor; use `latens.Study`. `files` are observation
     /// files (Latens CSV or ADES PSV; a file with a designation column holds
-    /// several bodies); `texts` are (name, text) pairs of the same formats.
+    /// several bodies); `texts` are (name, text) pairs of the same formats;
+    /// `own_masses` and `own_kinds` are (body, value) pairs for bodies of
+    /// their own mass or kind.
     #[new]
-    #[pyo3(signature = (files, texts, sites_file=None, sites_text=None, known="jupiter,saturn,uranus,neptune", ephemeris="builtin", tracked_mass="0", kind=None, search_epoch=None))]
+    #[pyo3(signature = (files, texts, sites_file=None, sites_text=None, known="jupiter,saturn,uranus,neptune", ephemeris="builtin", tracked_mass="0", kind=None, search_epoch=None, own_masses=Vec::new(), own_kinds=Vec::new()))]
     #[allow(clippy::too_many_arguments)]
     fn new(
         py: Python<'_>,
@@ -289,9 +291,25 @@ impl PyStudy {
         tracked_mass: &str,
         kind: Option<&str>,
         search_epoch: Option<&str>,
+        own_masses: Vec<(String, String)>,
+        own_kinds: Vec<(String, String)>,
     ) -> PyResult<PyStudy> {
         let known = latens::pipeline::parse_known(known).map_err(|e| bad_setting(py, e))?;
         let tracked = TrackedBody::parse(tracked_mass, kind).map_err(|e| bad_setting(py, e))?;
+        // A body of its own mass or kind: the plain values fill what it
+        // does not say.
+        let own = |name: &str| -> Option<Result<TrackedBody, String>> {
+            let mass = own_masses.iter().find(|(b, _)| b == name).map(|(_, v)| v.as_str());
+            let own_kind = own_kinds.iter().find(|(b, _)| b == name).map(|(_, v)| v.as_str());
+            (mass.is_some() || own_kind.is_some()).then(|| {
+                TrackedBody::parse(mass.unwrap_or(tracked_mass), own_kind.or(kind)).map_err(|e| format!("{name}: {e}"))
+            })
+        };
+        for (name, _) in own_masses.iter().chain(&own_kinds) {
+            if let Some(Err(e)) = own(name) {
+                return Err(bad_setting(py, e));
+            }
+        }
         let search_epoch = search_epoch.map(|t| tdb_days(py, t, "search_epoch")).transpose()?;
         let source = EphemerisSource::parse(ephemeris);
         let result = py.detach(|| -> Result<Study, PipelineError> {
@@ -311,6 +329,20 @@ impl PyStudy {
             }
             for (name, text) in &texts {
                 arcs.push(TrackedArc::from_text(name, text, sites.clone(), &known, tracked.clone())?);
+            }
+            for (name, _) in own_masses.iter().chain(&own_kinds) {
+                if !arcs.iter().any(|a| &a.name == name) {
+                    let names: Vec<&str> = arcs.iter().map(|a| a.name.as_str()).collect();
+                    return Err(PipelineError::Input(format!(
+                        "no body is called {name} (the bodies: {})",
+                        names.join(", ")
+                    )));
+                }
+            }
+            for arc in &mut arcs {
+                if let Some(Ok(t)) = own(&arc.name) {
+                    arc.set_tracked(t)?;
+                }
             }
             Study::new(arcs, &source, search_epoch)
         });
