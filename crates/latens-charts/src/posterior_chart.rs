@@ -351,7 +351,8 @@ impl TraceChart {
         // over the walkers' paths.
         let (top, body) = root.split_vertically(84);
         let (title, key) = top.split_vertically(50);
-        title.titled(&self.title, ("sans-serif", 26).into_font().color(&INK)).map_err(e)?;
+        let title_font = ("sans-serif", 26).into_font().color(&INK).pos(Pos::new(HPos::Center, VPos::Top));
+        title.draw(&Text::new(self.title.as_str(), (title.dim_in_pixel().0 as i32 / 2, 14), title_font)).map_err(e)?;
         let (kw, kh) = key.dim_in_pixel();
         let key_text = "shaded: burn-in (discarded; its first quarter may leave the axes)";
         let key_font = ("sans-serif", 16).into_font().color(&INK);
