@@ -478,3 +478,85 @@ fn one_ades_file_with_designations_is_the_same_study_as_one_file_per_body() {
     assert!(err.contains("unnamed.psv") && err.contains('5') && err.contains("permID"), "{err}");
     let _ = std::fs::remove_dir_all(&dir);
 }
+
+#[test]
+fn a_population_of_planned_schedules_maps_as_its_observations() {
+    // Survey design for a population: each body's planned schedule (dates,
+    // sigmas, site; no positions) placed on its fitted orbit (`--orbit DIR`
+    // with the bodies/NAME/fit.json a joint `infer` writes) must map the
+    // same sensitivity as the observations themselves (positions differ
+    // only by the 0.03" noise, which the map does not depend on).
+    let root = std::env::temp_dir().join(format!("latens-joint-plan-{}", std::process::id()));
+    let (obs, plan) = (root.join("obs"), root.join("plan"));
+    std::fs::create_dir_all(&obs).unwrap();
+    std::fs::create_dir_all(&plan).unwrap();
+    run_ok(latens().arg("simulate").arg(population_file()).arg("--out").arg(root.join("sim")));
+    for name in ["Arvel", "Irvo", "Lumen"] {
+        let text = std::fs::read_to_string(root.join("sim/bodies").join(format!("{name}.csv"))).unwrap();
+        std::fs::write(obs.join(format!("{name}.csv")), &text).unwrap();
+        // Keep epoch_utc, the sigmas and the site.
+        let schedule: String = text
+            .lines()
+            .map(|l| {
+                let f: Vec<&str> = l.split(',').collect();
+                format!("{},{},{},{}\n", f[0], f[3], f[4], f[5])
+            })
+            .collect();
+        assert!(schedule.starts_with("epoch_utc,sigma_ra_arcsec,sigma_dec_arcsec,site\n"));
+        std::fs::write(plan.join(format!("{name}.csv")), schedule).unwrap();
+    }
+    let sites = root.join("sim/sites.csv");
+    run_ok(
+        latens()
+            .args(["-q", "infer", "--obs"])
+            .arg(&obs)
+            .arg("--sites")
+            .arg(&sites)
+            .args(["--directions", "48", "--distances", "4", "--nulls", "400", "--no-posterior", "--out"])
+            .arg(root.join("fits")),
+    );
+    let map = |data: &Path, orbits: Option<&Path>, out: &str| -> (f64, Vec<f64>) {
+        let mut c = latens();
+        c.args(["-q", "sensitivity", "--obs"]).arg(data).arg("--sites").arg(&sites);
+        if let Some(o) = orbits {
+            c.arg("--orbit").arg(o);
+        }
+        run_ok(
+            c.args(["--mass-earth", "10:100000", "--distance-au", "100:400", "--grid", "8:3", "--trials", "16"])
+                .args(["--nulls", "100", "--directions", "48", "--distances", "6", "--out"])
+                .arg(root.join(out)),
+        );
+        let meta = json(&root.join(out).join("sensitivity.json"));
+        let text = std::fs::read_to_string(root.join(out).join("sensitivity.csv")).unwrap();
+        let mut lines = text.lines();
+        let header: Vec<&str> = lines.next().unwrap().split(',').collect();
+        let col = header.iter().position(|h| *h == "detection_probability").unwrap();
+        let p = lines.map(|l| l.split(',').nth(col).unwrap().parse().unwrap()).collect();
+        (meta["threshold_delta_chi2"].as_f64().unwrap(), p)
+    };
+    let (t_obs, p_obs) = map(&obs, None, "from_obs");
+    let (t_plan, p_plan) = map(&plan, Some(&root.join("fits/bodies")), "from_plan");
+    let largest = p_obs.iter().zip(&p_plan).map(|(a, b)| (a - b).abs()).fold(0.0, f64::max);
+    eprintln!("thresholds {t_obs:.3} (observations) {t_plan:.3} (plan); largest probability difference {largest:.3}");
+    assert!((t_obs - t_plan).abs() <= 0.02 * t_obs, "thresholds {t_obs} vs {t_plan}");
+    assert_eq!(p_obs.len(), p_plan.len());
+    assert!(p_obs.iter().any(|p| *p > 0.5) && p_obs.iter().any(|p| *p < 0.5), "{p_obs:?}");
+    for (a, b) in p_obs.iter().zip(&p_plan) {
+        assert!((a - b).abs() <= 0.07, "detection probability {a} from observations, {b} from the plan");
+    }
+    // A body without an orbit in the directory is named.
+    std::fs::write(plan.join("Nadir.csv"), "epoch_utc,sigma_ra_arcsec,sigma_dec_arcsec\n2020-01-01T00:00:00Z,0.1,0.1\n2020-02-01T00:00:00Z,0.1,0.1\n2020-03-01T00:00:00Z,0.1,0.1\n2020-04-01T00:00:00Z,0.1,0.1\n").unwrap();
+    let o = latens()
+        .args(["sensitivity", "--obs"])
+        .arg(&plan)
+        .arg("--sites")
+        .arg(&sites)
+        .arg("--orbit")
+        .arg(root.join("fits/bodies"))
+        .output()
+        .unwrap();
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert_eq!(o.status.code(), Some(2), "{err}");
+    assert!(err.contains("no orbit for the body Nadir"), "{err}");
+    let _ = std::fs::remove_dir_all(&root);
+}

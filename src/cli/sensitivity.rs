@@ -63,9 +63,9 @@ pub(super) fn run(args: &SensitivityArgs) -> Result<(), CliError> {
     let tracked = input.tracked().map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
     let source = EphemerisSource::parse(&input.ephemeris);
     let files = input.obs_files().map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
-    if files.len() > 1 && args.orbit.is_some() {
+    if files.len() > 1 && args.orbit.as_ref().is_some_and(|o| !o.is_dir()) {
         return Err(CliError::bad_input(anyhow::anyhow!(
-            "--orbit places one planned schedule on one orbit; --obs gives {} files (a population's sensitivity is mapped from its observation files)",
+            "--orbit FIT_JSON places one planned schedule on one orbit; --obs gives {} files (give --orbit DIR holding each body's orbit as NAME.json or NAME/fit.json)",
             files.len()
         )));
     }
@@ -81,6 +81,20 @@ pub(super) fn run(args: &SensitivityArgs) -> Result<(), CliError> {
                 .collect();
             super::infer::own_bodies(input, &mut arcs)?;
             Study::new(arcs, &source, None)?
+        }
+        Some(orbit_dir) if orbit_dir.is_dir() => {
+            // A population of planned schedules, each body on its own orbit.
+            let mut arcs = files
+                .iter()
+                .map(|f| TrackedArc::load_schedule(f, input.sites.as_deref(), &known, tracked.clone()))
+                .collect::<Result<Vec<_>, _>>()?;
+            super::infer::own_bodies(input, &mut arcs)?;
+            let orbits = arcs.iter().map(|a| body_orbit(orbit_dir, &a.name)).collect::<Result<Vec<_>, _>>()?;
+            let mut study = Study::new(arcs, &source, None)?;
+            for (k, (t0, state)) in orbits.iter().enumerate() {
+                study.place_on_orbit(k, *t0, state)?;
+            }
+            study
         }
         Some(orbit_path) => {
             let obs = input.single_obs("sensitivity").map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
@@ -157,6 +171,21 @@ fn csv_row(c: &Cell) -> String {
         c.mass_index,
         c.distance_index
     )
+}
+
+/// Body `name`'s orbit in `dir`: `NAME.json` or `NAME/fit.json` (the
+/// layout `latens infer` writes for a joint study's bodies).
+fn body_orbit(dir: &Path, name: &str) -> Result<(f64, [f64; 6]), CliError> {
+    let candidates = [dir.join(format!("{name}.json")), dir.join(name).join("fit.json")];
+    match candidates.iter().find(|p| p.is_file()) {
+        Some(p) => read_orbit(p),
+        None => Err(CliError::bad_input(anyhow::anyhow!(
+            "--orbit {}: no orbit for the body {name} (looked for {} and {})",
+            dir.display(),
+            candidates[0].display(),
+            candidates[1].display()
+        ))),
+    }
 }
 
 /// The reference epoch (TDB days after J2000.0) and heliocentric ICRF state
