@@ -11,7 +11,10 @@
 //! `infer` draws regions, and the mass rates over every run.
 //!
 //! Two signal strengths (mass ranges of the prior) and two observation
-//! densities, on an invented distant body; 20 injections each (80 in all).
+//! densities, on an invented distant body; 12 injections each (48 in all)
+//! in the test suite, or as many as `LATENS_INJECTIONS_PER_CAMPAIGN` says
+//! (20, the measurement in docs/validation.md; the first 12 are the same
+//! data sets, seeds by index).
 //! A second check: on four of the data sets, two grid sizes and two sampler
 //! lengths give 90% regions that each contain the other's best place.
 
@@ -65,7 +68,19 @@ const CAMPAIGNS: [Campaign; 4] = [
     Campaign { name: "strong-dense", mass_earth: (20.0, 200.0), visit_every_days: 10.0 },
 ];
 
-const PER_CAMPAIGN: usize = 20;
+/// Injections per campaign unless `LATENS_INJECTIONS_PER_CAMPAIGN` says
+/// otherwise: 12 keeps the suite inside CI's time (about 19 minutes on 2
+/// cores); the same first 12 of the 20 measured gave 22, 43 of 48 in mass
+/// and 16, 25 of 30 detections in the sky (docs/validation.md).
+const PER_CAMPAIGN: usize = 12;
+
+fn per_campaign() -> usize {
+    std::env::var("LATENS_INJECTIONS_PER_CAMPAIGN")
+        .ok()
+        .map(|v| v.trim().parse().expect("LATENS_INJECTIONS_PER_CAMPAIGN must be a whole number"))
+        .unwrap_or(PER_CAMPAIGN)
+        .max(PER_CAMPAIGN)
+}
 
 /// A perturber drawn from `infer`'s prior: mass log-uniform, position
 /// isotropic with log-uniform heliocentric distance, velocity from the
@@ -286,7 +301,8 @@ fn infer_regions_and_mass_intervals_cover_injected_perturbers() {
     // Two runs at a time on the 2 cores (each `infer` also uses rayon),
     // taken from one queue so that neither worker idles while the other
     // still has a campaign of slow runs ahead.
-    let jobs: Vec<(Campaign, usize)> = CAMPAIGNS.iter().flat_map(|c| (0..PER_CAMPAIGN).map(move |k| (*c, k))).collect();
+    let per = per_campaign();
+    let jobs: Vec<(Campaign, usize)> = CAMPAIGNS.iter().flat_map(|c| (0..per).map(move |k| (*c, k))).collect();
     let next = std::sync::atomic::AtomicUsize::new(0);
     let tallies: Vec<(Campaign, Tally)> = std::thread::scope(|s| {
         let handles: Vec<_> = (0..2)
@@ -320,8 +336,10 @@ fn infer_regions_and_mass_intervals_cover_injected_perturbers() {
     if std::env::var_os("LATENS_KEEP_INJECTIONS").is_none() {
         let _ = std::fs::remove_dir_all(&root);
     }
-    assert!(all.runs >= 80);
-    assert!(all.detected >= 30, "too few detections to calibrate the regions: {all:?}");
+    assert_eq!(all.runs, 4 * per);
+    // About 3 in 5 runs are detected (48 of 80 measured); fewer than 3 in 8
+    // leaves too few regions to test.
+    assert!(8 * all.detected >= 3 * all.runs, "too few detections to calibrate the regions: {all:?}");
     assert!(within_2sd(all.mass50, all.runs, 0.5), "mass 50%: {all:?}");
     assert!(within_2sd(all.mass90, all.runs, 0.9), "mass 90%: {all:?}");
     assert!(within_2sd(all.sky50, all.detected, 0.5), "sky 50%: {all:?}");

@@ -57,6 +57,8 @@ const CATALOGUE: &[(&str, &str)] = &[
     ("bodies/*/residuals.csv", "one body's O-C in a joint study"),
     ("bodies/*/residuals.png", "chart of one body's O-C"),
     ("bodies/*/residuals.svg", "chart of one body's O-C (vector)"),
+    ("residuals_overview.png", "every body's O-C on one page, a row per body with its chi2/dof and RMS"),
+    ("residuals_overview.svg", "every body's O-C on one page (vector)"),
     ("sensitivity.csv", "detection probability per perturber mass and distance"),
     ("sensitivity.json", "the sensitivity map's settings and detection threshold"),
     ("sensitivity.png", "chart of the detection probability with the 50%/90% and 95% exclusion curves"),
