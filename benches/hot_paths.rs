@@ -92,6 +92,7 @@ fn benches(c: &mut Criterion) {
         distance_au: (5.0, 500.0),
         max_eccentricity: 0.6,
         min_separation_au: 2.0,
+        near_ecliptic_deg: None,
     };
     let posterior = PerturberPosterior::new(&s.kernel, prior);
     let x = PerturberSample {

@@ -78,6 +78,7 @@ fn main() {
         distance_au: search.distance_au,
         max_eccentricity: 0.6,
         min_separation_au: search.min_separation_au,
+        near_ecliptic_deg: None,
     };
     let posterior = PerturberPosterior::new(&kernel, prior);
     // 16 rungs x 32 walkers x 1954 steps = 1.0004e6 evaluations.

@@ -67,6 +67,7 @@ fn campaign(n: usize, seed: u64) -> [usize; 4] {
         distance_au: (15.0, 60.0),
         max_eccentricity: 0.3,
         min_separation_au: 3.0,
+        near_ecliptic_deg: None,
     };
     let mut hits = [0usize; 4];
     for k in 0..n {

@@ -39,7 +39,12 @@ fn bad_arguments_exit_two() {
     let out = latens().args(["infer", "--obs", "no-such-file.csv", "--truth", "Cargo.toml"]).output().unwrap();
     assert_eq!(out.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&out.stderr).contains("--truth"), "{}", String::from_utf8_lossy(&out.stderr));
-    for (option, value) in [("--exclude-dates", "2015-01-01"), ("--exclude-dates", "2016-01-01..2015-01-01")] {
+    for (option, value) in [
+        ("--exclude-dates", "2015-01-01"),
+        ("--exclude-dates", "2016-01-01..2015-01-01"),
+        ("--near-ecliptic", "0"),
+        ("--near-ecliptic", "95"),
+    ] {
         let out = latens().args(["infer", "--obs", "no-such-file.csv", option, value]).output().unwrap();
         assert_eq!(out.status.code(), Some(2));
         assert!(String::from_utf8_lossy(&out.stderr).contains(option), "{}", String::from_utf8_lossy(&out.stderr));
@@ -432,6 +437,51 @@ fn reduced_demo_end_to_end_finds_the_planet_and_its_place() {
         }
     }
     std::fs::remove_dir_all(&dir).unwrap();
+}
+
+/// `infer --near-ecliptic 30` on the demo survey (its hidden planet's orbit
+/// is inclined 28 deg, inside the band): the search and the posterior keep
+/// to orbits within 30 deg of the ecliptic (prograde or retrograde), the
+/// setting is recorded and reported, the planet is still detected and its
+/// place at the search epoch lies in the 90% region.
+#[test]
+fn a_band_about_the_ecliptic_keeps_search_and_posterior_in_it() {
+    let (demo, _) = shared_demo();
+    let out_dir = temp_dir("band");
+    let out = latens()
+        .args(["infer", "--obs"])
+        .arg(demo.join("observations.csv"))
+        .arg("--sites")
+        .arg(demo.join("sites.csv"))
+        .args(["--near-ecliptic", "30", "--directions", "96", "--distances", "8", "--nulls", "400", "--seed", "7"])
+        .args(["--posterior-steps", "600", "--temperatures", "8", "--walkers", "16", "--out"])
+        .arg(&out_dir)
+        .output()
+        .unwrap();
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    let stdout = String::from_utf8_lossy(&out.stdout);
+    assert!(stdout.contains("within 30 deg of the ecliptic"), "{stdout}");
+    let v: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(out_dir.join("summary.json")).unwrap()).unwrap();
+    assert_eq!(v["settings"]["near_ecliptic_deg"].as_f64(), Some(30.0));
+    assert_eq!(v["detection"]["detected"].as_bool(), Some(true), "{}", v["detection"]);
+    let in_band = |inc: f64| inc <= 30.0 + 1e-6 || inc >= 150.0 - 1e-6;
+    for b in v["basins"].as_array().unwrap() {
+        assert!(in_band(b["inc_deg"].as_f64().unwrap()), "a basin outside the band: {b}");
+    }
+    let mut r = csv::Reader::from_path(out_dir.join("posterior.csv")).unwrap();
+    let col = r.headers().unwrap().iter().position(|h| h == "inc_deg").unwrap();
+    let incs: Vec<f64> = r.records().map(|rec| rec.unwrap()[col].parse().unwrap()).collect();
+    assert!(incs.len() > 100);
+    let outside: Vec<&f64> = incs.iter().filter(|&&i| !in_band(i)).collect();
+    assert!(outside.is_empty(), "{} posterior samples outside the band, e.g. {:?}", outside.len(), &outside[..1]);
+    let truth: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(demo.join("truth.json")).unwrap()).unwrap();
+    let p = &truth["perturber"]["at_search_epoch"];
+    let d = unit(p["ra_deg"].as_f64().unwrap(), p["dec_deg"].as_f64().unwrap());
+    let moc = std::fs::read_to_string(out_dir.join("region90.json")).unwrap();
+    assert!(latens::skymap::moc_json_contains(&moc, d).unwrap(), "the truth is outside the 90% region: {p}");
+    std::fs::remove_dir_all(&out_dir).unwrap();
 }
 
 /// `residuals --start-orbit`: started from the demo's own fit, the fit lands

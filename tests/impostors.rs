@@ -86,6 +86,7 @@ fn weigh(
         distance_au: search.distance_au,
         max_eccentricity: 0.6,
         min_separation_au: search.min_separation_au,
+        near_ecliptic_deg: None,
     };
     let posterior = PerturberPosterior::new(&kernel, prior);
     let settings = SamplerSettings {

@@ -210,9 +210,9 @@ fn injected_perturbers_are_detected_and_located() {
             position_au: best.hypothesis.position_au,
             velocity_au_per_day: best.hypothesis.velocity_au_per_day,
         };
+        let wide = SearchSettings { distance_au: (1.0, 1000.0), ..SearchSettings::default() };
         let refined =
-            latens::perturber::refine::refine(&fit, &obs, &geometry, &s.model, &s.ephemeris, start, (1.0, 1000.0))
-                .unwrap();
+            latens::perturber::refine::refine(&fit, &obs, &geometry, &s.model, &s.ephemeris, start, &wide).unwrap();
         let gm_earth = EARTH_MASS_SOLAR * GM_SUN_AU3_PER_DAY2;
         eprintln!(
             "  refined: delta chi2 {:.1}, mass {:.1} +/- {:.1} Earth masses, all 13: {} ({})",
@@ -327,6 +327,7 @@ fn nonlinear_weights_hold_in_the_linear_regime_and_collapse_beyond_it() {
             distance_au: (5.0, 500.0),
             max_eccentricity: 0.6,
             min_separation_au: 2.0,
+            near_ecliptic_deg: None,
         };
         let posterior = PerturberPosterior::new(&kernel, prior);
         let full = NonlinearLikelihood::new(&fit, &kernel, &obs, &geometry, &s.model, &s.ephemeris).unwrap();

@@ -71,7 +71,7 @@ fn half_detection_mass_grows_as_distance_cubed_far_out() {
         n_masses: 60,
         n_distances: 5,
         n_trials: 200,
-        max_ecliptic_latitude_deg: None,
+        near_ecliptic_deg: None,
         seed: 3,
         min_separation_au: 2.0,
     };
@@ -89,7 +89,7 @@ fn half_detection_mass_grows_as_distance_cubed_far_out() {
     assert!((slope - 3.0).abs() < 0.2, "{slope}");
 
     // Near-ecliptic draws stay within their latitude band.
-    let near = SensitivitySettings { max_ecliptic_latitude_deg: Some(10.0), n_trials: 50, ..settings };
+    let near = SensitivitySettings { near_ecliptic_deg: Some(10.0), n_trials: 50, ..settings };
     let confs = latens::perturber::sensitivity::configurations(&kernel, &near, 2);
     assert_eq!(confs.len(), 50);
     for c in &confs {
@@ -285,7 +285,7 @@ fn injection_recovery(per_cell: usize) -> (f64, f64, usize) {
         n_masses: 25,
         n_distances: 3,
         n_trials: per_cell,
-        max_ecliptic_latitude_deg: None,
+        near_ecliptic_deg: None,
         seed: 8,
         min_separation_au: 2.0,
     };

@@ -390,7 +390,7 @@ def infer(study, *, sample: bool = True, progress: Any = None, checkpoint=None, 
        90% credible regions, the modes.
 
     settings: any of ``detect``'s (mass_earth, distance_au, nulls,
-    directions, distances, seed, reject_sigma) and ``posterior``'s (steps,
+    directions, distances, seed, reject_sigma, near_ecliptic) and ``posterior``'s (steps,
     walkers, temperatures, runs, max_eccentricity, gm_prior_inflation,
     nongrav_prior, offset_prior); ``seed`` goes to both, as on the command
     line. Defaults are the command's. With ``checkpoint`` (a file), a
@@ -405,7 +405,7 @@ def infer(study, *, sample: bool = True, progress: Any = None, checkpoint=None, 
         if found.sky is not None:
             found.sky.write_region("region90.fits")
     """
-    detect_keys = {"mass_earth", "distance_au", "nulls", "directions", "distances", "seed", "reject_sigma"}
+    detect_keys = {"mass_earth", "distance_au", "nulls", "directions", "distances", "seed", "reject_sigma", "near_ecliptic"}
     posterior_keys = {"steps", "walkers", "temperatures", "runs", "seed", "max_eccentricity",
                       "gm_prior_inflation", "nongrav_prior", "offset_prior"}
     unknown = set(settings) - detect_keys - posterior_keys

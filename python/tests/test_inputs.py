@@ -84,6 +84,10 @@ def test_unknown_site_and_bad_settings(simulated):
         latens.detect(study, nulls=10)
     with pytest.raises(latens.InputError, match="mass_earth"):
         latens.detect(study, mass_earth=(10.0, 1.0))
+    with pytest.raises(latens.InputError, match="near_ecliptic"):
+        latens.detect(study, near_ecliptic=0.0)
+    with pytest.raises(latens.InputError, match="near-ecliptic"):
+        latens.sensitivity(study, near_ecliptic=100.0)
     with pytest.raises(latens.InputError):
         latens.sensitivity(study, grid=(1, 5))
 

@@ -99,10 +99,12 @@ pub enum Command {
             full model; the perturber's posterior is sampled (tempered ensemble MCMC) and weighed \
             against the alternatives; for a detection, the sky map, the 50% and 90% credible regions \
             and their modes say where to look. Several --obs (or a directory) search several bodies \
-            jointly for one shared perturber.",
+            jointly for one shared perturber. --near-ecliptic DEG restricts the search and the posterior \
+            to orbits within DEG of the ecliptic.",
         after_long_help = "Examples:\n  \
             latens infer --obs obs.csv --sites sites.csv\n  \
             latens infer --obs obs.csv --sites sites.csv --mass-earth 1:100 --distance-au 30:300 --seed 7\n  \
+            latens infer --obs obs.csv --sites sites.csv --near-ecliptic 20   (a near-ecliptic planet)\n  \
             latens infer --obs population/ --sites sites.csv --out output/joint\n  \
             latens infer --obs obs.csv --sites sites.csv --resume output/infer   (after Ctrl-C)\n\n\
             --known names: mercury, venus, earth, moon, earth-moon, mars, jupiter, saturn, uranus, \
@@ -204,7 +206,9 @@ pub struct SensitivityArgs {
     /// False-alarm probability that defines a detection (as in `latens infer`).
     #[arg(long, value_name = "P", default_value_t = 0.0027)]
     pub fap: f64,
-    /// Only directions within this many degrees of the ecliptic (default: isotropic).
+    /// Only perturbers on orbits inclined at most DEG degrees to the ecliptic
+    /// (prograde or retrograde), with the threshold from a search of the same
+    /// orbits, as `latens infer --near-ecliptic` (default: isotropic).
     #[arg(long, value_name = "DEG")]
     pub near_ecliptic: Option<f64>,
     /// Null simulations for the detection threshold.
@@ -416,9 +420,16 @@ pub struct InferArgs {
     /// nulls). At least 1/P null simulations are needed.
     #[arg(long, value_name = "P", default_value_t = latens::pipeline::DETECTION_FAP)]
     pub fap_level: f64,
-    /// Directions of the grid (equal-area over the whole sky).
+    /// Directions of the grid (equal-area over the whole sky, or over the
+    /// band of --near-ecliptic).
     #[arg(long, value_name = "N", default_value_t = 768)]
     pub directions: usize,
+    /// A direction prior: search and sample only perturbers on orbits
+    /// inclined at most DEG degrees to the ecliptic (or at least 180 - DEG,
+    /// retrograde), which keep within DEG of it. The null simulations
+    /// search the same orbits. Default: every orbit.
+    #[arg(long, value_name = "DEG")]
+    pub near_ecliptic: Option<f64>,
     /// Log-spaced distances of the grid.
     #[arg(long, value_name = "N", default_value_t = 20)]
     pub distances: usize,

@@ -183,8 +183,10 @@ impl InferPlan {
             n_directions: args.directions,
             n_distances: args.distances,
             fap_level: args.fap_level,
+            near_ecliptic_deg: args.near_ecliptic,
             ..SearchSettings::default()
         };
+        search.check_band().map_err(|e| CliError::bad_input(anyhow::anyhow!("--near-ecliptic: {e}")))?;
         let search_epoch = match &args.search_epoch {
             Some(text) => Some(tdb_days_from_j2000(
                 parse_epoch(text).map_err(|e| CliError::bad_input(anyhow::anyhow!("--search-epoch: {e}")))?,
@@ -449,8 +451,11 @@ pub(super) fn execute(plan: &InferPlan) -> Result<InferSummary, CliError> {
         writeln!(text, "Null model (no perturber): chi-square {:.1} for {} degrees of freedom", null.chi2, null.dof);
     let _ = writeln!(
         text,
-        "Searched {} perturber hypotheses ({} skipped for passing within {} au of the body)",
-        result.n_hypotheses, result.n_skipped_close, settings.min_separation_au
+        "Searched {} perturber hypotheses{} ({} skipped for passing within {} au of the body)",
+        result.n_hypotheses,
+        settings.near_ecliptic_deg.map_or(String::new(), |b| format!(" within {b} deg of the ecliptic")),
+        result.n_skipped_close,
+        settings.min_separation_au
     );
     let _ = writeln!(text, "Verdict: {verdict}");
     for (k, d) in described.iter().enumerate() {
@@ -617,6 +622,7 @@ pub(super) fn settings_file(
         min_separation_au: s.min_separation_au,
         basin_delta_chi2: s.basin_delta_chi2,
         fap_level: s.fap_level,
+        near_ecliptic_deg: s.near_ecliptic_deg,
         known_bodies: model.known.iter().map(|k| k.body.name().to_string()).collect(),
         folded_into_sun: model.folded.iter().map(|k| k.body.name().to_string()).collect(),
         central_gm_au3_per_day2: model.central_gm_au3_per_day2(),

@@ -44,7 +44,7 @@ pub(super) fn run(args: &SensitivityArgs) -> Result<(), CliError> {
             n_masses: grid.0,
             n_distances: grid.1,
             n_trials: args.trials,
-            max_ecliptic_latitude_deg: args.near_ecliptic,
+            near_ecliptic_deg: args.near_ecliptic,
             seed: args.seed,
             min_separation_au: SearchSettings::default().min_separation_au,
         },
@@ -54,6 +54,9 @@ pub(super) fn run(args: &SensitivityArgs) -> Result<(), CliError> {
             seed: args.seed,
             n_directions: args.directions,
             n_distances: args.distances,
+            // The threshold from a search of the same band, as
+            // `latens infer --near-ecliptic` would search.
+            near_ecliptic_deg: args.near_ecliptic,
             ..SearchSettings::default()
         },
         shard,

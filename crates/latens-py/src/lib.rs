@@ -661,7 +661,7 @@ impl PyDetection {
 }
 
 /// detect(study, mass_earth=(0.01, 5000), distance_au=(5, 500), nulls=1000, directions=768,
-/// distances=20, seed=1, reject_sigma=10.0, progress=None) -> Detection
+/// distances=20, seed=1, reject_sigma=10.0, near_ecliptic=None, progress=None) -> Detection
 ///
 /// Searches the study for an unseen perturber, as `latens infer`
 /// does before its posterior: the reference fit, the linear kernel, the
@@ -670,13 +670,15 @@ impl PyDetection {
 /// false-alarm probability (look-elsewhere included), the refinement on
 /// the full model, outliers judged against the best model
 /// (`reject_sigma`, None keeps every observation) and the verdict. The
-/// same seed gives the same numbers as the command line.
+/// same seed gives the same numbers as the command line. `near_ecliptic`
+/// (degrees) is a direction prior: only perturbers within that band about
+/// the ecliptic are searched (and later sampled), as `--near-ecliptic`.
 ///
 /// A study of several bodies is searched jointly for one shared perturber
 /// and gives a JointDetection (each body also searched alone, and the
 /// search repeated without the strongest body; every observation is used).
 #[pyfunction]
-#[pyo3(signature = (study, mass_earth=(0.01, 5000.0), distance_au=(5.0, 500.0), nulls=1000, directions=768, distances=20, seed=1, reject_sigma=Some(10.0), progress=None))]
+#[pyo3(signature = (study, mass_earth=(0.01, 5000.0), distance_au=(5.0, 500.0), nulls=1000, directions=768, distances=20, seed=1, reject_sigma=Some(10.0), near_ecliptic=None, progress=None))]
 #[allow(clippy::too_many_arguments)]
 fn detect(
     py: Python<'_>,
@@ -688,9 +690,13 @@ fn detect(
     distances: usize,
     seed: u64,
     reject_sigma: Option<f64>,
+    near_ecliptic: Option<f64>,
     progress: Option<Py<PyAny>>,
 ) -> PyResult<Py<PyAny>> {
-    let settings = detection_settings(py, mass_earth, distance_au, nulls, directions, distances, seed, reject_sigma)?;
+    let mut settings =
+        detection_settings(py, mass_earth, distance_au, nulls, directions, distances, seed, reject_sigma)?;
+    settings.search.near_ecliptic_deg = near_ecliptic;
+    settings.search.check_band().map_err(|e| bad_setting(py, format!("near_ecliptic: {e}")))?;
     let observer = PyObserver::new(progress);
     if study.inner.bodies.len() > 1 {
         let joint = JointSettings { search: settings.search, each_alone: true, leave_one_out: true };
@@ -1416,6 +1422,7 @@ fn sensitivity(
         n_directions: directions,
         n_distances: distances,
         seed,
+        near_ecliptic_deg: near_ecliptic,
         ..SearchSettings::default()
     };
     let plan = SensitivityPlan {
@@ -1425,7 +1432,7 @@ fn sensitivity(
             n_masses: grid.0,
             n_distances: grid.1,
             n_trials: trials,
-            max_ecliptic_latitude_deg: near_ecliptic,
+            near_ecliptic_deg: near_ecliptic,
             seed,
             min_separation_au: search.min_separation_au,
         },

@@ -374,6 +374,9 @@ pub struct InferSettingsFile {
     pub basin_delta_chi2: f64,
     /// The false-alarm probability below which a perturber counts as detected.
     pub fap_level: f64,
+    /// The direction prior: perturbers within this many degrees of the
+    /// ecliptic (heliocentric, at the reference epoch); null: the whole sky.
+    pub near_ecliptic_deg: Option<f64>,
     pub known_bodies: Vec<String>,
     pub folded_into_sun: Vec<String>,
     /// The GM (au^3/day^2) of the central mass about which the perturber's

@@ -119,7 +119,7 @@ pub fn refine(
     model: &ForceModel,
     ephemeris: &dyn Ephemeris,
     start: Perturber,
-    distance_au: (f64, f64),
+    searched: &super::search::SearchSettings,
 ) -> Result<Refinement, FitError> {
     let used: Vec<bool> = null.residuals.iter().map(|r| r.used).collect();
     let perturber_state = [
@@ -174,7 +174,10 @@ pub fn refine(
             // perturber bound to the Sun, pins the mass down to better than
             // 100%, and fits at least as well as the held-orbit fit (within 1
             // in chi-square).
+            let distance_au = searched.distance_au;
             let inside = (distance_au.0..=distance_au.1).contains(&p.position_au.norm());
+            let in_band =
+                super::search::orbit_in_band(p.position_au, p.velocity_au_per_day, searched.near_ecliptic_deg);
             if !bound {
                 Ok(held_summary("the 13-parameter fit drifted to an unbound perturber orbit".into()))
             } else if !inside {
@@ -183,6 +186,11 @@ pub fn refine(
                     p.position_au.norm(),
                     distance_au.0,
                     distance_au.1
+                )))
+            } else if !in_band {
+                Ok(held_summary(format!(
+                    "the 13-parameter fit drifted to an orbit leaving the searched band of {} deg about the ecliptic",
+                    searched.near_ecliptic_deg.unwrap_or(90.0)
                 )))
             } else if rep.condition_number < UNCONSTRAINED && relative_mass_error < 1.0 && rep.cost <= held.cost + 1.0 {
                 Ok(candidate)

@@ -20,7 +20,7 @@
 use argmin::core::{CostFunction, Error as ArgminError, Executor, State};
 use argmin::solver::neldermead::NelderMead;
 use faer::Mat;
-use rand::SeedableRng;
+use rand::{RngExt, SeedableRng};
 use rand_distr::{Distribution, StandardNormal};
 use rayon::prelude::*;
 
@@ -55,6 +55,12 @@ pub struct SearchSettings {
     /// The false-alarm probability below which a perturber counts as
     /// detected (default 0.0027, 3 sigma); at least 1/level nulls are needed.
     pub fap_level: f64,
+    /// A direction prior: only perturbers on orbits that keep within this
+    /// many degrees of the ecliptic (inclination at most this, prograde, or
+    /// at least 180 minus this, retrograde) are searched and sampled; the
+    /// grid's positions and orbit planes all satisfy it, and the null
+    /// simulations search the same hypotheses. None: every orbit.
+    pub near_ecliptic_deg: Option<f64>,
 }
 
 impl Default for SearchSettings {
@@ -76,8 +82,86 @@ impl Default for SearchSettings {
             n_null: 1000,
             seed: 1,
             fap_level: crate::pipeline::DETECTION_FAP,
+            near_ecliptic_deg: None,
         }
     }
+}
+
+impl SearchSettings {
+    /// The band must be a latitude in (0, 90] degrees.
+    pub fn check_band(&self) -> Result<(), String> {
+        match self.near_ecliptic_deg {
+            Some(b) if !(b > 0.0 && b <= 90.0) => {
+                Err(format!("the band about the ecliptic must be within (0, 90] degrees, got {b}"))
+            }
+            _ => Ok(()),
+        }
+    }
+
+    /// Whether a heliocentric ICRF state lies in the searched region: the
+    /// distance range and, when given, an orbit within the band.
+    pub fn contains(&self, position_au: Vec3, velocity_au_per_day: Vec3) -> bool {
+        (self.distance_au.0..=self.distance_au.1).contains(&position_au.norm())
+            && orbit_in_band(position_au, velocity_au_per_day, self.near_ecliptic_deg)
+    }
+}
+
+/// The ecliptic's north pole in ICRF.
+fn ecliptic_pole() -> Vec3 {
+    icrf_from_ecliptic(Vec3::new(0.0, 0.0, 1.0))
+}
+
+/// Whether the orbit through a heliocentric ICRF state keeps within
+/// `band_deg` of the ecliptic: |cos i| >= cos(band), prograde or
+/// retrograde (then every point of the orbit, this one included, lies at
+/// an ecliptic latitude of at most `band_deg`). Always, when None.
+pub fn orbit_in_band(position_au: Vec3, velocity_au_per_day: Vec3, band_deg: Option<f64>) -> bool {
+    let Some(band) = band_deg else { return true };
+    let n = position_au.cross(velocity_au_per_day);
+    let nn = n.norm();
+    nn > 0.0 && n.dot(ecliptic_pole()).abs() >= nn * band.to_radians().cos() - 1e-12
+}
+
+/// The share of isotropic orbit planes within `band_deg` of the ecliptic
+/// (prograde or retrograde): 1 - cos(band), or 1 when None. The orbit
+/// normal of an isotropic position and roll is isotropic, and the two
+/// polar caps of half-angle `band` hold 1 - cos(band) of the sphere.
+pub fn band_fraction(band_deg: Option<f64>) -> f64 {
+    band_deg.map_or(1.0, |b| 1.0 - b.clamp(0.0, 90.0).to_radians().cos())
+}
+
+/// A position direction and a tangential unit vector of motion drawn
+/// uniformly among orbits within `band_deg` of the ecliptic: the orbit
+/// normal isotropic within the two polar caps (|cos i| uniform on
+/// [cos band, 1], prograde or retrograde alike, node uniform), the
+/// position uniform around the orbit. Equal to an isotropic position and
+/// roll conditioned on the band.
+pub fn draw_in_band(band_deg: f64, rng: &mut impl rand::Rng) -> (Vec3, Vec3) {
+    let c = band_deg.clamp(0.0, 90.0).to_radians().cos();
+    let cos_i = c + (1.0 - c) * rng.random::<f64>();
+    let cos_i = if rng.random::<bool>() { cos_i } else { -cos_i };
+    let sin_i = (1.0f64 - cos_i * cos_i).max(0.0).sqrt();
+    let node = std::f64::consts::TAU * rng.random::<f64>();
+    let u = std::f64::consts::TAU * rng.random::<f64>();
+    // Ecliptic frame: the node's direction and the in-plane direction 90
+    // degrees along the orbit from it.
+    let a = Vec3::new(node.cos(), node.sin(), 0.0);
+    let b = Vec3::new(-node.sin() * cos_i, node.cos() * cos_i, sin_i);
+    let dir = a * u.cos() + b * u.sin();
+    let along = b * u.cos() - a * u.sin();
+    (icrf_from_ecliptic(dir), icrf_from_ecliptic(along))
+}
+
+/// The half-width (radians) of the roll angles about a position direction
+/// whose orbit planes lie within `band_deg` of the ecliptic, around each of
+/// the prograde (roll 0, eastward) and retrograde (roll pi) directions of
+/// the grid's tangent basis: |cos roll| >= cos(band) / cos(latitude). None
+/// when the position itself lies outside the band.
+pub fn band_roll_half_width(dir: Vec3, band_deg: f64) -> Option<f64> {
+    let sin_lat = dir.unit().dot(ecliptic_pole()).clamp(-1.0, 1.0);
+    let cos_lat = (1.0 - sin_lat * sin_lat).sqrt();
+    let c = band_deg.to_radians().cos() / cos_lat.max(1e-300);
+    (c <= 1.0).then(|| c.acos())
 }
 
 /// One perturber hypothesis: heliocentric ICRF state at the reference epoch.
@@ -151,12 +235,56 @@ pub fn fibonacci_directions(n: usize) -> Vec<Vec3> {
         .collect()
 }
 
+/// `n` nearly equal-area directions within `max_deg` of the ecliptic: a
+/// Fibonacci lattice on the band (ecliptic z uniform on +-sin(max_deg),
+/// longitude by the golden angle), in ICRF.
+pub fn band_directions(n: usize, max_deg: f64) -> Vec<Vec3> {
+    let golden = std::f64::consts::PI * (3.0 - 5.0f64.sqrt());
+    let top = max_deg.clamp(0.0, 90.0).to_radians().sin();
+    (0..n)
+        .map(|k| {
+            let z = top * (1.0 - (2.0 * k as f64 + 1.0) / n as f64);
+            let rho = (1.0 - z * z).sqrt();
+            let phi = golden * k as f64;
+            icrf_from_ecliptic(Vec3::new(rho * phi.cos(), rho * phi.sin(), z))
+        })
+        .collect()
+}
+
+/// The grid's directions: the whole sky, or the band when one is given
+/// (the same number of directions, so the band is searched more finely).
+pub fn search_directions(settings: &SearchSettings) -> Vec<Vec3> {
+    match settings.near_ecliptic_deg {
+        // The lattice's top row sits half a step inside the band.
+        Some(b) => band_directions(settings.n_directions, b),
+        None => fibonacci_directions(settings.n_directions),
+    }
+}
+
+/// The orbit-plane roll angles about `dir` the grid takes: evenly around
+/// the circle, or with a band, half of them spread over the prograde
+/// planes within it and half over the retrograde ones.
+fn orientations(settings: &SearchSettings, dir: Vec3) -> Vec<f64> {
+    let n = settings.n_orientations.max(1);
+    let Some(band) = settings.near_ecliptic_deg else {
+        return (0..n).map(|o| std::f64::consts::TAU * o as f64 / n as f64).collect();
+    };
+    let w = band_roll_half_width(dir, band).unwrap_or(0.0);
+    let per_side = (n / 2).max(1);
+    (0..2)
+        .flat_map(|side| {
+            (0..per_side)
+                .map(move |j| side as f64 * std::f64::consts::PI + w * (2.0 * (j as f64 + 0.5) / per_side as f64 - 1.0))
+        })
+        .collect()
+}
+
 /// All hypotheses of the grid, in a fixed order (directions outermost).
 pub fn hypotheses(settings: &SearchSettings, gm_sun: f64) -> Vec<Hypothesis> {
     let pole = icrf_from_ecliptic(Vec3::new(0.0, 0.0, 1.0));
     let (d0, d1) = settings.distance_au;
     let mut out = Vec::new();
-    for dir in fibonacci_directions(settings.n_directions) {
+    for dir in search_directions(settings) {
         // Tangent basis: e1 eastward along the ecliptic (prograde), e2 north.
         let mut e1 = pole.cross(dir);
         if e1.norm() < 1e-9 {
@@ -164,12 +292,12 @@ pub fn hypotheses(settings: &SearchSettings, gm_sun: f64) -> Vec<Hypothesis> {
         }
         let e1 = e1.unit();
         let e2 = dir.cross(e1);
+        let rolls = orientations(settings, dir);
         for i in 0..settings.n_distances {
             let f = if settings.n_distances > 1 { i as f64 / (settings.n_distances - 1) as f64 } else { 0.5 };
             let dist = d0 * (d1 / d0).powf(f);
             let vc = (gm_sun / dist).sqrt();
-            for o in 0..settings.n_orientations {
-                let psi = std::f64::consts::TAU * o as f64 / settings.n_orientations as f64;
+            for &psi in &rolls {
                 let t = e1 * psi.cos() + e2 * psi.sin();
                 for &s in &settings.speed_factors {
                     out.push(Hypothesis { position_au: dir * dist, velocity_au_per_day: t * (vc * s) });
@@ -283,10 +411,7 @@ pub fn grid_search<K: SignalKernel + ?Sized>(
     order.sort_by(|&a, &b| scored[b].delta_chi2.total_cmp(&scored[a].delta_chi2));
     let grid_best = order.first().map_or(0.0, |&i| scored[i].delta_chi2);
     let seeds = distinct(order.iter().map(|&i| scored[i]), 10.0, 1.5, f64::INFINITY, 64);
-    let mut refined: Vec<Scored> = seeds
-        .par_iter()
-        .map(|s| refine_in_kernel(kernel, s, gm_max, settings.min_separation_au, settings.distance_au))
-        .collect();
+    let mut refined: Vec<Scored> = seeds.par_iter().map(|s| refine_in_kernel(kernel, s, gm_max, settings)).collect();
     refined.sort_by(|a, b| b.delta_chi2.total_cmp(&a.delta_chi2));
     let basins = distinct(
         refined.into_iter(),
@@ -378,9 +503,8 @@ struct KernelCost<'k, K: ?Sized> {
     r0: f64,
     v0: f64,
     gm_max: f64,
-    min_sep: f64,
-    /// The searched heliocentric distance range (au): a hard bound.
-    distance_au: (f64, f64),
+    /// The searched region (distance range and band): a hard bound.
+    settings: &'k SearchSettings,
 }
 
 impl<K: SignalKernel + ?Sized> CostFunction for KernelCost<'_, K> {
@@ -392,12 +516,12 @@ impl<K: SignalKernel + ?Sized> CostFunction for KernelCost<'_, K> {
             position_au: Vec3::new(p[0], p[1], p[2]) * self.r0,
             velocity_au_per_day: Vec3::new(p[3], p[4], p[5]) * self.v0,
         };
-        let d = h.position_au.norm();
-        if !(self.distance_au.0..=self.distance_au.1).contains(&d) {
+        if !self.settings.contains(h.position_au, h.velocity_au_per_day) {
             return Ok(0.0);
         }
         let mut scratch = vec![0.0; self.kernel.n_residuals()];
-        Ok(score(self.kernel, &h, self.gm_max, self.min_sep, &mut scratch).map_or(0.0, |s| -s.delta_chi2))
+        Ok(score(self.kernel, &h, self.gm_max, self.settings.min_separation_au, &mut scratch)
+            .map_or(0.0, |s| -s.delta_chi2))
     }
 }
 
@@ -407,8 +531,7 @@ fn refine_in_kernel<K: SignalKernel + ?Sized>(
     kernel: &K,
     start: &Scored,
     gm_max: f64,
-    min_sep: f64,
-    distance_au: (f64, f64),
+    settings: &SearchSettings,
 ) -> Scored {
     let (r, v) = (start.hypothesis.position_au, start.hypothesis.velocity_au_per_day);
     let (r0, v0) = (r.norm(), v.norm());
@@ -419,7 +542,7 @@ fn refine_in_kernel<K: SignalKernel + ?Sized>(
         p[i] += if i < 3 { 0.04 } else { 0.08 };
         simplex.push(p);
     }
-    let cost = KernelCost { kernel, r0, v0, gm_max, min_sep, distance_au };
+    let cost = KernelCost { kernel, r0, v0, gm_max, settings };
     let Ok(solver) = NelderMead::new(simplex).with_sd_tolerance(1e-4) else {
         return *start;
     };
@@ -434,8 +557,8 @@ fn refine_in_kernel<K: SignalKernel + ?Sized>(
         velocity_au_per_day: Vec3::new(best[3], best[4], best[5]) * v0,
     };
     let mut scratch = vec![0.0; kernel.n_residuals()];
-    let inside = (distance_au.0..=distance_au.1).contains(&h.position_au.norm());
-    match score(kernel, &h, gm_max, min_sep, &mut scratch) {
+    let inside = settings.contains(h.position_au, h.velocity_au_per_day);
+    match score(kernel, &h, gm_max, settings.min_separation_au, &mut scratch) {
         Some(s) if inside && s.delta_chi2 > start.delta_chi2 => s,
         _ => *start,
     }
@@ -481,4 +604,105 @@ fn signal_subspace<K: SignalKernel + ?Sized>(
         }
     }
     svd.U().subcols(0, k).to_owned()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::frames::ecliptic_from_icrf;
+
+    fn latitude_deg(dir: Vec3) -> f64 {
+        ecliptic_from_icrf(dir.unit()).z.asin().to_degrees()
+    }
+
+    fn inclination_deg(r: Vec3, v: Vec3) -> f64 {
+        ecliptic_from_icrf(r.cross(v).unit()).z.acos().to_degrees()
+    }
+
+    #[test]
+    fn band_grid_holds_only_orbits_within_the_band() {
+        let settings = SearchSettings {
+            n_directions: 200,
+            n_distances: 3,
+            near_ecliptic_deg: Some(12.0),
+            ..SearchSettings::default()
+        };
+        let hyps = hypotheses(&settings, crate::units::GM_SUN_AU3_PER_DAY2);
+        assert_eq!(hyps.len(), 200 * 3 * 8 * 3);
+        for h in &hyps {
+            let i = inclination_deg(h.position_au, h.velocity_au_per_day);
+            assert!(i <= 12.0 + 1e-9 || i >= 168.0 - 1e-9, "inclination {i}");
+            assert!(latitude_deg(h.position_au).abs() <= 12.0 + 1e-9);
+            assert!(orbit_in_band(h.position_au, h.velocity_au_per_day, settings.near_ecliptic_deg));
+        }
+        // Both senses of motion, and the band's whole width of latitudes
+        // (equal area: about as many directions above 6 deg as the band's
+        // area there, (sin 12 - sin 6) / sin 12 = 49.7%).
+        assert!(hyps.iter().any(|h| inclination_deg(h.position_au, h.velocity_au_per_day) > 90.0));
+        let dirs = band_directions(200, 12.0);
+        let high = dirs.iter().filter(|d| latitude_deg(**d).abs() > 6.0).count();
+        assert!((high as f64 / 200.0 - 0.497).abs() < 0.02, "{high}");
+    }
+
+    #[test]
+    fn band_fraction_is_the_share_of_isotropic_orbit_planes() {
+        // Independent of the closed form 1 - cos(band): integrate over the
+        // position's latitude b (density cos b / 2) the share of uniform
+        // roll angles whose plane stays in the band, (2/pi) acos(cos B / cos b)
+        // (midpoint rule on a fine grid).
+        for band in [5.0f64, 20.0, 60.0, 90.0] {
+            let bb = band.to_radians();
+            let n = 200_000;
+            let h = 2.0 * bb / n as f64;
+            let integral: f64 = (0..n)
+                .map(|k| {
+                    let b = -bb + (k as f64 + 0.5) * h;
+                    let c = (bb.cos() / b.cos()).min(1.0);
+                    0.5 * b.cos() * std::f64::consts::FRAC_2_PI * c.acos() * h
+                })
+                .sum();
+            assert!((integral - band_fraction(Some(band))).abs() < 1e-4, "{band}: {integral}");
+        }
+        assert_eq!(band_fraction(None), 1.0);
+    }
+
+    #[test]
+    fn draws_in_the_band_are_isotropic_orbits_conditioned_on_it() {
+        // The constructive draw against rejection from isotropic states:
+        // the same distribution of |latitude| (quartiles within 0.3 deg).
+        let mut rng = rand::rngs::StdRng::seed_from_u64(5);
+        let band = 25.0;
+        let mut drawn: Vec<f64> = (0..20_000)
+            .map(|_| {
+                let (d, t) = draw_in_band(band, &mut rng);
+                assert!(orbit_in_band(d, t, Some(band)));
+                assert!(d.dot(t).abs() < 1e-12);
+                latitude_deg(d).abs()
+            })
+            .collect();
+        let mut rejected = Vec::new();
+        while rejected.len() < 20_000 {
+            let g = |rng: &mut rand::rngs::StdRng| -> f64 { StandardNormal.sample(rng) };
+            let d = Vec3::new(g(&mut rng), g(&mut rng), g(&mut rng)).unit();
+            let v = Vec3::new(g(&mut rng), g(&mut rng), g(&mut rng));
+            let t = v - d * d.dot(v);
+            if orbit_in_band(d, t, Some(band)) {
+                rejected.push(latitude_deg(d).abs());
+            }
+        }
+        drawn.sort_by(f64::total_cmp);
+        rejected.sort_by(f64::total_cmp);
+        for q in [5_000, 10_000, 15_000] {
+            assert!((drawn[q] - rejected[q]).abs() < 0.3, "quantile {q}: {} vs {}", drawn[q], rejected[q]);
+        }
+    }
+
+    #[test]
+    fn band_is_checked() {
+        let bad = SearchSettings { near_ecliptic_deg: Some(0.0), ..SearchSettings::default() };
+        assert!(bad.check_band().is_err());
+        let bad = SearchSettings { near_ecliptic_deg: Some(91.0), ..SearchSettings::default() };
+        assert!(bad.check_band().is_err());
+        assert!(SearchSettings::default().check_band().is_ok());
+    }
 }

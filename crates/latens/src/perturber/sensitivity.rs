@@ -34,9 +34,10 @@ pub struct SensitivitySettings {
     pub n_masses: usize,
     pub n_distances: usize,
     pub n_trials: usize,
-    /// Directions within this many degrees of the ecliptic only (None:
-    /// isotropic).
-    pub max_ecliptic_latitude_deg: Option<f64>,
+    /// Orbits within this many degrees of the ecliptic only (inclination
+    /// at most this, prograde or retrograde; None: isotropic), as
+    /// [`super::search::SearchSettings::near_ecliptic_deg`].
+    pub near_ecliptic_deg: Option<f64>,
     pub seed: u64,
     /// Hypotheses passing closer than this to the tracked body are redrawn, au.
     pub min_separation_au: f64,
@@ -117,24 +118,26 @@ pub fn configurations<K: SignalKernel + ?Sized>(
     let mut attempts = 0;
     while out.len() < settings.n_trials && attempts < 50 * settings.n_trials {
         attempts += 1;
-        let mut g = || -> f64 { StandardNormal.sample(&mut rng) };
-        let dir = Vec3::new(g(), g(), g()).unit();
-        if let Some(max_lat) = settings.max_ecliptic_latitude_deg {
-            // Near-ecliptic: redraw until within the latitude band.
-            if dir.dot(pole).abs() > max_lat.to_radians().sin() {
-                continue;
+        let (dir, t) = match settings.near_ecliptic_deg {
+            // Near-ecliptic: an orbit plane within the band, the position
+            // anywhere on it.
+            Some(band) => super::search::draw_in_band(band, &mut rng),
+            None => {
+                let mut g = || -> f64 { StandardNormal.sample(&mut rng) };
+                let dir = Vec3::new(g(), g(), g()).unit();
+                let mut e1 = pole.cross(dir);
+                if e1.norm() < 1e-9 {
+                    e1 = Vec3::new(1.0, 0.0, 0.0).cross(dir);
+                }
+                let e1 = e1.unit();
+                let e2 = dir.cross(e1);
+                let psi = std::f64::consts::TAU * rand_unit(&mut rng);
+                (dir, e1 * psi.cos() + e2 * psi.sin())
             }
-        }
+        };
         let r = dir * d;
-        let mut e1 = pole.cross(dir);
-        if e1.norm() < 1e-9 {
-            e1 = Vec3::new(1.0, 0.0, 0.0).cross(dir);
-        }
-        let e1 = e1.unit();
-        let e2 = dir.cross(e1);
-        let psi = std::f64::consts::TAU * rand_unit(&mut rng);
         let speed = (0.75 + 0.5 * rand_unit(&mut rng)) * (kernel.central_gm() / d).sqrt();
-        let v = (e1 * psi.cos() + e2 * psi.sin()) * speed;
+        let v = t * speed;
         let Some(orbit) = KeplerOrbit::from_state(kernel.central_gm(), r, v, kernel.epoch_tdb_days()) else {
             continue;
         };
@@ -261,7 +264,7 @@ mod tests {
             n_masses: 3,
             n_distances: 3,
             n_trials: 1,
-            max_ecliptic_latitude_deg: None,
+            near_ecliptic_deg: None,
             seed: 1,
             min_separation_au: 1.0,
         };

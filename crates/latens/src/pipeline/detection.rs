@@ -487,7 +487,7 @@ fn search(
             position_au: s.hypothesis.position_au,
             velocity_au_per_day: s.hypothesis.velocity_au_per_day,
         };
-        refine(&stage.null, &stage.observations, &stage.geometry, model, ephemeris, start, settings.distance_au)
+        refine(&stage.null, &stage.observations, &stage.geometry, model, ephemeris, start, settings)
     };
     observer.note("Refining the best solution on the full nonlinear model...");
     let mut current = match refine_from(&best, &stage) {

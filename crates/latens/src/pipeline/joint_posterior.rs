@@ -85,6 +85,7 @@ pub fn posterior_joint(
         distance_au: search_settings.distance_au,
         max_eccentricity: settings.max_eccentricity,
         min_separation_au: search_settings.min_separation_au,
+        near_ecliptic_deg: search_settings.near_ecliptic_deg,
     };
     let basins = &detection.search.basins;
     if !settings.sample || basins.is_empty() {

@@ -338,6 +338,10 @@ pub(super) fn fingerprint(residuals: &[f64], prior: &PerturberPrior, settings: &
         eat(v);
     }
     eat(prior.min_separation_au);
+    if let Some(band) = prior.near_ecliptic_deg {
+        // Only when given, so checkpoints of whole-sky runs stay valid.
+        eat(band);
+    }
     eat(settings.seed as f64);
     format!("{h:016x}")
 }
@@ -381,6 +385,7 @@ pub fn posterior(
         distance_au: search_settings.distance_au,
         max_eccentricity: settings.max_eccentricity,
         min_separation_au: search_settings.min_separation_au,
+        near_ecliptic_deg: search_settings.near_ecliptic_deg,
     };
     if !settings.sample || detection.basins.is_empty() {
         return Ok(PosteriorOutcome { explanation: explain(None, &alternatives), alternatives, run: None, warnings });

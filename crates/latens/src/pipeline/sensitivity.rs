@@ -44,6 +44,14 @@ impl SensitivityPlan {
         if self.search.n_directions < 12 || self.search.n_distances < 2 || self.search.n_null < 20 {
             return bad("--directions >= 12, --distances >= 2 and --nulls >= 20 are needed");
         }
+        if let Err(e) = self.search.check_band() {
+            return Err(PipelineError::Input(format!("--near-ecliptic: {e}")));
+        }
+        if let Some(b) = m.near_ecliptic_deg
+            && self.search.near_ecliptic_deg != Some(b)
+        {
+            return bad("the map's band and its threshold search's band must agree");
+        }
         if let Some((k, n)) = self.shard
             && (n == 0 || k == 0 || k > n)
         {

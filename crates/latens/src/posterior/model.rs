@@ -52,6 +52,10 @@ pub struct PerturberPrior {
     pub distance_au: (f64, f64),
     pub max_eccentricity: f64,
     pub min_separation_au: f64,
+    /// A direction prior: orbits within this many degrees of the ecliptic
+    /// (prograde or retrograde), the whole prior conditioned on it; None:
+    /// every orbit.
+    pub near_ecliptic_deg: Option<f64>,
 }
 
 /// K(e) = integral over f in [0, 2 pi) of (1 + e cos f)^(-1/2) for
@@ -167,6 +171,10 @@ impl<'k, K: SignalKernel + ?Sized> PerturberPosterior<'k, K> {
             let dir = random_unit(rng);
             let pos = dir * r;
             let v = draw_velocity(pos, self.gm_sun, p.max_eccentricity, rng);
+            // The band by rejection (1 - cos(band) of the draws pass).
+            if !crate::perturber::search::orbit_in_band(pos, v, p.near_ecliptic_deg) {
+                continue;
+            }
             let x =
                 PerturberSample { gm_au3_per_day2: ln_m.exp() * gm_earth(), position_au: pos, velocity_au_per_day: v }
                     .to_params();
@@ -270,7 +278,13 @@ impl<K: SignalKernel + ?Sized> Target for PerturberPosterior<'_, K> {
         }
         // Velocity in au/day; the density is per (au/year)^3.
         let v = Vec3::new(x[4], x[5], x[6]) / JULIAN_YEAR_DAYS;
-        -(m1 - m0).ln() - (4.0 * std::f64::consts::PI * rn.powi(3) * (p.distance_au.1 / p.distance_au.0).ln()).ln()
+        // The band: the prior conditioned on it, so divided by its share.
+        if !crate::perturber::search::orbit_in_band(r, v, p.near_ecliptic_deg) {
+            return f64::NEG_INFINITY;
+        }
+        let band = crate::perturber::search::band_fraction(p.near_ecliptic_deg);
+        -(m1 - m0).ln()
+            - (4.0 * std::f64::consts::PI * band * rn.powi(3) * (p.distance_au.1 / p.distance_au.0).ln()).ln()
             + velocity_log_density(r, v, self.gm_sun, p.max_eccentricity)
             - 3.0 * JULIAN_YEAR_DAYS.ln()
     }
@@ -386,5 +400,64 @@ mod tests {
         }
         let (a, b) = (radial_sum / n as f64, wr_sum / w_sum);
         assert!((a - b).abs() < 0.01 * a.max(b) + 2e-3, "mean |u_r|: draws {a}, weighted ball {b}");
+    }
+
+    /// A kernel with no data: the likelihood is flat, so the posterior is
+    /// the prior (for checks of the prior alone).
+    struct Flat;
+
+    impl SignalKernel for Flat {
+        fn epoch_tdb_days(&self) -> f64 {
+            0.0
+        }
+        fn central_gm(&self) -> f64 {
+            GM_SUN_AU3_PER_DAY2
+        }
+        fn n_residuals(&self) -> usize {
+            0
+        }
+        fn residuals(&self) -> &[f64] {
+            &[]
+        }
+        fn signal(&self, _orbit: &KeplerOrbit, _out: &mut [f64]) -> f64 {
+            f64::INFINITY
+        }
+        fn project(&self, _signal: &mut [f64]) {}
+    }
+
+    /// The band prior is the whole prior conditioned on orbits within the
+    /// band: whole-sky draws land in it 1 - cos(band) of the time (the
+    /// roll about the position is uniform), band draws all do, and inside
+    /// it the density is the whole prior's divided by that share.
+    #[test]
+    fn the_band_prior_is_the_whole_prior_conditioned_on_it() {
+        let band = 20.0f64;
+        let range = PerturberPrior {
+            mass_earth: (1.0, 100.0),
+            distance_au: (10.0, 200.0),
+            max_eccentricity: 0.6,
+            min_separation_au: 0.0,
+            near_ecliptic_deg: None,
+        };
+        let whole = PerturberPosterior::new(&Flat, range);
+        let banded = PerturberPosterior::new(&Flat, PerturberPrior { near_ecliptic_deg: Some(band), ..range });
+        let mut rng = rand::rngs::StdRng::seed_from_u64(11);
+        let n = 40_000;
+        let share = 1.0 - band.to_radians().cos();
+        let mut inside = 0;
+        for _ in 0..n {
+            let x = whole.draw_prior(&mut rng);
+            let (lw, lb) = (whole.log_prior(&x), banded.log_prior(&x));
+            assert!(lw.is_finite());
+            if lb.is_finite() {
+                inside += 1;
+                assert!((lb - lw + share.ln()).abs() < 1e-9, "{lb} {lw}");
+            }
+            let y = banded.draw_prior(&mut rng);
+            assert!(banded.log_prior(&y).is_finite());
+        }
+        let sd = (share * (1.0 - share) / n as f64).sqrt();
+        let got = inside as f64 / n as f64;
+        assert!((got - share).abs() < 4.0 * sd, "{got} of whole-sky draws in the band, expected {share}");
     }
 }
