@@ -641,3 +641,24 @@ fn quiet_runs_print_nothing_but_warnings() {
     let _ = child.wait();
     assert!(first.starts_with("warning: ") && first.contains("1650-02-10"), "{first}");
 }
+
+/// `--json`: standard output is one JSON document (pandas/`json.loads`
+/// ready) naming the command, the files it wrote as outputs.json lists
+/// them, and its main result, equal to the fit.json on disk.
+#[test]
+fn json_runs_print_one_document_with_the_result() {
+    let case = Case::new("json");
+    let obs = case.file("obs.csv", format!("{HEADER}{}", good_rows()).as_bytes());
+    let (code, out, err) = case.run_with_output(&obs, &["--known", "none", "--json"]);
+    assert_eq!(code, Some(0), "{err}");
+    assert!(err.lines().all(|l| l.starts_with("warning: ")), "{err}");
+    let doc: serde_json::Value = serde_json::from_str(&out).unwrap_or_else(|e| panic!("{e}: {out}"));
+    assert_eq!(doc["command"], "residuals");
+    let dir = case.dir.join("out");
+    let fit: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(dir.join("fit.json")).unwrap()).unwrap();
+    assert_eq!(doc["result"], fit);
+    let mut listed: Vec<&str> = doc["files"].as_array().unwrap().iter().map(|f| f["file"].as_str().unwrap()).collect();
+    listed.sort();
+    assert_eq!(listed, ["fit.json", "residuals.csv", "residuals.png", "residuals.svg"]);
+    assert!(std::path::Path::new(doc["out"].as_str().unwrap()).join("fit.json").is_file());
+}

@@ -22,6 +22,12 @@ pub struct Args {
     /// errors as always.
     #[arg(long, short = 'q', global = true)]
     pub quiet: bool,
+    /// As --quiet, then one JSON document on standard output: the command,
+    /// the output directory, the files written (as outputs.json lists them)
+    /// and the command's main result (infer: summary.json, residuals:
+    /// fit.json, sensitivity: sensitivity.json, simulate: truth.json).
+    #[arg(long, global = true)]
+    pub json: bool,
 }
 
 /// The chart files the commands write (`--charts`).

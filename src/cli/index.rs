@@ -143,9 +143,9 @@ fn written_since(dir: &Path, since: SystemTime) -> Vec<PathBuf> {
 
 /// Writes (or updates) `dir/outputs.json` with what `command` wrote there
 /// since `started`: files the catalogue knows, with their descriptions.
-pub fn write_index(dir: &Path, command: &str, started: SystemTime) -> anyhow::Result<()> {
+pub fn write_index(dir: &Path, command: &str, started: SystemTime) -> anyhow::Result<Option<RunRecord>> {
     if !dir.is_dir() {
-        return Ok(());
+        return Ok(None);
     }
     let files: Vec<IndexedFile> = written_since(dir, started)
         .into_iter()
@@ -179,10 +179,12 @@ pub fn write_index(dir: &Path, command: &str, started: SystemTime) -> anyhow::Re
     let finished = latens::time::utc_iso_from_epoch(
         hifitime::Epoch::now().map_err(|e| anyhow::anyhow!("reading the clock: {e}"))?,
     );
-    index.runs.push(RunRecord { command: command.to_string(), finished_utc: finished, files });
+    let record = RunRecord { command: command.to_string(), finished_utc: finished, files };
+    index.runs.push(record.clone());
     index.latens_version = env!("CARGO_PKG_VERSION").to_string();
     let json = serde_json::to_string_pretty(&index)? + "\n";
-    Ok(write_atomically(&path, json.as_bytes())?)
+    write_atomically(&path, json.as_bytes())?;
+    Ok(Some(record))
 }
 
 #[cfg(test)]

@@ -159,7 +159,7 @@ pub(crate) fn and_chart(stem: &str) -> String {
 
 fn run(args: Args) -> Result<(), CliError> {
     let _ = CHART_FORMATS.set(args.charts);
-    QUIET.store(args.quiet, std::sync::atomic::Ordering::Relaxed);
+    QUIET.store(args.quiet || args.json, std::sync::atomic::Ordering::Relaxed);
     if let Some(n) = args.threads {
         if n == 0 {
             return Err(CliError::bad_input(anyhow::anyhow!("--threads must be at least 1")));
@@ -185,6 +185,14 @@ fn run(args: Args) -> Result<(), CliError> {
         Command::Predict(p) => (p.out.clone().unwrap_or_else(|| p.from.clone()), "predict".into()),
         Command::Simulate(s) => (s.out.clone(), "simulate".into()),
     };
+    // The command's main result, for --json.
+    let main_file = match &args.command {
+        Command::Infer(_) => Some("summary.json"),
+        Command::Residuals(_) => Some("fit.json"),
+        Command::Sensitivity(s) if s.shard.is_none() => Some("sensitivity.json"),
+        Command::Simulate(_) => Some("truth.json"),
+        _ => None,
+    };
     match args.command {
         Command::Demo(demo_args) => demo::run(&demo_args),
         Command::Residuals(r) => residuals::run(&r),
@@ -193,7 +201,23 @@ fn run(args: Args) -> Result<(), CliError> {
         Command::Predict(p) => predict::run(&p),
         Command::Simulate(s) => simulate::run(&s),
     }?;
-    index::write_index(&out, &label, started).map_err(CliError::failed)
+    let record = index::write_index(&out, &label, started).map_err(CliError::failed)?;
+    if args.json {
+        let result = main_file
+            .and_then(|f| std::fs::read_to_string(out.join(f)).ok())
+            .and_then(|t| serde_json::from_str::<serde_json::Value>(&t).ok())
+            .unwrap_or(serde_json::Value::Null);
+        let doc = serde_json::json!({
+            "command": label,
+            "out": out.to_string_lossy(),
+            "files": record.map(|r| r.files).unwrap_or_default(),
+            "result": result,
+        });
+        let text = serde_json::to_string_pretty(&doc).map_err(|e| CliError::failed(anyhow::anyhow!(e)))?;
+        use std::io::Write as _;
+        writeln!(std::io::stdout(), "{text}").map_err(|e| CliError::failed(anyhow::anyhow!(e)))?;
+    }
+    Ok(())
 }
 
 fn is_broken_pipe(error: &anyhow::Error) -> bool {
