@@ -391,6 +391,17 @@ fn unit(ra: f64, dec: f64) -> latens::vec3::Vec3 {
     latens::vec3::Vec3::new(d.cos() * a.cos(), d.cos() * a.sin(), d.sin())
 }
 
+/// The simulated planet's place at the search epoch (`sim`'s truth.json)
+/// lies in the 90% region `infer` wrote into `found`.
+fn assert_truth_in_region90(sim: &std::path::Path, found: &std::path::Path) {
+    let truth: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(sim.join("truth.json")).unwrap()).unwrap();
+    let p = &truth["perturber"]["at_search_epoch"];
+    let d = unit(p["ra_deg"].as_f64().unwrap(), p["dec_deg"].as_f64().unwrap());
+    let moc = std::fs::read_to_string(found.join("region90.json")).unwrap();
+    assert!(latens::skymap::moc_json_contains(&moc, d).unwrap(), "the truth is outside the 90% region: {p}");
+}
+
 #[test]
 fn reduced_demo_end_to_end_finds_the_planet_and_its_place() {
     // The demo scenario cut to ten years with a visit every 10 days, a small
@@ -427,12 +438,7 @@ fn reduced_demo_end_to_end_finds_the_planet_and_its_place() {
             serde_json::from_str(&std::fs::read_to_string(found.join("summary.json")).unwrap()).unwrap();
         assert_eq!(v["detection"]["detected"].as_bool(), Some(planet), "{}", v["detection"]);
         if planet {
-            let truth: serde_json::Value =
-                serde_json::from_str(&std::fs::read_to_string(sim.join("truth.json")).unwrap()).unwrap();
-            let p = &truth["perturber"]["at_search_epoch"];
-            let d = unit(p["ra_deg"].as_f64().unwrap(), p["dec_deg"].as_f64().unwrap());
-            let moc = std::fs::read_to_string(found.join("region90.json")).unwrap();
-            assert!(latens::skymap::moc_json_contains(&moc, d).unwrap(), "the truth is outside the 90% region: {p}");
+            assert_truth_in_region90(&sim, &found);
             assert_eq!(v["explanation"]["best"], "an unseen perturber", "{}", v["explanation"]);
         }
     }
@@ -475,12 +481,7 @@ fn a_band_about_the_ecliptic_keeps_search_and_posterior_in_it() {
     assert!(incs.len() > 100);
     let outside: Vec<&f64> = incs.iter().filter(|&&i| !in_band(i)).collect();
     assert!(outside.is_empty(), "{} posterior samples outside the band, e.g. {:?}", outside.len(), &outside[..1]);
-    let truth: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(demo.join("truth.json")).unwrap()).unwrap();
-    let p = &truth["perturber"]["at_search_epoch"];
-    let d = unit(p["ra_deg"].as_f64().unwrap(), p["dec_deg"].as_f64().unwrap());
-    let moc = std::fs::read_to_string(out_dir.join("region90.json")).unwrap();
-    assert!(latens::skymap::moc_json_contains(&moc, d).unwrap(), "the truth is outside the 90% region: {p}");
+    assert_truth_in_region90(demo, &out_dir);
     std::fs::remove_dir_all(&out_dir).unwrap();
 }
 

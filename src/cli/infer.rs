@@ -475,7 +475,9 @@ pub(super) fn execute(plan: &InferPlan) -> Result<InferSummary, CliError> {
             d.distance_au,
             d.solar_elongation_deg,
             // The basins follow the fit; the posterior keeps to the prior.
-            if d.e > posterior_settings.max_eccentricity {
+            // (With a margin: the prior's limit is about the kernel's
+            // central mass, the file's elements about the Sun's.)
+            if d.e > posterior_settings.max_eccentricity + 0.005 {
                 format!(
                     " (eccentricity {:.2}, beyond the prior's {}: not in the posterior)",
                     d.e, posterior_settings.max_eccentricity
@@ -620,8 +622,9 @@ fn describe(
 
 /// Within this much of the best chi-square drop a solution is as good a
 /// fit as the data can tell: the 90% quantile of chi-square with 7
-/// degrees of freedom (the perturber's mass and state), 12.02 (common
-/// practice: a joint confidence region over all fitted parameters).
+/// degrees of freedom (the perturber's mass and state), 12.02
+/// (scipy.stats.chi2.ppf(0.9, 7) = 12.017; using the joint confidence
+/// region over all fitted parameters is common practice).
 const AS_GOOD_DELTA_CHI2: f64 = 12.02;
 
 /// Warnings for basins inside the prior (eccentricity at most `e_max`)
@@ -642,7 +645,7 @@ fn left_out(
     described
         .iter()
         .enumerate()
-        .filter(|(_, b)| b.delta_chi2 >= best - AS_GOOD_DELTA_CHI2 && b.e <= e_max)
+        .filter(|(_, b)| b.delta_chi2 >= best - AS_GOOD_DELTA_CHI2 && b.e <= e_max + 0.005)
         .filter_map(|(k, b)| {
             let off_mass = b.mass_earth < mass.lo95 || b.mass_earth > mass.hi95;
             let off_sky = region90.is_some_and(|text| {

@@ -107,7 +107,7 @@ impl SearchSettings {
 }
 
 /// The ecliptic's north pole in ICRF.
-fn ecliptic_pole() -> Vec3 {
+pub fn ecliptic_pole() -> Vec3 {
     icrf_from_ecliptic(Vec3::new(0.0, 0.0, 1.0))
 }
 
@@ -224,10 +224,17 @@ impl SearchResult {
 
 /// Unit vectors of a Fibonacci lattice: `n` nearly equal-area directions.
 pub fn fibonacci_directions(n: usize) -> Vec<Vec3> {
+    fibonacci_zone(n, 1.0)
+}
+
+/// A Fibonacci lattice of `n` nearly equal-area directions on the zone
+/// |z| <= `top` (z uniform, longitude by the golden angle); the whole
+/// sphere when `top` is 1.
+fn fibonacci_zone(n: usize, top: f64) -> Vec<Vec3> {
     let golden = std::f64::consts::PI * (3.0 - 5.0f64.sqrt());
     (0..n)
         .map(|k| {
-            let z = 1.0 - (2.0 * k as f64 + 1.0) / n as f64;
+            let z = top * (1.0 - (2.0 * k as f64 + 1.0) / n as f64);
             let rho = (1.0 - z * z).sqrt();
             let phi = golden * k as f64;
             Vec3::new(rho * phi.cos(), rho * phi.sin(), z)
@@ -239,16 +246,7 @@ pub fn fibonacci_directions(n: usize) -> Vec<Vec3> {
 /// Fibonacci lattice on the band (ecliptic z uniform on +-sin(max_deg),
 /// longitude by the golden angle), in ICRF.
 pub fn band_directions(n: usize, max_deg: f64) -> Vec<Vec3> {
-    let golden = std::f64::consts::PI * (3.0 - 5.0f64.sqrt());
-    let top = max_deg.clamp(0.0, 90.0).to_radians().sin();
-    (0..n)
-        .map(|k| {
-            let z = top * (1.0 - (2.0 * k as f64 + 1.0) / n as f64);
-            let rho = (1.0 - z * z).sqrt();
-            let phi = golden * k as f64;
-            icrf_from_ecliptic(Vec3::new(rho * phi.cos(), rho * phi.sin(), z))
-        })
-        .collect()
+    fibonacci_zone(n, max_deg.clamp(0.0, 90.0).to_radians().sin()).into_iter().map(icrf_from_ecliptic).collect()
 }
 
 /// The grid's directions: the whole sky, or the band when one is given
@@ -281,7 +279,7 @@ fn orientations(settings: &SearchSettings, dir: Vec3) -> Vec<f64> {
 
 /// All hypotheses of the grid, in a fixed order (directions outermost).
 pub fn hypotheses(settings: &SearchSettings, gm_sun: f64) -> Vec<Hypothesis> {
-    let pole = icrf_from_ecliptic(Vec3::new(0.0, 0.0, 1.0));
+    let pole = ecliptic_pole();
     let (d0, d1) = settings.distance_au;
     let mut out = Vec::new();
     for dir in search_directions(settings) {

@@ -23,7 +23,6 @@ use rand::SeedableRng;
 use rand_distr::{Distribution, StandardNormal};
 
 use super::kernel::{KeplerOrbit, SignalKernel};
-use crate::frames::icrf_from_ecliptic;
 use crate::vec3::Vec3;
 
 /// The map's grid and draws.
@@ -111,7 +110,7 @@ pub fn configurations<K: SignalKernel + ?Sized>(
     di: usize,
 ) -> Vec<Configuration> {
     let d = log_grid(settings.distance_au, settings.n_distances, di);
-    let pole = icrf_from_ecliptic(Vec3::new(0.0, 0.0, 1.0));
+    let pole = super::search::ecliptic_pole();
     let mut rng = rand::rngs::StdRng::seed_from_u64(settings.seed.wrapping_mul(0x9E37_79B9).wrapping_add(di as u64));
     let mut out = Vec::with_capacity(settings.n_trials);
     let mut signal = vec![0.0; kernel.n_residuals()];
