@@ -402,6 +402,35 @@ fn assert_truth_in_region90(sim: &std::path::Path, found: &std::path::Path) {
     assert!(latens::skymap::moc_json_contains(&moc, d).unwrap(), "the truth is outside the 90% region: {p}");
 }
 
+/// summary.json's judgement of each basin against the posterior agrees with
+/// the files written: its place with the basin's, "in the 90% region" with
+/// region90.json read back as a MOC, "in the 95% mass interval" with the
+/// posterior's interval; and a basin in the prior, as good as the best and
+/// left out is named in a warning.
+fn assert_basin_standing_matches_files(found: &std::path::Path) {
+    let v: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(found.join("summary.json")).unwrap()).unwrap();
+    let moc = std::fs::read_to_string(found.join("region90.json")).unwrap();
+    let (basins, standing) = (v["basins"].as_array().unwrap(), v["sky"]["basins"].as_array().unwrap());
+    assert_eq!(basins.len(), standing.len());
+    let mass = &v["posterior"]["mass_earth"];
+    let (lo, hi) = (mass["lo95"].as_f64().unwrap(), mass["hi95"].as_f64().unwrap());
+    let warnings = v["warnings"].as_array().unwrap();
+    for (b, s) in basins.iter().zip(standing) {
+        let f = |x: &serde_json::Value, k: &str| x[k].as_f64().unwrap();
+        assert!((f(b, "ra_deg") - f(s, "ra_deg")).abs() < 1e-6 && (f(b, "dec_deg") - f(s, "dec_deg")).abs() < 1e-6);
+        let inside = latens::skymap::moc_json_contains(&moc, unit(f(s, "ra_deg"), f(s, "dec_deg"))).unwrap();
+        assert_eq!(s["in_region90"].as_bool(), Some(inside), "{s}");
+        assert_eq!(s["in_mass_interval95"].as_bool(), Some((lo..=hi).contains(&f(s, "mass_earth"))), "{s}");
+        let left_out = s["in_prior"].as_bool().unwrap()
+            && s["as_good_as_best"].as_bool().unwrap()
+            && !(s["in_region90"].as_bool().unwrap() && s["in_mass_interval95"].as_bool().unwrap());
+        let named = format!("basin {} (", s["basin"]);
+        let warned = warnings.iter().any(|w| w.as_str().unwrap().starts_with(&named));
+        assert_eq!(warned, left_out, "{s}\n{warnings:#?}");
+    }
+}
+
 #[test]
 fn reduced_demo_end_to_end_finds_the_planet_and_its_place() {
     // The demo scenario cut to ten years with a visit every 10 days, a small
@@ -439,6 +468,7 @@ fn reduced_demo_end_to_end_finds_the_planet_and_its_place() {
         assert_eq!(v["detection"]["detected"].as_bool(), Some(planet), "{}", v["detection"]);
         if planet {
             assert_truth_in_region90(&sim, &found);
+            assert_basin_standing_matches_files(&found);
             assert_eq!(v["explanation"]["best"], "an unseen perturber", "{}", v["explanation"]);
         }
     }
@@ -482,6 +512,7 @@ fn a_band_about_the_ecliptic_keeps_search_and_posterior_in_it() {
     let outside: Vec<&f64> = incs.iter().filter(|&&i| !in_band(i)).collect();
     assert!(outside.is_empty(), "{} posterior samples outside the band, e.g. {:?}", outside.len(), &outside[..1]);
     assert_truth_in_region90(demo, &out_dir);
+    assert_basin_standing_matches_files(&out_dir);
     std::fs::remove_dir_all(&out_dir).unwrap();
 }
 

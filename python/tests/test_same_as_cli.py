@@ -96,6 +96,10 @@ def test_sky_products_match_the_command_files(cli_infer, py_run):
         return
     sky = latens.sky_products(study, det, post)
     assert sky.summary == summary["sky"]
+    # Each basin judged against the posterior, and the warnings that name
+    # the basins it leaves out, as the command gives them.
+    assert sky.basins == summary["sky"]["basins"] and len(sky.basins) == len(summary["basins"])
+    assert all(w in summary["warnings"] for w in sky.warnings)
     from astropy.table import Table
 
     t = Table.read(out / "skymap.fits")

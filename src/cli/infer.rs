@@ -385,9 +385,6 @@ pub(super) fn execute(plan: &InferPlan) -> Result<InferSummary, CliError> {
         let run = stage.result.run.as_ref().expect("samples come from a run");
         let s = super::search::run(out, &study, &detection, run, &stage.result.explanation, truth.as_ref())?;
         warnings.extend(s.warnings.iter().cloned());
-        let region90 = std::fs::read_to_string(out.join("region90.json")).ok();
-        let e_max = posterior_settings.max_eccentricity;
-        warnings.extend(left_out(&described, &run.summary.mass_earth, region90.as_deref(), e_max));
         Some(s)
     };
 
@@ -461,7 +458,10 @@ pub(super) fn execute(plan: &InferPlan) -> Result<InferSummary, CliError> {
         settings.min_separation_au
     );
     let _ = writeln!(text, "Verdict: {verdict}");
-    for (k, d) in described.iter().enumerate() {
+    for (k, (d, b)) in described.iter().zip(basins).enumerate() {
+        // The basins follow the fit; the posterior keeps to the prior (its
+        // eccentricity about the kernel's central mass).
+        let e = latens::pipeline::basin_eccentricity(b, kernel.central_gm());
         let _ = writeln!(
             text,
             "  basin {}: delta chi2 {:.1}, {:.2} Earth masses {:.0} au from the Sun at the reference epoch; at the search epoch \
@@ -474,13 +474,10 @@ pub(super) fn execute(plan: &InferPlan) -> Result<InferSummary, CliError> {
             d.dec_deg,
             d.distance_au,
             d.solar_elongation_deg,
-            // The basins follow the fit; the posterior keeps to the prior.
-            // (With a margin: the prior's limit is about the kernel's
-            // central mass, the file's elements about the Sun's.)
-            if d.e > posterior_settings.max_eccentricity + 0.005 {
+            if e > posterior_settings.max_eccentricity {
                 format!(
-                    " (eccentricity {:.2}, beyond the prior's {}: not in the posterior)",
-                    d.e, posterior_settings.max_eccentricity
+                    " (eccentricity {e:.2} about the central mass, beyond the prior's {}: not in the posterior)",
+                    posterior_settings.max_eccentricity
                 )
             } else {
                 String::new()
@@ -618,59 +615,6 @@ fn describe(
         linearisation_error_arcsec: err_arcsec,
         linearisation_error_fraction: err_fraction,
     })
-}
-
-/// Within this much of the best chi-square drop a solution is as good a
-/// fit as the data can tell: the 90% quantile of chi-square with 7
-/// degrees of freedom (the perturber's mass and state), 12.02
-/// (scipy.stats.chi2.ppf(0.9, 7) = 12.017; using the joint confidence
-/// region over all fitted parameters is common practice).
-const AS_GOOD_DELTA_CHI2: f64 = 12.02;
-
-/// Warnings for basins inside the prior (eccentricity at most `e_max`)
-/// that fit about as well as the best but that the posterior leaves out:
-/// outside its central 95% mass interval or outside the 90% sky region
-/// (`region90`, the MOC JSON written). The posterior
-/// weighs each solution by its prior volume as well as its fit, and a
-/// light perturber passing close to the body fits sharply where heavier,
-/// farther ones fit broadly; measured on the demo scenario over noise
-/// seeds (docs/validation.md), the true planet was often such a basin.
-fn left_out(
-    described: &[PerturberFile],
-    mass: &latens::io::results::IntervalFile,
-    region90: Option<&str>,
-    e_max: f64,
-) -> Vec<String> {
-    let Some(best) = described.first().map(|b| b.delta_chi2) else { return Vec::new() };
-    described
-        .iter()
-        .enumerate()
-        .filter(|(_, b)| b.delta_chi2 >= best - AS_GOOD_DELTA_CHI2 && b.e <= e_max + 0.005)
-        .filter_map(|(k, b)| {
-            let off_mass = b.mass_earth < mass.lo95 || b.mass_earth > mass.hi95;
-            let off_sky = region90.is_some_and(|text| {
-                let d = latens::frames::vector_from_radec_deg(b.ra_deg, b.dec_deg);
-                latens::skymap::moc_json_contains(text, d).is_ok_and(|inside| !inside)
-            });
-            let what = match (off_mass, off_sky) {
-                (true, true) => format!("the 95% mass interval ({:.2}-{:.2}) and the 90% region", mass.lo95, mass.hi95),
-                (true, false) => format!("the 95% mass interval ({:.2}-{:.2})", mass.lo95, mass.hi95),
-                (false, true) => "the 90% region".to_string(),
-                (false, false) => return None,
-            };
-            Some(format!(
-                "basin {} ({:.2} Earth masses, RA {:.2} deg, Dec {:+.2} deg) fits within {:.1} in chi-square of the best \
-                 (within {AS_GOOD_DELTA_CHI2}, as good as these data can tell) but lies outside {what}: the posterior \
-                 weighs solutions by their prior volume too, and heavier, farther perturbers fit more broadly than a \
-                 light one passing close to the body; if the region is searched in vain, look there too",
-                k + 1,
-                b.mass_earth,
-                b.ra_deg,
-                b.dec_deg,
-                best - b.delta_chi2
-            ))
-        })
-        .collect()
 }
 
 /// The search settings as summary.json records them.
@@ -887,61 +831,4 @@ pub(super) fn upper_limits(
             })
         })
         .collect()
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-    use latens::io::results::IntervalFile;
-
-    fn basin(delta_chi2: f64, mass_earth: f64, e: f64, ra_deg: f64, dec_deg: f64) -> PerturberFile {
-        PerturberFile {
-            chi2: 1000.0 - delta_chi2,
-            delta_chi2,
-            mass_earth,
-            frame: String::new(),
-            epoch_tdb_jd: 2460000.5,
-            a_au: 40.0,
-            e,
-            inc_deg: 10.0,
-            node_deg: 0.0,
-            peri_deg: 0.0,
-            mean_anomaly_deg: 0.0,
-            state_icrf: [40.0, 0.0, 0.0, 0.0, 0.0027, 0.0],
-            ra_deg,
-            dec_deg,
-            distance_au: 40.0,
-            heliocentric_distance_au: 40.0,
-            solar_elongation_deg: 120.0,
-            closest_approach_to_tracked_body_au: 5.0,
-            linearisation_error_arcsec: 0.0,
-            linearisation_error_fraction: 0.0,
-        }
-    }
-
-    /// Basins as good as the best (within 12.02) and inside the prior are
-    /// named when the posterior leaves them out, by mass or by place; a
-    /// worse fit or one beyond the prior's eccentricity is not.
-    #[test]
-    fn basins_as_good_as_the_best_that_the_posterior_leaves_out_are_named() {
-        let mass = IntervalFile { median: 20.0, lo68: 10.0, hi68: 30.0, lo95: 5.0, hi95: 50.0 };
-        // Order 0, cell 0 of the nested scheme: the cell about RA 45, Dec +41.8.
-        let region = r#"{"0":[0]}"#;
-        let described = [
-            basin(100.0, 10.0, 0.3, 45.0, 41.8),
-            basin(95.0, 2.0, 0.3, 45.0, 41.8),    // too light
-            basin(95.0, 1.0, 0.8, 45.0, 41.8),    // beyond the prior's e
-            basin(80.0, 1.0, 0.3, 45.0, 41.8),    // a worse fit
-            basin(98.0, 10.0, 0.3, 225.0, -41.8), // elsewhere on the sky
-        ];
-        let w = left_out(&described, &mass, Some(region), 0.6);
-        assert_eq!(w.len(), 2, "{w:#?}");
-        assert!(w[0].starts_with("basin 2 (2.00 Earth masses") && w[0].contains("95% mass interval (5.00-50.00)"));
-        assert!(!w[0].contains("90% region"), "{}", w[0]);
-        assert!(
-            w[1].starts_with("basin 5 ") && w[1].contains("within 2.0 in chi-square") && w[1].contains("90% region")
-        );
-        // Without a region, only the mass is judged.
-        assert_eq!(left_out(&described, &mass, None, 0.6).len(), 1);
-    }
 }

@@ -61,6 +61,7 @@ pub(super) fn execute(plan: &InferPlan, arcs: Vec<TrackedArc>) -> Result<(), Cli
                 &study,
                 kernel.epoch_tdb_days(),
                 kernel.central_gm(),
+                &found.search.basins,
                 run,
                 &posterior.explanation,
                 truth.as_ref(),

@@ -37,23 +37,26 @@ pub(super) fn run(
     truth: Option<&Truth>,
 ) -> Result<Outcome, CliError> {
     let (kernel, _) = detection.posterior_kernel();
-    run_at(out, study, kernel.epoch_tdb_days, kernel.central_gm(), run, explanation, truth)
+    run_at(out, study, kernel.epoch_tdb_days, kernel.central_gm(), &detection.basins, run, explanation, truth)
 }
 
 /// [`run`] for a posterior whose perturber states are at `t0` (TDB days)
-/// about a central body of GM `gm_sun` (a joint study's).
+/// about a central body of GM `gm_sun` (a joint study's), whose search
+/// found `basins`.
+#[allow(clippy::too_many_arguments)]
 pub(super) fn run_at(
     out: &Path,
     study: &Study,
     t0: f64,
     gm_sun: f64,
+    basins: &[latens::perturber::search::Scored],
     run: &PosteriorRun,
     explanation: &Explanation,
     truth: Option<&Truth>,
 ) -> Result<Outcome, CliError> {
     let mut text = String::new();
     let fail = |e: String| CliError::failed(anyhow::anyhow!(e));
-    let products = sky_products_at(study, t0, gm_sun, run)?;
+    let products = sky_products_at(study, t0, gm_sun, basins, run)?;
     let SkyProducts { map, region50: r50, region90: r90, mode_of_leaf: comp, sun, sky, warnings } = products;
     let (area50, area90, modes, safety) = (sky.area50_deg2, sky.area90_deg2, &sky.modes, &sky.safety_warning);
     let epoch_text = sky.search_epoch_utc.clone();

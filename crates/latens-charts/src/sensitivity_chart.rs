@@ -61,6 +61,7 @@ impl SensitivityChart<'_> {
         let ny = distinct_count(&ly).max(2) as f64;
         let (hx, hy) = (0.5 * (x1 - x0) / (nx - 1.0), 0.5 * (y1 - y0) / (ny - 1.0));
         let (xr, yr) = ((x0 - hx)..(x1 + hx), (y0 - hy)..(y1 + hy));
+        let (key_at, _) = self.key_corner((xr.start, xr.end), (yr.start, yr.end));
         let mut chart = ChartBuilder::on(&main)
             .caption(self.title.clone(), ("sans-serif", 26).into_font().color(&INK))
             .margin(25)
@@ -112,12 +113,42 @@ impl SensitivityChart<'_> {
             });
         chart
             .configure_series_labels()
-            .position(SeriesLabelPosition::LowerRight)
+            .position(key_at)
             .label_font(("sans-serif", 18).into_font().color(&INK))
             .background_style(WHITE.mix(0.9))
             .border_style(INK)
             .draw()?;
         self.draw_colour_bar(&bar)
+    }
+
+    /// The corner where the key covers the fewest marks (cells with a
+    /// detection probability of at least 0.02, points of the curves),
+    /// with that count; the lower right (far and light: nothing detected)
+    /// when no corner is better. `xr`, `yr`: the axes' log10 ranges.
+    fn key_corner(&self, xr: (f64, f64), yr: (f64, f64)) -> (SeriesLabelPosition, usize) {
+        let corners = [
+            (SeriesLabelPosition::LowerRight, (true, false)),
+            (SeriesLabelPosition::UpperLeft, (false, true)),
+            (SeriesLabelPosition::LowerLeft, (false, false)),
+            (SeriesLabelPosition::UpperRight, (true, true)),
+        ];
+        let marks: Vec<(f64, f64)> = self
+            .cells
+            .iter()
+            .filter(|c| c.2 >= 0.02)
+            .map(|c| (c.0, c.1))
+            .chain([&self.contour_50, &self.contour_90, &self.exclusion_95].into_iter().flatten().copied())
+            .map(|(d, m)| (d.log10(), m.log10()))
+            .collect();
+        corners
+            .into_iter()
+            .map(|(pos, (right, top))| {
+                let (kx, ky) = key_box(xr, yr, right, top);
+                let covered = marks.iter().filter(|(x, y)| kx.contains(x) && ky.contains(y)).count();
+                (pos, covered)
+            })
+            .min_by_key(|c| c.1)
+            .expect("four corners")
     }
 
     /// The grey scale's key: detection probability from 0 (white) to 1
@@ -151,6 +182,25 @@ impl SensitivityChart<'_> {
     }
 }
 
+/// The share of the plot's width and height the key takes, with its
+/// margin: three entries of 18 px type, the longest about 540 px wide, on a
+/// plot area of about 1140 x 820 px (looked at on the rendered chart; the
+/// box is taken a little larger than drawn).
+const KEY_SHARE: (f64, f64) = (0.52, 0.18);
+
+/// The key's box in data coordinates at a corner of the axes.
+fn key_box(
+    xr: (f64, f64),
+    yr: (f64, f64),
+    right: bool,
+    top: bool,
+) -> (std::ops::RangeInclusive<f64>, std::ops::RangeInclusive<f64>) {
+    let (w, h) = ((xr.1 - xr.0) * KEY_SHARE.0, (yr.1 - yr.0) * KEY_SHARE.1);
+    let x = if right { (xr.1 - w)..=xr.1 } else { xr.0..=(xr.0 + w) };
+    let y = if top { (yr.1 - h)..=yr.1 } else { yr.0..=(yr.0 + h) };
+    (x, y)
+}
+
 /// White for probability 0, black for 1.
 fn grey(p: f64) -> RGBColor {
     let g = (255.0 * (1.0 - p.clamp(0.0, 1.0))).round() as u8;
@@ -168,4 +218,73 @@ fn distinct_count(v: &[f64]) -> usize {
     s.sort_by(f64::total_cmp);
     s.dedup_by(|a, b| (*a - *b).abs() < 1e-12);
     s.len()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// A map whose detections follow mass against distance cubed (the
+    /// tidal scaling): heavy and near is detected, light and far is not;
+    /// `flip` turns it end for end (detections light and far).
+    fn map(flip: bool) -> Vec<MapCell> {
+        let mut cells = Vec::new();
+        for i in 0..16 {
+            for j in 0..16 {
+                let d = 50.0 * 10f64.powf(i as f64 / 15.0 * 1.5);
+                let m = 0.1 * 10f64.powf(j as f64 / 15.0 * 4.0);
+                let (u, v) = if flip { (15 - i, 15 - j) } else { (i, j) };
+                let (du, mv) = (50.0 * 10f64.powf(u as f64 / 15.0 * 1.5), 0.1 * 10f64.powf(v as f64 / 15.0 * 4.0));
+                let z = mv.log10() - 3.0 * (du / 50.0).log10() - 0.5;
+                let p = 1.0 / (1.0 + (-4.0 * z).exp());
+                cells.push((d, m, if p < 0.01 { 0.0 } else { p }));
+            }
+        }
+        cells
+    }
+
+    fn ranges(cells: &[MapCell]) -> ((f64, f64), (f64, f64)) {
+        let lx: Vec<f64> = cells.iter().map(|c| c.0.log10()).collect();
+        let ly: Vec<f64> = cells.iter().map(|c| c.1.log10()).collect();
+        (minmax(&lx), minmax(&ly))
+    }
+
+    /// The key covers no detected cell and no curve: in the usual map it
+    /// sits in the far, light corner; where that corner holds detections,
+    /// it moves to an empty one.
+    #[test]
+    fn the_key_covers_no_detection_and_no_curve() {
+        for flip in [false, true] {
+            let cells = map(flip);
+            // Per distance column, the first cell (lightest, or for the
+            // flipped map heaviest) at the level.
+            let curve = |level: f64| -> Curve {
+                cells
+                    .chunks(16)
+                    .filter_map(|column| {
+                        let mut col: Vec<&MapCell> = column.iter().collect();
+                        if flip {
+                            col.reverse();
+                        }
+                        col.into_iter().find(|c| c.2 >= level).map(|c| (c.0, c.1))
+                    })
+                    .collect()
+            };
+            let chart = SensitivityChart {
+                cells: &cells,
+                contour_50: curve(0.5),
+                contour_90: curve(0.9),
+                exclusion_95: curve(0.95),
+                title: "map".into(),
+            };
+            let (xr, yr) = ranges(&cells);
+            let (pos, covered) = chart.key_corner(xr, yr);
+            assert_eq!(covered, 0, "flip {flip}");
+            let expected = if flip { SeriesLabelPosition::UpperLeft } else { SeriesLabelPosition::LowerRight };
+            assert!(std::mem::discriminant(&pos) == std::mem::discriminant(&expected), "flip {flip}");
+            if let Some(dir) = std::env::var_os("LATENS_CHART_DIR") {
+                chart.draw_png(&std::path::Path::new(&dir).join(format!("sensitivity_key_{flip}.png"))).unwrap();
+            }
+        }
+    }
 }

@@ -889,6 +889,14 @@ impl Found<'_> {
             Found::Joint(d) => (d.kernel.epoch_tdb_days(), SignalKernel::central_gm(&d.kernel)),
         }
     }
+
+    /// The search's basins, best first.
+    fn basins(&self) -> &[latens::perturber::search::Scored] {
+        match self {
+            Found::One(d) => &d.basins,
+            Found::Joint(d) => &d.search.basins,
+        }
+    }
 }
 
 // ---------------------------------------------------------------------------
@@ -1169,7 +1177,19 @@ impl PySky {
     fn summary<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyAny>> {
         json_value(py, &self.inner.sky)
     }
-    /// Warnings, the safety warning near the Sun among them.
+    /// Where each basin of the search stands against the posterior, best
+    /// first: `basin`, `delta_chi2`, `mass_earth`, `ra_deg`, `dec_deg`,
+    /// `eccentricity` (about the central mass), `in_prior`,
+    /// `as_good_as_best` (within 12.02 in chi-square), `in_mass_interval95`,
+    /// `in_region90`. A basin in the prior and as good as the best but
+    /// outside the interval or the region is named in `warnings`: look
+    /// there too if the region is searched in vain.
+    #[getter]
+    fn basins<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyAny>> {
+        json_value(py, &self.inner.sky.basins)
+    }
+    /// Warnings: the safety warning near the Sun, crowded fields, and
+    /// basins as good as the best that the posterior leaves out.
     #[getter]
     fn warnings(&self) -> Vec<String> {
         self.inner.warnings.clone()
@@ -1240,11 +1260,13 @@ fn sky_products(
     detection: &Bound<'_, PyAny>,
     posterior: &PyPosterior,
 ) -> PyResult<PySky> {
-    let (t0, gm) = Found::of(py, detection)?.epoch_and_gm();
+    let found = Found::of(py, detection)?;
+    let (t0, gm) = found.epoch_and_gm();
     let Some(run) = &posterior.inner.run else {
         return Err(bad_setting(py, "the posterior has no samples (sample=False, or no basin to sample)"));
     };
-    let result = py.detach(|| latens::pipeline::sky_products_at(&study.inner, t0, gm, run));
+    let basins = found.basins();
+    let result = py.detach(|| latens::pipeline::sky_products_at(&study.inner, t0, gm, basins, run));
     let inner = result.map_err(|e| to_py(py, e))?;
     Ok(PySky { inner, epoch_utc: utc_iso_from_epoch(epoch_from_tdb_days(study.inner.search_epoch_tdb_days)) })
 }

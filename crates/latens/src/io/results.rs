@@ -222,6 +222,30 @@ pub struct SkyFile {
     pub sun_ra_deg: f64,
     pub sun_dec_deg: f64,
     pub safety_warning: Option<String>,
+    /// Where each basin of the search stands against the posterior (the
+    /// search's order, best first).
+    pub basins: Vec<BasinStandingFile>,
+}
+
+/// One basin of the search against the posterior: inside the prior, as good
+/// a fit as the best, inside the 95% mass interval and the 90% region.
+#[derive(Debug, Serialize, Clone)]
+pub struct BasinStandingFile {
+    /// 1 for the best.
+    pub basin: usize,
+    pub delta_chi2: f64,
+    pub mass_earth: f64,
+    /// Geocentric astrometric place at the search epoch.
+    pub ra_deg: f64,
+    pub dec_deg: f64,
+    /// About the posterior's central mass (the prior's eccentricity is).
+    pub eccentricity: f64,
+    /// Whether the prior allows it (eccentricity at most the prior's).
+    pub in_prior: bool,
+    /// Within 12.02 of the best drop in chi-square.
+    pub as_good_as_best: bool,
+    pub in_mass_interval95: bool,
+    pub in_region90: bool,
 }
 
 #[derive(Debug, Serialize, Clone)]

@@ -3,8 +3,9 @@
 use super::{DerivedSample, Detection, PipelineError, PosteriorRun, SearchGeometry, Study, geometry_at, next_months};
 use crate::astrometry::ObservingGeometry;
 use crate::frames::angular_separation;
-use crate::io::results::{ModeFile, SkyFile};
+use crate::io::results::{BasinStandingFile, ModeFile, SkyFile};
 use crate::perturber::KeplerOrbit;
+use crate::perturber::search::Scored;
 use crate::posterior::quantiles;
 use crate::skymap::observe::{
     ALBEDO_RANGE, CROWDED_LATITUDE_DEG, DENSITY_RANGE_G_CM3, galactic_lon_lat_deg, magnitude_range, motion,
@@ -37,13 +38,36 @@ pub struct SkyProducts {
 /// safety and crowding warnings.
 pub fn sky_products(study: &Study, detection: &Detection, run: &PosteriorRun) -> Result<SkyProducts, PipelineError> {
     let (kernel, _) = detection.posterior_kernel();
-    sky_products_at(study, kernel.epoch_tdb_days, kernel.central_gm(), run)
+    sky_products_at(study, kernel.epoch_tdb_days, kernel.central_gm(), &detection.basins, run)
+}
+
+/// Within this much of the best chi-square drop a solution is as good a
+/// fit as the data can tell: the 90% quantile of chi-square with 7
+/// degrees of freedom (the perturber's mass and state), 12.02
+/// (scipy.stats.chi2.ppf(0.9, 7) = 12.017; using the joint confidence
+/// region over all fitted parameters is common practice).
+pub const AS_GOOD_DELTA_CHI2: f64 = 12.02;
+
+/// The eccentricity of a basin's orbit about a central body of GM
+/// `gm_central` (the one the posterior's prior limits): above 1 when
+/// unbound, NaN for a radial or degenerate state.
+pub fn basin_eccentricity(basin: &Scored, gm_central: f64) -> f64 {
+    let h = &basin.hypothesis;
+    crate::dynamics::kepler::elements_from_state(gm_central, h.position_au, h.velocity_au_per_day)
+        .map_or(f64::NAN, |el| el.eccentricity)
 }
 
 /// [`sky_products`] of a posterior whose perturber states are at `t0`
 /// (TDB days) about a central body of GM `gm_sun`: any study's, one body's
-/// or several bodies' together.
-pub fn sky_products_at(study: &Study, t0: f64, gm_sun: f64, run: &PosteriorRun) -> Result<SkyProducts, PipelineError> {
+/// or several bodies' together; `basins` are the search's (best first),
+/// each judged against the posterior.
+pub fn sky_products_at(
+    study: &Study,
+    t0: f64,
+    gm_sun: f64,
+    basins: &[Scored],
+    run: &PosteriorRun,
+) -> Result<SkyProducts, PipelineError> {
     let samples = run.samples.as_slice();
     let wide = study.wide.as_ref();
     let search = SearchGeometry::new(wide, study.search_epoch_tdb_days)?;
@@ -157,6 +181,9 @@ pub fn sky_products_at(study: &Study, t0: f64, gm_sun: f64, run: &PosteriorRun) 
         }
     }
 
+    let standing = basin_standing(basins, t0, gm_sun, run, &search, &map, &r90);
+    warnings.extend(left_out(&standing, &run.summary.mass_earth));
+
     let (sra, sdec) = skymap::lon_lat(sun);
     let epoch_text = utc_iso_from_epoch(epoch_from_tdb_days(search.epoch));
     let sky = SkyFile {
@@ -171,6 +198,157 @@ pub fn sky_products_at(study: &Study, t0: f64, gm_sun: f64, run: &PosteriorRun) 
         sun_ra_deg: sra.to_degrees(),
         sun_dec_deg: sdec.to_degrees(),
         safety_warning: safety,
+        basins: standing,
     };
     Ok(SkyProducts { map, region50: r50, region90: r90, mode_of_leaf: comp, sun, sky, warnings })
+}
+
+/// Where each basin stands against the posterior: its place at the search
+/// epoch, whether the prior allows it, whether it fits about as well as the
+/// best, and whether the 95% mass interval and the 90% region hold it.
+fn basin_standing(
+    basins: &[Scored],
+    t0: f64,
+    gm_sun: f64,
+    run: &PosteriorRun,
+    search: &SearchGeometry,
+    map: &SkyMap,
+    region90: &[usize],
+) -> Vec<BasinStandingFile> {
+    let Some(best) = basins.first().map(|b| b.delta_chi2) else { return Vec::new() };
+    let e_max = run.summary.prior.max_eccentricity;
+    let mass = &run.summary.mass_earth;
+    let inside: std::collections::HashSet<usize> = region90.iter().copied().collect();
+    basins
+        .iter()
+        .enumerate()
+        .map(|(k, b)| {
+            let h = &b.hypothesis;
+            let place = KeplerOrbit::from_state(gm_sun, h.position_au, h.velocity_au_per_day, t0)
+                .map(|orbit| search.place_at(&orbit, search.epoch, &search.geometry).0);
+            let (ra_deg, dec_deg) = place.map_or((f64::NAN, f64::NAN), |d| {
+                let (ra, dec) = skymap::lon_lat(d);
+                (ra.to_degrees(), dec.to_degrees())
+            });
+            let eccentricity = basin_eccentricity(b, gm_sun);
+            BasinStandingFile {
+                basin: k + 1,
+                delta_chi2: b.delta_chi2,
+                mass_earth: b.mass_earth(),
+                ra_deg,
+                dec_deg,
+                eccentricity,
+                // The prior's limit is closed; a basin polished onto it is in.
+                in_prior: eccentricity <= e_max * (1.0 + 1e-9),
+                as_good_as_best: b.delta_chi2 >= best - AS_GOOD_DELTA_CHI2,
+                in_mass_interval95: (mass.lo95..=mass.hi95).contains(&b.mass_earth()),
+                in_region90: place.and_then(|d| map.leaf_of(d)).is_some_and(|leaf| inside.contains(&leaf)),
+            }
+        })
+        .collect()
+}
+
+/// Warnings for basins inside the prior that fit about as well as the best
+/// but that the posterior leaves out: outside its central 95% mass
+/// interval or outside the 90% sky region. The posterior weighs each
+/// solution by its prior volume as well as its fit, and a light perturber
+/// passing close to the body fits sharply where heavier, farther ones fit
+/// broadly; measured on the demo scenario over noise seeds
+/// (docs/validation.md), the true planet was often such a basin.
+fn left_out(standing: &[BasinStandingFile], mass: &crate::io::results::IntervalFile) -> Vec<String> {
+    let best = standing.first().map_or(0.0, |b| b.delta_chi2);
+    standing
+        .iter()
+        .filter(|b| b.as_good_as_best && b.in_prior)
+        .filter_map(|b| {
+            let what = match (b.in_mass_interval95, b.in_region90) {
+                (false, false) => {
+                    format!("the 95% mass interval ({:.2}-{:.2}) and the 90% region", mass.lo95, mass.hi95)
+                }
+                (false, true) => format!("the 95% mass interval ({:.2}-{:.2})", mass.lo95, mass.hi95),
+                (true, false) => "the 90% region".to_string(),
+                (true, true) => return None,
+            };
+            Some(format!(
+                "basin {} ({:.2} Earth masses, RA {:.2} deg, Dec {:+.2} deg) fits within {:.1} in chi-square of the best \
+                 (within {AS_GOOD_DELTA_CHI2}, as good as these data can tell) but lies outside {what}: the posterior \
+                 weighs solutions by their prior volume too, and heavier, farther perturbers fit more broadly than a \
+                 light one passing close to the body; if the region is searched in vain, look there too",
+                b.basin,
+                b.mass_earth,
+                b.ra_deg,
+                b.dec_deg,
+                best - b.delta_chi2
+            ))
+        })
+        .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::io::results::IntervalFile;
+
+    fn standing(basin: usize, delta_chi2: f64, mass_earth: f64, flags: [bool; 3]) -> BasinStandingFile {
+        let [in_prior, in_mass_interval95, in_region90] = flags;
+        BasinStandingFile {
+            basin,
+            delta_chi2,
+            mass_earth,
+            ra_deg: 45.0,
+            dec_deg: 41.8,
+            eccentricity: if in_prior { 0.3 } else { 0.8 },
+            in_prior,
+            as_good_as_best: delta_chi2 >= 100.0 - AS_GOOD_DELTA_CHI2,
+            in_mass_interval95,
+            in_region90,
+        }
+    }
+
+    /// Basins as good as the best (within 12.02) and inside the prior are
+    /// named when the posterior leaves them out, by mass or by place; a
+    /// worse fit or one beyond the prior's eccentricity is not.
+    #[test]
+    fn basins_as_good_as_the_best_that_the_posterior_leaves_out_are_named() {
+        let mass = IntervalFile { median: 20.0, lo68: 10.0, hi68: 30.0, lo95: 5.0, hi95: 50.0 };
+        let all = [
+            standing(1, 100.0, 10.0, [true, true, true]),
+            standing(2, 95.0, 2.0, [true, false, true]),  // too light
+            standing(3, 95.0, 1.0, [false, false, true]), // beyond the prior's e
+            standing(4, 80.0, 1.0, [true, false, false]), // a worse fit
+            standing(5, 98.0, 10.0, [true, true, false]), // elsewhere on the sky
+            standing(6, 99.0, 1.0, [true, false, false]), // both
+        ];
+        let w = left_out(&all, &mass);
+        assert_eq!(w.len(), 3, "{w:#?}");
+        assert!(w[0].starts_with("basin 2 (2.00 Earth masses") && w[0].contains("95% mass interval (5.00-50.00)"));
+        assert!(!w[0].contains("90% region"), "{}", w[0]);
+        assert!(w[1].starts_with("basin 5 ") && w[1].contains("within 2.0 in chi-square"));
+        assert!(w[1].contains("outside the 90% region"), "{}", w[1]);
+        assert!(w[2].starts_with("basin 6 ") && w[2].contains("interval (5.00-50.00) and the 90% region"));
+    }
+
+    /// The eccentricity a basin is judged by is its orbit's about the
+    /// given central mass: a circular speed gives 0, a speed of sqrt(1.5)
+    /// times it at the same place gives e = 0.5 (vis-viva: at periapsis
+    /// v^2 = GM (1 + e) / r, common practice).
+    #[test]
+    fn a_basins_eccentricity_is_about_the_central_mass() {
+        let gm = crate::units::GM_SUN_AU3_PER_DAY2;
+        let r = 50.0;
+        let v_circ = (gm / r).sqrt();
+        let basin = |speed: f64| Scored {
+            hypothesis: crate::perturber::search::Hypothesis {
+                position_au: Vec3::new(r, 0.0, 0.0),
+                velocity_au_per_day: Vec3::new(0.0, speed, 0.0),
+            },
+            delta_chi2: 10.0,
+            gm_au3_per_day2: 1e-9,
+            closest_approach_au: 5.0,
+        };
+        assert!(basin_eccentricity(&basin(v_circ), gm).abs() < 1e-12);
+        assert!((basin_eccentricity(&basin(v_circ * 1.5f64.sqrt()), gm) - 0.5).abs() < 1e-12);
+        // Twice the circular speed: unbound, e = v^2 r / GM - 1 = 3, never in a prior.
+        assert!((basin_eccentricity(&basin(v_circ * 2.0), gm) - 3.0).abs() < 1e-12);
+    }
 }
