@@ -79,6 +79,12 @@ pub(super) fn run_at(
     chart.truth =
         truth.map(|t| (latens::frames::vector_from_radec_deg(t.ra_deg, t.dec_deg), format!("{} (truth)", t.name)));
     chart.cautions = cautions(run.diagnostics.converged, explanation);
+    chart.left_out = sky
+        .basins
+        .iter()
+        .filter(|b| b.left_out())
+        .map(|b| (latens::frames::vector_from_radec_deg(b.ra_deg, b.dec_deg), format!("basin {}", b.basin)))
+        .collect();
     save_chart(out, "search_chart", SearchChart::SIZE, |a| chart.draw(a), |a| chart.draw(a))?;
 
     let _ = writeln!(
@@ -310,6 +316,7 @@ fn build_chart(
         warning: warning.map(|w| format!("WARNING: {w}")).unwrap_or_default(),
         cautions: Vec::new(),
         truth: None,
+        left_out: Vec::new(),
     }
 }
 

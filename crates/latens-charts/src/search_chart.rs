@@ -63,9 +63,19 @@ pub struct SearchChart {
     pub cautions: Vec<String>,
     /// A known true place (a simulation's), marked apart from the modes.
     pub truth: Option<(Vec3, String)>,
+    /// Places of basins the prior allows that fit about as well as the
+    /// best but that the credible regions leave out, with their labels:
+    /// where to look next if the region is searched in vain.
+    pub left_out: Vec<(Vec3, String)>,
 }
 
 const TRUTH: RGBColor = RGBColor(20, 110, 200);
+const LEFT_OUT: RGBColor = RGBColor(150, 30, 150);
+
+/// An open square at a pixel position.
+fn open_square(x: i32, y: i32, r: i32, style: ShapeStyle) -> Rectangle<(i32, i32)> {
+    Rectangle::new([(x - r, y - r), (x + r, y + r)], style)
+}
 
 /// A diamond at a pixel position.
 fn diamond(x: i32, y: i32, r: i32, style: ShapeStyle) -> Polygon<(i32, i32)> {
@@ -280,6 +290,17 @@ impl SearchChart {
                 )])
                 .map_err(e)?;
         }
+        for (d, label) in &self.left_out {
+            let p = hammer(*d);
+            chart.draw_series([EmptyElement::at(p) + open_square(0, 0, 9, LEFT_OUT.stroke_width(3))]).map_err(e)?;
+            chart
+                .draw_series([Text::new(
+                    label.clone(),
+                    (p.0 + 0.05, p.1 + 0.12),
+                    ("sans-serif", 18).into_font().color(&LEFT_OUT),
+                )])
+                .map_err(e)?;
+        }
         if let Some((d, label)) = &self.truth {
             let p = hammer(*d);
             chart.draw_series([EmptyElement::at(p) + diamond(0, 0, 9, TRUTH.filled())]).map_err(e)?;
@@ -320,6 +341,13 @@ impl SearchChart {
             area.draw(&diamond(x0 + 9, y, 8, TRUTH.filled())).map_err(e)?;
             area.draw(&Text::new("true place (known)", (x0 + 26, y - 9), font.clone())).map_err(e)?;
             row += 1;
+        }
+        if !self.left_out.is_empty() {
+            let y = 60 + 34 * row;
+            area.draw(&open_square(x0 + 9, y, 8, LEFT_OUT.stroke_width(3))).map_err(e)?;
+            area.draw(&Text::new("as good a fit, outside", (x0 + 26, y - 9), font.clone())).map_err(e)?;
+            area.draw(&Text::new("the region (warnings)", (x0 + 26, y + 25 - 9), font.clone())).map_err(e)?;
+            row += 2;
         }
         area.draw(&Text::new("RA grows to the left", (x0, 60 + 34 * row - 9), font.clone())).map_err(e)?;
         area.draw(&Text::new("equal-area (Hammer-Aitoff)", (x0, 60 + 34 * (row + 1) - 9), font)).map_err(e)?;
@@ -587,6 +615,41 @@ pub fn marching_squares(raster: &[Vec<f64>], level: f64) -> Vec<((f64, f64), (f6
 #[cfg(test)]
 mod label_tests {
     use super::*;
+
+    /// Basins as good as the best that the region leaves out are marked
+    /// on the map with their numbers, and the key says what the mark is;
+    /// without any, the key has no such row.
+    #[test]
+    fn basins_left_out_are_marked_and_explained() {
+        let chart = |left_out: Vec<(Vec3, String)>| SearchChart {
+            title: "t".into(),
+            subtitle: String::new(),
+            cells: Vec::new(),
+            sun: Vec3::new(1.0, 0.0, 0.0),
+            ecliptic: Vec::new(),
+            galactic_plane: Vec::new(),
+            marks: Vec::new(),
+            zooms: Vec::new(),
+            warning: String::new(),
+            cautions: Vec::new(),
+            truth: None,
+            left_out,
+        };
+        crate::register_fonts();
+        let svg = |c: &SearchChart| {
+            let mut out = String::new();
+            {
+                let root = SVGBackend::with_string(&mut out, SearchChart::SIZE).into_drawing_area();
+                c.draw(&root).unwrap();
+                root.present().unwrap();
+            }
+            out
+        };
+        let with = svg(&chart(vec![(Vec3::new(0.0, 1.0, 0.0), "basin 3".into())]));
+        assert!(with.contains("basin 3") && with.contains("as good a fit, outside"));
+        let without = svg(&chart(Vec::new()));
+        assert!(!without.contains("as good a fit"));
+    }
 
     #[test]
     fn ra_labels_read_in_hours_and_minutes() {

@@ -248,6 +248,15 @@ pub struct BasinStandingFile {
     pub in_region90: bool,
 }
 
+impl BasinStandingFile {
+    /// In the prior and as good a fit as the best, yet outside the 95% mass
+    /// interval or the 90% region: a place the posterior leaves out that
+    /// the data do not.
+    pub fn left_out(&self) -> bool {
+        self.in_prior && self.as_good_as_best && !(self.in_mass_interval95 && self.in_region90)
+    }
+}
+
 #[derive(Debug, Serialize, Clone)]
 pub struct ModeFile {
     pub mode: usize,

@@ -259,7 +259,7 @@ fn left_out(standing: &[BasinStandingFile], mass: &crate::io::results::IntervalF
     let best = standing.first().map_or(0.0, |b| b.delta_chi2);
     standing
         .iter()
-        .filter(|b| b.as_good_as_best && b.in_prior)
+        .filter(|b| b.left_out())
         .filter_map(|b| {
             let what = match (b.in_mass_interval95, b.in_region90) {
                 (false, false) => {
