@@ -394,12 +394,18 @@ fn unit(ra: f64, dec: f64) -> latens::vec3::Vec3 {
 /// The simulated planet's place at the search epoch (`sim`'s truth.json)
 /// lies in the 90% region `infer` wrote into `found`.
 fn assert_truth_in_region90(sim: &std::path::Path, found: &std::path::Path) {
+    assert_truth_in(sim, found, "region90.json");
+}
+
+/// The simulation's true place at the search epoch lies inside the MOC
+/// `file` (JSON) that `infer` wrote into `found`.
+fn assert_truth_in(sim: &std::path::Path, found: &std::path::Path, file: &str) {
     let truth: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(sim.join("truth.json")).unwrap()).unwrap();
     let p = &truth["perturber"]["at_search_epoch"];
     let d = unit(p["ra_deg"].as_f64().unwrap(), p["dec_deg"].as_f64().unwrap());
-    let moc = std::fs::read_to_string(found.join("region90.json")).unwrap();
-    assert!(latens::skymap::moc_json_contains(&moc, d).unwrap(), "the truth is outside the 90% region: {p}");
+    let moc = std::fs::read_to_string(found.join(file)).unwrap();
+    assert!(latens::skymap::moc_json_contains(&moc, d).unwrap(), "the truth is outside {file}: {p}");
 }
 
 /// summary.json's judgement of each basin against the posterior agrees with
@@ -469,6 +475,24 @@ fn reduced_demo_end_to_end_finds_the_planet_and_its_place() {
         if planet {
             assert_truth_in_region90(&sim, &found);
             assert_basin_standing_matches_files(&found);
+            // The profile likelihood's region holds it too; its summary
+            // agrees with the MOC written.
+            assert_truth_in(&sim, &found, "confidence90.json");
+            let c = &v["sky"]["confidence"];
+            // The MOC's area, cell by cell over its orders (4 pi sr = 41 252.96 sq deg).
+            let moc: serde_json::Value =
+                serde_json::from_str(&std::fs::read_to_string(found.join("confidence90.json")).unwrap()).unwrap();
+            let area: f64 = moc
+                .as_object()
+                .unwrap()
+                .iter()
+                .map(|(order, cells)| {
+                    let n = cells.as_array().map_or(0, |a| a.len()) as f64;
+                    n * 41_252.961_249 / (12.0 * 4f64.powi(order.parse::<i32>().unwrap()))
+                })
+                .sum();
+            assert!((c["area90_deg2"].as_f64().unwrap() - area).abs() < 1e-6 * area, "{c} against {area}");
+            assert!((c["threshold90"].as_f64().unwrap() - 4.605).abs() < 1e-3, "{c}");
             assert_eq!(v["explanation"]["best"], "an unseen perturber", "{}", v["explanation"]);
         }
     }
@@ -490,6 +514,7 @@ fn a_band_about_the_ecliptic_keeps_search_and_posterior_in_it() {
         .arg("--sites")
         .arg(demo.join("sites.csv"))
         .args(["--near-ecliptic", "30", "--directions", "96", "--distances", "8", "--nulls", "400", "--seed", "7"])
+        .arg("--no-confidence-region")
         .args(["--posterior-steps", "600", "--temperatures", "8", "--walkers", "16", "--out"])
         .arg(&out_dir)
         .output()
@@ -513,6 +538,8 @@ fn a_band_about_the_ecliptic_keeps_search_and_posterior_in_it() {
     assert!(outside.is_empty(), "{} posterior samples outside the band, e.g. {:?}", outside.len(), &outside[..1]);
     assert_truth_in_region90(demo, &out_dir);
     assert_basin_standing_matches_files(&out_dir);
+    // Skipped on request: no confidence files, none in the summary.
+    assert!(v["sky"]["confidence"].is_null() && !out_dir.join("confidence90.fits").exists());
     std::fs::remove_dir_all(&out_dir).unwrap();
 }
 

@@ -387,7 +387,8 @@ def infer(study, *, sample: bool = True, progress: Any = None, checkpoint=None, 
        non-gravitational push, astrometric offsets) weighed against a
        perturber, the tempered ensemble sampler, convergence and evidence.
     3. ``sky_products`` (only for a detection): the sky map, the 50% and
-       90% credible regions, the modes.
+       90% credible regions, the modes, and the 50% and 90% confidence
+       regions of the profile likelihood (which lean on no prior volume).
 
     settings: any of ``detect``'s (mass_earth, distance_au, nulls,
     directions, distances, seed, reject_sigma, near_ecliptic) and ``posterior``'s (steps,
@@ -416,7 +417,7 @@ def infer(study, *, sample: bool = True, progress: Any = None, checkpoint=None, 
                      **{k: v for k, v in settings.items() if k in posterior_keys})
     sky = None
     if found.detected and sample and post.samples_array.shape[0] > 0:
-        sky = sky_products(study, found, post)
+        sky = sky_products(study, found, post, progress=progress)
     return Inference(found, post, sky)
 
 

@@ -448,6 +448,11 @@ pub struct InferArgs {
     /// Skip the posterior sampling (grid search and refinement only).
     #[arg(long)]
     pub no_posterior: bool,
+    /// Skip the confidence regions of the profile likelihood over the sky
+    /// (confidence50/90.fits), which lean on no prior volume: saves a few
+    /// seconds per body; the credible regions are made as before.
+    #[arg(long)]
+    pub no_confidence_region: bool,
     /// Steps of the posterior sampler (the first 40% are burn-in).
     #[arg(long, value_name = "N", default_value_t = 1500)]
     pub posterior_steps: usize,

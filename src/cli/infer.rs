@@ -31,6 +31,8 @@ use latens_charts::residual_chart::ResidualChart;
 
 /// Everything `infer` was asked to do, typed and checked before any work.
 pub(super) struct InferPlan {
+    /// Whether a detection gets the profile likelihood's confidence regions.
+    pub confidence_region: bool,
     /// One file per tracked body; several make a joint study.
     pub obs: Vec<PathBuf>,
     pub sites: Option<PathBuf>,
@@ -212,6 +214,7 @@ impl InferPlan {
         }
         let start_orbit = args.start_orbit.as_deref().map(super::sensitivity::read_orbit).transpose()?;
         Ok(InferPlan {
+            confidence_region: !args.no_confidence_region,
             truth,
             obs,
             sites: args.input.sites.clone(),
@@ -383,7 +386,15 @@ pub(super) fn execute(plan: &InferPlan) -> Result<InferSummary, CliError> {
         None
     } else {
         let run = stage.result.run.as_ref().expect("samples come from a run");
-        let s = super::search::run(out, &study, &detection, run, &stage.result.explanation, truth.as_ref())?;
+        let s = super::search::run(
+            out,
+            &study,
+            &detection,
+            run,
+            &stage.result.explanation,
+            truth.as_ref(),
+            plan.confidence_region,
+        )?;
         warnings.extend(s.warnings.iter().cloned());
         Some(s)
     };

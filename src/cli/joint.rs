@@ -56,16 +56,27 @@ pub(super) fn execute(plan: &InferPlan, arcs: Vec<TrackedArc>) -> Result<(), Cli
     let sky = match &posterior.run {
         Some(run) if detected && !run.samples.is_empty() => {
             let kernel = &found.kernel;
-            Some(super::search::run_at(
-                out,
-                &study,
-                kernel.epoch_tdb_days(),
-                kernel.central_gm(),
-                &found.search.basins,
-                run,
-                &posterior.explanation,
-                truth.as_ref(),
-            )?)
+            let bars = crate::cli::progress::Bars::new();
+            let confidence = plan
+                .confidence_region
+                .then(|| {
+                    latens::pipeline::confidence_region(
+                        &study,
+                        kernel,
+                        &found.settings.search,
+                        &found.search.basins,
+                        run,
+                        &bars,
+                    )
+                })
+                .transpose()?;
+            let sky_inputs = super::search::Found {
+                t0: kernel.epoch_tdb_days(),
+                gm_sun: kernel.central_gm(),
+                basins: &found.search.basins,
+                confidence: confidence.as_ref(),
+            };
+            Some(super::search::run_at(out, &study, &sky_inputs, run, &posterior.explanation, truth.as_ref())?)
         }
         _ => None,
     };

@@ -38,8 +38,19 @@ impl Observer for Bars {
         if super::quiet() {
             return;
         }
-        let bar = indicatif::ProgressBar::new(total);
-        let template = format!("{} {{bar:40}} {{pos}}/{{len}} {} ({{eta}} left)", stage.describe(), stage.unit());
+        // A stage that cannot know its length (total 0) counts without an
+        // estimate rather than showing a false one.
+        let (bar, template) = if total == 0 {
+            (
+                indicatif::ProgressBar::new_spinner(),
+                format!("{} {{spinner}} {{pos}} {}", stage.describe(), stage.unit()),
+            )
+        } else {
+            (
+                indicatif::ProgressBar::new(total),
+                format!("{} {{bar:40}} {{pos}}/{{len}} {} ({{eta}} left)", stage.describe(), stage.unit()),
+            )
+        };
         bar.set_style(
             indicatif::ProgressStyle::with_template(&template)
                 .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar()),

@@ -12,7 +12,8 @@ use latens::frames::{angular_separation, icrf_from_ecliptic};
 use latens::io::results::{ModeFile, SkyFile};
 use latens::io::write_atomically;
 use latens::pipeline::{
-    Best, Detection, Explanation, PosteriorRun, SUN_WARNING_DEG, SkyProducts, Study, sky_products_at,
+    Best, ConfidenceRegion, Detection, Explanation, PosteriorRun, SUN_WARNING_DEG, SkyProducts, Study,
+    confidence_region, sky_products_at,
 };
 use latens::skymap::observe::icrs_from_galactic_deg;
 use latens::skymap::{self, DEG2_PER_SR, SkyMap};
@@ -35,28 +36,49 @@ pub(super) fn run(
     run: &PosteriorRun,
     explanation: &Explanation,
     truth: Option<&Truth>,
+    with_confidence: bool,
 ) -> Result<Outcome, CliError> {
     let (kernel, _) = detection.posterior_kernel();
-    run_at(out, study, kernel.epoch_tdb_days, kernel.central_gm(), &detection.basins, run, explanation, truth)
+    let bars = crate::cli::progress::Bars::new();
+    let confidence = with_confidence
+        .then(|| confidence_region(study, kernel, &detection.settings.search, &detection.basins, run, &bars))
+        .transpose()?;
+    let found = Found {
+        t0: kernel.epoch_tdb_days,
+        gm_sun: kernel.central_gm(),
+        basins: &detection.basins,
+        confidence: confidence.as_ref(),
+    };
+    run_at(out, study, &found, run, explanation, truth)
 }
 
-/// [`run`] for a posterior whose perturber states are at `t0` (TDB days)
-/// about a central body of GM `gm_sun` (a joint study's), whose search
-/// found `basins`.
-#[allow(clippy::too_many_arguments)]
+/// What a search found, for its sky products: the posterior's states are
+/// at `t0` (TDB days) about a central body of GM `gm_sun`; the search's
+/// `basins`; the profile likelihood's `confidence` regions (unless
+/// skipped).
+pub(super) struct Found<'a> {
+    pub t0: f64,
+    pub gm_sun: f64,
+    pub basins: &'a [latens::perturber::search::Scored],
+    pub confidence: Option<&'a ConfidenceRegion>,
+}
+
+/// [`run`] for any search (one body's or a joint study's).
 pub(super) fn run_at(
     out: &Path,
     study: &Study,
-    t0: f64,
-    gm_sun: f64,
-    basins: &[latens::perturber::search::Scored],
+    found: &Found,
     run: &PosteriorRun,
     explanation: &Explanation,
     truth: Option<&Truth>,
 ) -> Result<Outcome, CliError> {
     let mut text = String::new();
     let fail = |e: String| CliError::failed(anyhow::anyhow!(e));
-    let products = sky_products_at(study, t0, gm_sun, basins, run)?;
+    let mut products = sky_products_at(study, found.t0, found.gm_sun, found.basins, run)?;
+    let confidence = found.confidence;
+    if let Some(c) = confidence {
+        products.add_confidence(c);
+    }
     let SkyProducts { map, region50: r50, region90: r90, mode_of_leaf: comp, sun, sky, warnings } = products;
     let (area50, area90, modes, safety) = (sky.area50_deg2, sky.area90_deg2, &sky.modes, &sky.safety_warning);
     let epoch_text = sky.search_epoch_utc.clone();
@@ -74,6 +96,15 @@ pub(super) fn run_at(
         write_atomically(&out.join(format!("{name}.json")), &skymap::moc_json(&moc).map_err(fail)?)
             .map_err(CliError::failed)?;
     }
+    for (name, region, c) in
+        confidence.iter().flat_map(|c| [("confidence50", &c.region50, c), ("confidence90", &c.region90, c)])
+    {
+        let moc = c.moc(region);
+        write_atomically(&out.join(format!("{name}.fits")), &skymap::moc_fits(&moc).map_err(fail)?)
+            .map_err(CliError::failed)?;
+        write_atomically(&out.join(format!("{name}.json")), &skymap::moc_json(&moc).map_err(fail)?)
+            .map_err(CliError::failed)?;
+    }
     write_modes_csv(out, modes)?;
     let mut chart = build_chart(&map, &r50, &r90, &comp, modes, sun, &epoch_text, area50, area90, safety.clone());
     chart.truth =
@@ -85,6 +116,7 @@ pub(super) fn run_at(
         .filter(|b| b.left_out())
         .map(|b| (latens::frames::vector_from_radec_deg(b.ra_deg, b.dec_deg), format!("basin {}", b.basin)))
         .collect();
+    chart.confidence90 = confidence.map_or(Vec::new(), |c| c.outline(&c.region90));
     save_chart(out, "search_chart", SearchChart::SIZE, |a| chart.draw(a), |a| chart.draw(a))?;
 
     let _ = writeln!(
@@ -117,6 +149,29 @@ pub(super) fn run_at(
             }
         );
     }
+    if let Some(c) = &sky.confidence {
+        let _ = writeln!(
+            text,
+            "Confidence region (profile likelihood: where some perturber the prior allows fits within {:.2} of the best, \
+             whatever the prior's volume there): 50% within {:.0} sq deg, 90% within {:.0} sq deg, {:.0}% of it outside \
+             the 90% credible region",
+            c.threshold90,
+            c.area50_deg2,
+            c.area90_deg2,
+            100.0 * c.outside_credible90
+        );
+    }
+    if let (Some(t), Some(confidence)) = (truth, confidence) {
+        let d = latens::frames::vector_from_radec_deg(t.ra_deg, t.dec_deg);
+        let below = confidence.profile.best - confidence.profile.at(d);
+        let _ = writeln!(
+            text,
+            "  The true place ({}) lies {:.2} below the best in the profile: {} the 90% confidence region",
+            t.name,
+            below,
+            if below <= latens::perturber::profile::profile_threshold(0.9) { "inside" } else { "outside" }
+        );
+    }
     if modes.len() > listed.len() {
         let rest: f64 = modes.iter().skip(listed.len()).map(|m| m.probability).sum();
         let _ = writeln!(
@@ -133,9 +188,18 @@ pub(super) fn run_at(
         files: [
             ("skymap.fits".to_string(), "the posterior's multi-order HEALPix map (UNIQ, PROBDENSITY per sr)"),
             ("region50/90.fits (.json)".into(), "the 50% and 90% credible regions as IVOA MOCs"),
-            ("modes.csv".into(), "each sky mode: centre, areas, distances, brightness, motion, when observable"),
         ]
         .into_iter()
+        .chain(confidence.map(|_| {
+            (
+                "confidence50/90.fits (.json)".to_string(),
+                "the 50% and 90% confidence regions (profile likelihood, no prior volume) as IVOA MOCs",
+            )
+        }))
+        .chain([(
+            "modes.csv".to_string(),
+            "each sky mode: centre, areas, distances, brightness, motion, when observable",
+        )])
         .chain(
             super::chart_name("search_chart")
                 .map(|name| (name, "where to point: the whole sky and a zoom on each major mode")),
@@ -317,6 +381,7 @@ fn build_chart(
         cautions: Vec::new(),
         truth: None,
         left_out: Vec::new(),
+        confidence90: Vec::new(),
     }
 }
 

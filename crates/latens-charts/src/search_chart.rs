@@ -67,10 +67,20 @@ pub struct SearchChart {
     /// best but that the credible regions leave out, with their labels:
     /// where to look next if the region is searched in vain.
     pub left_out: Vec<(Vec3, String)>,
+    /// The outline of the 90% confidence region (profile likelihood), as
+    /// pixel edges (end points).
+    pub confidence90: Vec<(Vec3, Vec3)>,
 }
 
 const TRUTH: RGBColor = RGBColor(20, 110, 200);
 const LEFT_OUT: RGBColor = RGBColor(150, 30, 150);
+const CONFIDENCE: RGBColor = RGBColor(0, 120, 110);
+
+/// Points along an edge between two nearby directions (for a projection
+/// that bends it).
+fn along(a: Vec3, b: Vec3, n: usize) -> Vec<Vec3> {
+    (0..=n).map(|k| (a + (b - a) * (k as f64 / n as f64)).unit()).collect()
+}
 
 /// An open square at a pixel position.
 fn open_square(x: i32, y: i32, r: i32, style: ShapeStyle) -> Rectangle<(i32, i32)> {
@@ -197,7 +207,7 @@ impl SearchChart {
         if !self.zooms.is_empty() {
             let panels = bottom.split_evenly((1, self.zooms.len()));
             for (z, area) in self.zooms.iter().zip(&panels) {
-                draw_zoom(z, area, self.truth.as_ref(), self.zooms.len())?;
+                draw_zoom(z, area, self.truth.as_ref(), &self.confidence90, self.zooms.len())?;
             }
         }
         Ok(())
@@ -268,6 +278,11 @@ impl SearchChart {
         for part in split_curve(&self.galactic_plane) {
             chart.draw_series(DashedLineSeries::new(part, 3, 5, GALACTIC.stroke_width(3))).map_err(e)?;
         }
+        for (a, b) in &self.confidence90 {
+            for part in split_curve(&along(*a, *b, 4)) {
+                chart.draw_series(LineSeries::new(part, CONFIDENCE.stroke_width(2))).map_err(e)?;
+            }
+        }
         let sun = hammer(self.sun);
         chart
             .draw_series([
@@ -336,6 +351,13 @@ impl SearchChart {
         }
         area.draw(&Text::new("×  mode centre", (x0 + 4, 60 + 34 * 6 - 9), font.clone())).map_err(e)?;
         let mut row = 7;
+        if !self.confidence90.is_empty() {
+            let y = 60 + 34 * row;
+            area.draw(&PathElement::new(vec![(x0, y), (x0 + 30, y)], CONFIDENCE.stroke_width(3))).map_err(e)?;
+            area.draw(&Text::new("90% confidence region", (x0 + 40, y - 9), font.clone())).map_err(e)?;
+            area.draw(&Text::new("(profile likelihood)", (x0 + 40, y + 25 - 9), font.clone())).map_err(e)?;
+            row += 2;
+        }
         if self.truth.is_some() {
             let y = 60 + 34 * row;
             area.draw(&diamond(x0 + 9, y, 8, TRUTH.filled())).map_err(e)?;
@@ -375,6 +397,7 @@ fn draw_zoom<DB: DrawingBackend>(
     z: &ZoomPanel,
     area: &DrawingArea<DB, Shift>,
     truth: Option<&(Vec3, String)>,
+    confidence90: &[(Vec3, Vec3)],
     n_panels: usize,
 ) -> Result<(), String> {
     let e = |x: DrawingAreaErrorKind<DB::ErrorType>| x.to_string();
@@ -484,6 +507,13 @@ fn draw_zoom<DB: DrawingBackend>(
             }))
             .map_err(e)?;
     }
+    // The confidence region's outline where it crosses the panel.
+    for (a, b) in confidence90 {
+        let pts: Vec<(f64, f64)> = along(*a, *b, 4).into_iter().filter_map(|p| tangent(z.centre, p)).collect();
+        if pts.len() == 5 && pts.iter().all(|p| p.0.abs() <= h && p.1.abs() <= h) {
+            chart.draw_series(LineSeries::new(pts, CONFIDENCE.stroke_width(2))).map_err(e)?;
+        }
+    }
     if let Some((d, label)) = truth
         && let Some(p) = tangent(z.centre, *d)
         && p.0.abs() <= h
@@ -495,10 +525,11 @@ fn draw_zoom<DB: DrawingBackend>(
             .draw_series([Text::new(label.clone(), text_at, ("sans-serif", 15).into_font().color(&TRUTH))])
             .map_err(e)?;
     }
-    let note = if n_panels >= 3 {
-        "grey: density; lines: 90%, 50%"
-    } else {
-        "grey: posterior density; light line: 90%, dark line: 50% contour"
+    let note = match (n_panels >= 3, confidence90.is_empty()) {
+        (true, true) => "grey: density; lines: 90%, 50%",
+        (true, false) => "grey: density; lines: 90%, 50%; teal: confidence",
+        (false, true) => "grey: posterior density; light line: 90%, dark line: 50% contour",
+        (false, false) => "grey: posterior density; light: 90%, dark: 50% contour; teal: 90% confidence region",
     };
     area.draw(&Text::new(note, (70, area.dim_in_pixel().1 as i32 - 18), ("sans-serif", 13).into_font().color(&INK)))
         .map_err(e)?;
@@ -634,6 +665,7 @@ mod label_tests {
             cautions: Vec::new(),
             truth: None,
             left_out,
+            confidence90: Vec::new(),
         };
         crate::register_fonts();
         let svg = |c: &SearchChart| {

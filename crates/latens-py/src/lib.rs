@@ -1141,6 +1141,7 @@ fn posterior(
 #[pyclass(module = "latens._native", name = "Sky", frozen)]
 struct PySky {
     inner: SkyProducts,
+    confidence: latens::pipeline::ConfidenceRegion,
     epoch_utc: String,
 }
 
@@ -1217,13 +1218,37 @@ impl PySky {
             return Err(bad_setting(py, format!("level must be 0.5 or 0.9, got {level}")));
         };
         let moc = self.inner.map.moc(leaves);
-        let bytes = match format {
-            "fits" => latens::skymap::moc_fits(&moc),
-            "json" => latens::skymap::moc_json(&moc),
-            f => return Err(bad_setting(py, format!("format must be \"fits\" or \"json\", got {f:?}"))),
-        }
-        .map_err(LatensError::new_err)?;
-        latens::io::write_atomically(&path, &bytes).map_err(|e| to_py(py, PipelineError::Input(e.to_string())))
+        write_moc(py, &path, &moc, format)
+    }
+    /// write_confidence(path, level=0.9, format="fits"): the 50% or 90%
+    /// confidence region (profile likelihood: where some perturber the
+    /// prior allows fits within 1.39 or 4.61 of the best in chi-square,
+    /// whatever the prior's volume there) as an IVOA MOC, FITS or JSON.
+    #[pyo3(signature = (path, level=0.9, format="fits"))]
+    fn write_confidence(&self, py: Python<'_>, path: PathBuf, level: f64, format: &str) -> PyResult<()> {
+        let c = &self.confidence;
+        let pixels = if (level - 0.5).abs() < 1e-9 {
+            &c.region50
+        } else if (level - 0.9).abs() < 1e-9 {
+            &c.region90
+        } else {
+            return Err(bad_setting(py, format!("level must be 0.5 or 0.9, got {level}")));
+        };
+        write_moc(py, &path, &c.moc(pixels), format)
+    }
+    /// The profile likelihood's best chi-square drop in each pixel it
+    /// reached: a dict with `order` (HEALPix, nested) and numpy arrays
+    /// `ipix` and `delta_chi2`.
+    #[getter]
+    fn profile<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyDict>> {
+        let p = &self.confidence.profile;
+        let mut pairs: Vec<(u64, f64)> = p.delta_chi2.iter().map(|(&k, &v)| (k, v)).collect();
+        pairs.sort_unstable_by_key(|x| x.0);
+        let d = PyDict::new(py);
+        d.set_item("order", p.order)?;
+        d.set_item("ipix", pairs.iter().map(|x| x.0).collect::<Vec<_>>().into_pyarray(py))?;
+        d.set_item("delta_chi2", pairs.iter().map(|x| x.1).collect::<Vec<_>>().into_pyarray(py))?;
+        Ok(d)
     }
     /// The map's leaves as a pandas DataFrame: uniq, probdensity, probability.
     fn to_pandas<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyAny>> {
@@ -1247,18 +1272,33 @@ impl PySky {
     }
 }
 
-/// sky_products(study, detection, posterior) -> Sky
+/// Writes a MOC as FITS or JSON (temporary file, then rename).
+fn write_moc(py: Python<'_>, path: &std::path::Path, moc: &latens::skymap::Moc, format: &str) -> PyResult<()> {
+    let bytes = match format {
+        "fits" => latens::skymap::moc_fits(moc),
+        "json" => latens::skymap::moc_json(moc),
+        f => return Err(bad_setting(py, format!("format must be \"fits\" or \"json\", got {f:?}"))),
+    }
+    .map_err(LatensError::new_err)?;
+    latens::io::write_atomically(path, &bytes).map_err(|e| to_py(py, PipelineError::Input(e.to_string())))
+}
+
+/// sky_products(study, detection, posterior, progress=None) -> Sky
 ///
 /// The search products of a posterior, as `latens infer` makes them: the
 /// kernel-density sky map, the 50% and 90% credible regions, the modes,
-/// and the warning when a region lies near the Sun (pointing a telescope
-/// there can destroy eyes and instruments).
+/// the 50% and 90% confidence regions of the profile likelihood over the
+/// sky (which lean on no prior volume), and the warning when a region lies
+/// near the Sun (pointing a telescope there can destroy eyes and
+/// instruments).
 #[pyfunction]
+#[pyo3(signature = (study, detection, posterior, progress=None))]
 fn sky_products(
     py: Python<'_>,
     study: &PyStudy,
     detection: &Bound<'_, PyAny>,
     posterior: &PyPosterior,
+    progress: Option<Py<PyAny>>,
 ) -> PyResult<PySky> {
     let found = Found::of(py, detection)?;
     let (t0, gm) = found.epoch_and_gm();
@@ -1266,9 +1306,27 @@ fn sky_products(
         return Err(bad_setting(py, "the posterior has no samples (sample=False, or no basin to sample)"));
     };
     let basins = found.basins();
-    let result = py.detach(|| latens::pipeline::sky_products_at(&study.inner, t0, gm, basins, run));
-    let inner = result.map_err(|e| to_py(py, e))?;
-    Ok(PySky { inner, epoch_utc: utc_iso_from_epoch(epoch_from_tdb_days(study.inner.search_epoch_tdb_days)) })
+    let observer = PyObserver::new(progress);
+    let result = py.detach(|| {
+        let mut products = latens::pipeline::sky_products_at(&study.inner, t0, gm, basins, run)?;
+        let confidence = match found {
+            Found::One(d) => {
+                let (kernel, _) = d.posterior_kernel();
+                latens::pipeline::confidence_region(&study.inner, kernel, &d.settings.search, basins, run, &observer)
+            }
+            Found::Joint(d) => {
+                latens::pipeline::confidence_region(&study.inner, &d.kernel, &d.settings.search, basins, run, &observer)
+            }
+        }?;
+        products.add_confidence(&confidence);
+        Ok((products, confidence))
+    });
+    let (inner, confidence) = observer.outcome(py, result)?;
+    Ok(PySky {
+        inner,
+        confidence,
+        epoch_utc: utc_iso_from_epoch(epoch_from_tdb_days(study.inner.search_epoch_tdb_days)),
+    })
 }
 
 // ---------------------------------------------------------------------------

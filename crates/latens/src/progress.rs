@@ -20,6 +20,8 @@ pub enum Stage {
     NonlinearSampling,
     /// The sensitivity map; units: distances.
     Sensitivity,
+    /// The profile likelihood over the sky; units: pixels.
+    Profile,
 }
 
 impl Stage {
@@ -31,6 +33,7 @@ impl Stage {
             Stage::Sampling => "sampling the posterior",
             Stage::NonlinearSampling => "sampling on the nonlinear model",
             Stage::Sensitivity => "mapping",
+            Stage::Profile => "profiling the sky",
         }
     }
 
@@ -41,6 +44,7 @@ impl Stage {
             Stage::Nulls => "simulations",
             Stage::Sampling | Stage::NonlinearSampling => "steps",
             Stage::Sensitivity => "distances",
+            Stage::Profile => "pixels",
         }
     }
 }

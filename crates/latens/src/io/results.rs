@@ -225,6 +225,32 @@ pub struct SkyFile {
     /// Where each basin of the search stands against the posterior (the
     /// search's order, best first).
     pub basins: Vec<BasinStandingFile>,
+    /// The confidence regions from the profile likelihood over the sky
+    /// (null when not computed).
+    pub confidence: Option<ConfidenceFile>,
+}
+
+/// The confidence regions from the profile likelihood over the sky: the
+/// places where some perturber the prior allows fits within a chi-square
+/// threshold of the best, whatever the prior's volume there.
+#[derive(Debug, Serialize, Clone)]
+pub struct ConfidenceFile {
+    pub method: String,
+    /// HEALPix order of the map's pixels.
+    pub order: u8,
+    /// The best drop over the sky.
+    pub best_delta_chi2: f64,
+    /// Drops below the best that bound the 50% and 90% regions (chi-square
+    /// with 2 degrees of freedom).
+    pub threshold50: f64,
+    pub threshold90: f64,
+    pub area50_deg2: f64,
+    pub area90_deg2: f64,
+    /// Share of the 90% confidence region's area outside the 90% credible
+    /// region.
+    pub outside_credible90: f64,
+    pub n_pixels: usize,
+    pub n_evaluations: usize,
 }
 
 /// One basin of the search against the posterior: inside the prior, as good

@@ -7,6 +7,7 @@
 //! - [`sensitivity`]: detection probability over mass and distance.
 
 pub mod kernel;
+pub mod profile;
 pub mod refine;
 pub mod search;
 pub mod sensitivity;

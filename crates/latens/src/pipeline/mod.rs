@@ -43,7 +43,10 @@ pub use posterior::{
 pub use predict::{OrbitSample, Prediction, predict};
 pub use sensitivity::{SensitivityMap, SensitivityPlan, sensitivity};
 pub use simulation::{SimulatedScenario, TRACK_SPACING_DAYS, TrackPoint, simulate_population, simulate_scenario};
-pub use sky::{AS_GOOD_DELTA_CHI2, SUN_WARNING_DEG, SkyProducts, basin_eccentricity, sky_products, sky_products_at};
+pub use sky::{
+    AS_GOOD_DELTA_CHI2, ConfidenceRegion, SUN_WARNING_DEG, SkyProducts, basin_eccentricity, confidence_region,
+    sky_products, sky_products_at,
+};
 pub use study::{EphemerisSource, Study, TrackedArc, force_model, parse_known};
 pub use table::Table;
 

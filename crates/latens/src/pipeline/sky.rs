@@ -3,16 +3,22 @@
 use super::{DerivedSample, Detection, PipelineError, PosteriorRun, SearchGeometry, Study, geometry_at, next_months};
 use crate::astrometry::ObservingGeometry;
 use crate::frames::angular_separation;
+use crate::io::results::ConfidenceFile;
 use crate::io::results::{BasinStandingFile, ModeFile, SkyFile};
 use crate::perturber::KeplerOrbit;
-use crate::perturber::search::Scored;
+use crate::perturber::kernel::SignalKernel;
+use crate::perturber::profile::{ProfileSettings, SkyProfile, Vantage, profile_threshold, sky_profile};
+use crate::perturber::search::{Hypothesis, Scored, SearchSettings};
 use crate::posterior::quantiles;
+use crate::progress::Observer;
 use crate::skymap::observe::{
     ALBEDO_RANGE, CROWDED_LATITUDE_DEG, DENSITY_RANGE_G_CM3, galactic_lon_lat_deg, magnitude_range, motion,
 };
 use crate::skymap::{self, DEG2_PER_SR, SkyMap};
 use crate::time::{epoch_from_tdb_days, utc_iso_from_epoch};
 use crate::vec3::Vec3;
+use moc::moc::range::RangeMOC;
+use moc::qty::Hpx;
 
 /// Solar elongation below which a field gets the safety warning, degrees.
 pub const SUN_WARNING_DEG: f64 = 45.0;
@@ -199,8 +205,136 @@ pub fn sky_products_at(
         sun_dec_deg: sdec.to_degrees(),
         safety_warning: safety,
         basins: standing,
+        confidence: None,
     };
     Ok(SkyProducts { map, region50: r50, region90: r90, mode_of_leaf: comp, sun, sky, warnings })
+}
+
+/// The confidence regions of a detection: the profile likelihood over the
+/// sky at the search epoch ([`crate::perturber::profile`]) and its 50% and
+/// 90% regions.
+pub struct ConfidenceRegion {
+    pub profile: SkyProfile,
+    /// Nested pixels (at `profile.order`) of the 50% and 90% regions.
+    pub region50: Vec<u64>,
+    pub region90: Vec<u64>,
+}
+
+impl ConfidenceRegion {
+    /// A region as a MOC.
+    pub fn moc(&self, pixels: &[u64]) -> RangeMOC<u64, Hpx<u64>> {
+        RangeMOC::from_cells(self.profile.order, pixels.iter().map(|&p| (self.profile.order, p)), None)
+    }
+
+    /// The outline of a region: the edges of its pixels that border a
+    /// pixel outside it, each as its two end points.
+    pub fn outline(&self, pixels: &[u64]) -> Vec<(Vec3, Vec3)> {
+        use cdshealpix::compass_point::MainWind;
+        let order = self.profile.order;
+        let inside: std::collections::HashSet<u64> = pixels.iter().copied().collect();
+        let mut edges = Vec::new();
+        for &ipix in pixels {
+            // Vertices S, E, N, W; the edge from each to the next faces the
+            // neighbour SE, NE, NW, SW.
+            let v = cdshealpix::nested::vertices(order, ipix).map(skymap::unit_from_lon_lat);
+            let around = cdshealpix::nested::neighbours(order, ipix, false);
+            for (k, wind) in [MainWind::SE, MainWind::NE, MainWind::NW, MainWind::SW].into_iter().enumerate() {
+                if around.get(wind).is_none_or(|n| !inside.contains(n)) {
+                    edges.push((v[k], v[(k + 1) % 4]));
+                }
+            }
+        }
+        edges
+    }
+}
+
+/// The profile likelihood over the sky of a posterior's kernel, within its
+/// prior (mass and distance ranges, eccentricity, closest approach) and
+/// the search's direction band; grown from the search's `basins` and a
+/// spread of the posterior's samples. `t0`, `gm`: as for [`sky_products_at`].
+pub fn confidence_region<K: SignalKernel + ?Sized + Sync>(
+    study: &Study,
+    kernel: &K,
+    search: &SearchSettings,
+    basins: &[Scored],
+    run: &PosteriorRun,
+    observer: &dyn Observer,
+) -> Result<ConfidenceRegion, PipelineError> {
+    let geometry = SearchGeometry::new(study.wide.as_ref(), study.search_epoch_tdb_days)?;
+    let vantage = Vantage { epoch_tdb_days: geometry.epoch, observer_au: geometry.geometry.observer_au };
+    let prior = &run.summary.prior;
+    let bounds = SearchSettings {
+        mass_earth: (prior.mass_earth_log_uniform[0], prior.mass_earth_log_uniform[1]),
+        distance_au: (prior.heliocentric_distance_au_log_uniform[0], prior.heliocentric_distance_au_log_uniform[1]),
+        min_separation_au: prior.min_separation_au,
+        ..search.clone()
+    };
+    // Up to 256 of the samples, spread over the chain.
+    let stride = (run.samples.len() / 256).max(1);
+    let seeds: Vec<Hypothesis> = basins
+        .iter()
+        .map(|b| b.hypothesis)
+        .chain(run.samples.iter().step_by(stride).map(|s| Hypothesis {
+            position_au: s.sample.position_au,
+            velocity_au_per_day: s.sample.velocity_au_per_day,
+        }))
+        .collect();
+    let profile =
+        sky_profile(kernel, vantage, &bounds, prior.max_eccentricity, &ProfileSettings::default(), &seeds, observer);
+    if !profile.best.is_finite() {
+        return Err(PipelineError::failure(
+            "confidence region",
+            "the profile likelihood found no perturber the prior allows",
+        ));
+    }
+    let (region50, region90) = (profile.region(0.5), profile.region(0.9));
+    Ok(ConfidenceRegion { profile, region50, region90 })
+}
+
+impl SkyProducts {
+    /// Records the confidence regions beside the credible ones: their
+    /// areas, the share of the 90% confidence region outside the 90%
+    /// credible region, and a warning when that share is large.
+    pub fn add_confidence(&mut self, c: &ConfidenceRegion) {
+        let p = &c.profile;
+        let (area50, area90) = (p.area_deg2(&c.region50), p.area_deg2(&c.region90));
+        let credible: std::collections::HashSet<usize> = self.region90.iter().copied().collect();
+        let outside = c
+            .region90
+            .iter()
+            .filter(|&&ipix| {
+                let centre = skymap::unit_from_lon_lat(cdshealpix::nested::center(p.order, ipix));
+                self.map.leaf_of(centre).is_none_or(|leaf| !credible.contains(&leaf))
+            })
+            .count() as f64
+            / c.region90.len().max(1) as f64;
+        self.sky.confidence = Some(ConfidenceFile {
+            method: "profile likelihood over the sky: the best chi-square drop of any perturber the prior allows \
+                     (mass, distance, eccentricity, closest approach, direction band) whose geocentric place at the \
+                     search epoch lies in the pixel; a region holds the pixels within the quantile of chi-square \
+                     with 2 degrees of freedom of the best (Wilks 1938); it leans on no prior volume"
+                .into(),
+            order: p.order,
+            best_delta_chi2: p.best,
+            threshold50: profile_threshold(0.5),
+            threshold90: profile_threshold(0.9),
+            area50_deg2: area50,
+            area90_deg2: area90,
+            outside_credible90: outside,
+            n_pixels: p.delta_chi2.len(),
+            n_evaluations: p.n_evaluations,
+        });
+        if outside > 0.25 {
+            self.warnings.push(format!(
+                "{:.0}% of the 90% confidence region ({area90:.0} sq deg: places where some perturber the prior allows \
+                 fits within {:.2} in chi-square of the best) lies outside the 90% credible region: the posterior \
+                 weighs those places down by prior volume, not by fit; if the credible region is searched in vain, \
+                 search the rest of the confidence region (confidence90.fits) too",
+                100.0 * outside,
+                profile_threshold(0.9)
+            ));
+        }
+    }
 }
 
 /// Where each basin stands against the posterior: its place at the search
@@ -326,6 +460,46 @@ mod tests {
         assert!(w[1].starts_with("basin 5 ") && w[1].contains("within 2.0 in chi-square"));
         assert!(w[1].contains("outside the 90% region"), "{}", w[1]);
         assert!(w[2].starts_with("basin 6 ") && w[2].contains("interval (5.00-50.00) and the 90% region"));
+    }
+
+    fn region(pixels: &[u64]) -> ConfidenceRegion {
+        let profile = SkyProfile {
+            order: 4,
+            delta_chi2: pixels.iter().map(|&p| (p, 10.0)).collect(),
+            best: 10.0,
+            best_pixel: pixels[0],
+            n_evaluations: 0,
+            n_polished: 0,
+        };
+        ConfidenceRegion { profile, region50: pixels.to_vec(), region90: pixels.to_vec() }
+    }
+
+    /// A region's outline is the edges it shares with no other of its
+    /// pixels: four for one pixel, six for two neighbours; each edge joins
+    /// two of the pixels' corners (cdshealpix vertices).
+    #[test]
+    fn a_confidence_region_is_outlined_by_its_outer_edges() {
+        let one = region(&[1000]);
+        let edges = one.outline(&[1000]);
+        assert_eq!(edges.len(), 4);
+        let corners = cdshealpix::nested::vertices(4, 1000).map(skymap::unit_from_lon_lat);
+        for (a, b) in &edges {
+            assert!(
+                corners.iter().any(|c| (*c - *a).norm() < 1e-12) && corners.iter().any(|c| (*c - *b).norm() < 1e-12)
+            );
+        }
+        // A neighbour across an edge (south-east) shares it: six edges; one
+        // across a corner (south) shares none: eight.
+        let around = cdshealpix::nested::neighbours(4, 1000, false);
+        let next = *around.get(cdshealpix::compass_point::MainWind::SE).unwrap();
+        let two = region(&[1000, next]);
+        assert_eq!(two.outline(&[1000, next]).len(), 6);
+        let corner = *around.get(cdshealpix::compass_point::MainWind::S).unwrap();
+        assert_eq!(region(&[1000, corner]).outline(&[1000, corner]).len(), 8);
+        // The MOC holds both pixels and nothing else.
+        let moc = two.moc(&[1000, next]);
+        let area = skymap::moc_area_deg2(&moc);
+        assert!((area - 2.0 * two.profile.area_deg2(&[1000])).abs() < 1e-9);
     }
 
     /// The eccentricity a basin is judged by is its orbit's about the

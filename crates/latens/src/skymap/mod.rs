@@ -45,6 +45,10 @@ use rayon::prelude::*;
 
 use crate::vec3::Vec3;
 
+/// A MOC of HEALPix cells (the moc crate's range form), as the regions
+/// are written.
+pub type Moc = RangeMOC<u64, Hpx<u64>>;
+
 /// Orders of the adaptive map.
 pub const MIN_ORDER: u8 = 3;
 pub const MAX_ORDER: u8 = 12;
