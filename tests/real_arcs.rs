@@ -142,6 +142,24 @@ fn hidden_planet(case: &str, known: &str, tracked: &str, hidden: latens::ephemer
     let d = unit(num(&truth, "ra_deg"), num(&truth, "dec_deg"));
     let moc = std::fs::read_to_string(dir.join("region90.json")).unwrap();
     assert!(latens::skymap::moc_json_contains(&moc, d).unwrap(), "{case}: the hidden planet is outside the 90% region");
+    // The profile likelihood's 90% confidence region holds the truth too,
+    // and its area is the forecast's: the Fisher forecast's 90% ellipse is
+    // the profile-likelihood region of a linear model (REBOUND, DE421;
+    // tests/data/realarcs/fisher.py).
+    let conf = std::fs::read_to_string(dir.join("confidence90.json")).unwrap();
+    assert!(
+        latens::skymap::moc_json_contains(&conf, d).unwrap(),
+        "{case}: the hidden planet is outside the 90% confidence region"
+    );
+    let conf90 = v["sky"]["confidence"]["area90_deg2"].as_f64().unwrap();
+    eprintln!("{case}: 90% confidence region {conf90:.1} sq deg (forecast {forecast_area:.1})");
+    assert!(conf90 > 0.5 * forecast_area, "{case}: 90% confidence region {conf90} sq deg, forecast {forecast_area}");
+    if expect.area_bounded_above {
+        assert!(
+            conf90 < 4.0 * forecast_area,
+            "{case}: 90% confidence region {conf90} sq deg, forecast {forecast_area}"
+        );
+    }
     let b = &v["best_fit"];
     let sep = unit(b["ra_deg"].as_f64().unwrap(), b["dec_deg"].as_f64().unwrap()).dot(d).clamp(-1.0, 1.0).acos();
     let sigma = num(&forecast, "sigma_major_deg");
