@@ -146,19 +146,27 @@ fn hidden_planet(case: &str, known: &str, tracked: &str, hidden: latens::ephemer
     // and its area is the forecast's: the Fisher forecast's 90% ellipse is
     // the profile-likelihood region of a linear model (REBOUND, DE421;
     // tests/data/realarcs/fisher.py).
+    // Where the forecast describes the posterior (one regular maximum, as
+    // Wilks's theorem assumes). Measured on the weak Pluto arc, four basins
+    // within 3.6 of the best: the truth 6.38 below the best in the
+    // profile, outside the 90% confidence region (1061 sq deg) and inside
+    // the credible one (1780); `infer` warns of the several maxima.
     let conf = std::fs::read_to_string(dir.join("confidence90.json")).unwrap();
-    assert!(
-        latens::skymap::moc_json_contains(&conf, d).unwrap(),
-        "{case}: the hidden planet is outside the 90% confidence region"
-    );
+    let conf_holds = latens::skymap::moc_json_contains(&conf, d).unwrap();
     let conf90 = v["sky"]["confidence"]["area90_deg2"].as_f64().unwrap();
-    eprintln!("{case}: 90% confidence region {conf90:.1} sq deg (forecast {forecast_area:.1})");
+    eprintln!(
+        "{case}: 90% confidence region {conf90:.1} sq deg (forecast {forecast_area:.1}), holds the truth: {conf_holds}"
+    );
     assert!(conf90 > 0.5 * forecast_area, "{case}: 90% confidence region {conf90} sq deg, forecast {forecast_area}");
     if expect.area_bounded_above {
+        assert!(conf_holds, "{case}: the hidden planet is outside the 90% confidence region");
         assert!(
             conf90 < 4.0 * forecast_area,
             "{case}: 90% confidence region {conf90} sq deg, forecast {forecast_area}"
         );
+    } else {
+        let warned = v["warnings"].as_array().unwrap().iter().any(|w| w.as_str().unwrap().contains("distinct basins"));
+        assert!(conf_holds || warned, "{case}: the confidence region misses the truth without a warning");
     }
     let b = &v["best_fit"];
     let sep = unit(b["ra_deg"].as_f64().unwrap(), b["dec_deg"].as_f64().unwrap()).dot(d).clamp(-1.0, 1.0).acos();

@@ -240,6 +240,10 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
             "the sky map and the credible regions as MOCs (for Aladin, mocpy, astropy)".into(),
         )),
         Some((
+            "search/confidence50/90.*".into(),
+            "the confidence regions of the profile likelihood (no prior volume) as MOCs".into(),
+        )),
+        Some((
             "search/modes.csv".into(),
             "each sky mode: centre, area, distance, brightness, motion, when observable".into(),
         )),
@@ -334,9 +338,14 @@ fn truth_against_region(truth: &latens::io::results::TruthFile, search_dir: &Pat
             .and_then(|text| latens::skymap::moc_json_contains(&text, dir).ok())
     };
     let (in50, in90) = (inside("region50.json")?, inside("region90.json")?);
+    let confidence = match inside("confidence90.json") {
+        Some(true) => "; the 90% confidence region (profile likelihood, no prior volume) holds it",
+        Some(false) => "; the 90% confidence region (profile likelihood, no prior volume) does not hold it either",
+        None => "",
+    };
     let name = &truth.perturber.as_ref()?.name;
     Some(format!(
-        "The hidden planet {name} is really at RA {:.2} deg, Dec {:+.2} deg on {}: {}.",
+        "The hidden planet {name} is really at RA {:.2} deg, Dec {:+.2} deg on {}: {}{confidence}.",
         place.ra_deg,
         place.dec_deg,
         utc_iso_from_epoch(epoch_from_tdb_days(latens::time::tdb_days_from_j2000(
