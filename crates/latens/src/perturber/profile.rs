@@ -79,9 +79,8 @@ pub struct SkyProfile {
     /// Per pixel reached (nested index): the largest drop found. Pixels not
     /// here were never brought near the region.
     pub delta_chi2: std::collections::HashMap<u64, f64>,
-    /// The best drop over the sky and its pixel.
+    /// The best drop over the sky.
     pub best: f64,
-    pub best_pixel: u64,
     /// Kernel evaluations spent.
     pub n_evaluations: usize,
     /// Pixels polished.
@@ -136,15 +135,20 @@ impl Allowed<'_> {
 
 /// A state at the search epoch, (position, velocity), carried to the
 /// kernel's reference epoch on its two-body orbit.
+/// An orbit's position and velocity at `t`, the velocity by a central
+/// difference over a day: relative error of order (n h)^2, far below 1e-9
+/// for any bound perturber beyond a few au.
+fn state_at(orbit: &KeplerOrbit, t: f64) -> (Vec3, Vec3) {
+    let mut guess = f64::NAN;
+    let r = orbit.position(t, &mut guess);
+    let v = (orbit.position(t + 0.5, &mut guess) - orbit.position(t - 0.5, &mut guess)) / 1.0;
+    (r, v)
+}
+
 /// `gm`: the central mass's; `t0`: the reference epoch (TDB days).
 fn to_reference(gm: f64, t0: f64, t_search: f64, r: Vec3, v: Vec3) -> Option<Hypothesis> {
     let orbit = KeplerOrbit::from_state(gm, r, v, t_search)?;
-    let mut guess = f64::NAN;
-    let position_au = orbit.position(t0, &mut guess);
-    // Central difference over a day: relative error of order (n h)^2, far
-    // below 1e-9 for any bound perturber beyond a few au.
-    let h = 0.5;
-    let velocity_au_per_day = (orbit.position(t0 + h, &mut guess) - orbit.position(t0 - h, &mut guess)) / (2.0 * h);
+    let (position_au, velocity_au_per_day) = state_at(&orbit, t0);
     Some(Hypothesis { position_au, velocity_au_per_day })
 }
 
@@ -221,10 +225,7 @@ impl<K: SignalKernel + ?Sized> CostFunction for PixelCost<'_, K> {
 /// speed along r^, e1, e2) at the search epoch.
 fn as_start(gm: f64, t0: f64, vantage: &Vantage, order: u8, h: &Hypothesis) -> Option<(u64, Vec<f64>)> {
     let orbit = KeplerOrbit::from_state(gm, h.position_au, h.velocity_au_per_day, t0)?;
-    let t = vantage.epoch_tdb_days;
-    let mut guess = f64::NAN;
-    let r = orbit.position(t, &mut guess);
-    let v = (orbit.position(t + 0.5, &mut guess) - orbit.position(t - 0.5, &mut guess)) / 1.0;
+    let (r, v) = state_at(&orbit, vantage.epoch_tdb_days);
     let u = (r - vantage.observer_au).unit();
     let (lon, lat) = crate::skymap::lon_lat(u);
     let d = r.norm();
@@ -471,13 +472,11 @@ pub fn sky_profile<K: SignalKernel + ?Sized + Sync>(
         found = profiler.flood(order, starts, profile_threshold(0.9) + 5.0, &mut evaluations, &mut polished, observer);
     }
     observer.finish();
-    let (best_pixel, best) =
-        found.iter().fold((0, f64::NEG_INFINITY), |a, (&i, v)| if v.0 > a.1 { (i, v.0) } else { a });
+    let best = found.values().map(|v| v.0).fold(f64::NEG_INFINITY, f64::max);
     SkyProfile {
         order,
         delta_chi2: found.into_iter().map(|(k, v)| (k, v.0)).collect(),
         best,
-        best_pixel,
         n_evaluations: evaluations,
         n_polished: polished,
     }

@@ -482,7 +482,6 @@ mod tests {
             order: 4,
             delta_chi2: pixels.iter().map(|&p| (p, 10.0)).collect(),
             best: 10.0,
-            best_pixel: pixels[0],
             n_evaluations: 0,
             n_polished: 0,
         };
