@@ -8,7 +8,10 @@
 //! (a 38-56 au, e up to 0.2, i up to 28 deg, random angles; seeded).
 //!
 //! Run: `cargo bench --bench joint` (the population search takes minutes;
-//! `LATENS_BENCH_BODIES=0` skips it).
+//! `LATENS_BENCH_BODIES=0` skips it). `LATENS_BENCH_SHARDS=1/16,9/16`
+//! times those shards of the sensitivity map's threshold calibration over
+//! the population instead of the whole search (as `latens sensitivity
+//! --shard K/N` runs them).
 
 use std::time::Instant;
 
@@ -20,7 +23,7 @@ use latens::dynamics::{ForceModel, InitialState};
 use latens::ephemeris::Vsop87;
 use latens::frames::icrf_from_ecliptic;
 use latens::io::observations::SiteTable;
-use latens::perturber::search::{SearchSettings, hypotheses, score};
+use latens::perturber::search::{SearchSettings, hypotheses, null_maxima_share, score};
 use latens::perturber::{JointKernel, LinearKernel, SignalKernel, grid_search};
 use latens::progress::Quiet;
 use latens::reference::{ReferenceSettings, fit_reference_orbit, observing_geometry};
@@ -136,6 +139,34 @@ fn main() {
     let joint = JointKernel::new(kernels[..population].to_vec()).expect("one epoch");
     let settings = SearchSettings::default();
     let n_hyp = hypotheses(&settings, joint.central_gm()).len();
+    if let Ok(list) = std::env::var("LATENS_BENCH_SHARDS") {
+        // Shards of the sensitivity map's threshold calibration (the null
+        // simulations over every N-th hypothesis of the default grid), as
+        // `latens sensitivity --shard K/N` runs them: each shard's time.
+        for item in list.split(',') {
+            let (k, n) = item.split_once('/').expect("K/N");
+            let shard = (k.trim().parse().expect("K"), n.trim().parse().expect("N"));
+            let t = Instant::now();
+            let share = null_maxima_share(&joint, &settings, shard, &Quiet);
+            println!(
+                "population_{population}_bodies_null_shard_{}_of_{}: {:.1} s on {} threads ({} of {n_hyp} hypotheses, {} null simulations, subspace dimension {}, energy {:.4}; median maximum {:.2})",
+                shard.0,
+                shard.1,
+                t.elapsed().as_secs_f64(),
+                rayon::current_num_threads(),
+                share.n_in_shard,
+                settings.n_null,
+                share.subspace_dimension,
+                share.subspace_energy,
+                {
+                    let mut m = share.maxima.clone();
+                    m.sort_by(f64::total_cmp);
+                    m[m.len() / 2]
+                }
+            );
+        }
+        return;
+    }
     let t = Instant::now();
     let result = grid_search(&joint, &settings, &Quiet);
     println!(

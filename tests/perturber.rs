@@ -385,3 +385,71 @@ fn nonlinear_weights_hold_in_the_linear_regime_and_collapse_beyond_it() {
         }
     }
 }
+
+#[test]
+fn null_simulations_in_shards_are_the_whole_grids_and_match_exact_search_maxima() {
+    // The sharded null simulations (`latens sensitivity --shard`): each
+    // shard takes every N-th hypothesis and the same noise, so the maxima
+    // over three shards combine into exactly the maxima of one piece; and
+    // the maxima of the signal-subspace shortcut follow the distribution of
+    // the exact search maximum over the same grid on pure-noise residuals
+    // (two-sample Kolmogorov-Smirnov at the 1% level, critical value
+    // 1.628 sqrt((n + m) / (n m)): Smirnov's asymptotic table, common
+    // practice).
+    use latens::perturber::SignalKernel;
+    use latens::perturber::search::{NullShare, hypotheses, null_maxima_share, score};
+    use rand::SeedableRng;
+    use rand_distr::{Distribution, StandardNormal};
+    let s = scenario();
+    let obs = simulate_survey(&survey(55, true), &initial(&s, vec![]), &s.model, &s.ephemeris, &s.sites).unwrap();
+    let settings = ReferenceSettings { epoch_tdb_days: Some(T0), ..ReferenceSettings::default() };
+    let fit = fit_reference_orbit(&obs, &s.sites, &s.model, &s.ephemeris, &settings, None).unwrap();
+    let geometry = observing_geometry(&obs, &s.sites, &s.ephemeris).unwrap();
+    let kernel = LinearKernel::build(&fit, &obs, geometry, &s.model, &s.ephemeris).unwrap();
+    let search = SearchSettings {
+        n_directions: 64,
+        n_distances: 6,
+        n_orientations: 4,
+        n_null: 400,
+        ..SearchSettings::default()
+    };
+    let quiet = &latens::progress::Quiet;
+    let whole = null_maxima_share(&kernel, &search, (1, 1), quiet);
+    let parts: Vec<NullShare> = (1..=3).map(|k| null_maxima_share(&kernel, &search, (k, 3), quiet)).collect();
+    assert_eq!(parts.iter().map(|p| p.n_in_shard).sum::<usize>(), whole.n_hypotheses);
+    let combined = NullShare::combine(&parts.iter().collect::<Vec<_>>()).unwrap();
+    assert_eq!(combined, whole.maxima, "the shards' maxima differ from the whole grid's");
+    // Two shards of three, or a shard twice, do not make a whole.
+    assert!(NullShare::combine(&[&parts[0], &parts[1]]).is_none());
+    assert!(NullShare::combine(&[&parts[0], &parts[1], &parts[1]]).is_none());
+
+    // The exact grid maximum (every hypothesis scored on the noise itself).
+    let gm_max = search.mass_earth.1 * latens::units::GM_EARTH_MASS_AU3_PER_DAY2;
+    let hyps = hypotheses(&search, kernel.central_gm());
+    let mut rng = rand::rngs::StdRng::seed_from_u64(17);
+    let mut exact: Vec<f64> = (0..80)
+        .map(|_| {
+            let y: Vec<f64> = (0..kernel.n_residuals()).map(|_| StandardNormal.sample(&mut rng)).collect();
+            let k = kernel.with_residuals(&y);
+            let mut scratch = vec![0.0; k.n_residuals()];
+            hyps.iter()
+                .filter_map(|h| score(&k, h, gm_max, search.min_separation_au, &mut scratch))
+                .map(|s| s.delta_chi2)
+                .fold(0.0, f64::max)
+        })
+        .collect();
+    exact.sort_by(f64::total_cmp);
+    let mut shortcut = whole.maxima.clone();
+    shortcut.sort_by(f64::total_cmp);
+    let cdf = |v: &[f64], x: f64| v.partition_point(|&a| a <= x) as f64 / v.len() as f64;
+    let d = exact.iter().chain(&shortcut).map(|&x| (cdf(&exact, x) - cdf(&shortcut, x)).abs()).fold(0.0, f64::max);
+    let (n, m) = (exact.len() as f64, shortcut.len() as f64);
+    let critical = 1.628 * ((n + m) / (n * m)).sqrt();
+    eprintln!(
+        "null maxima: medians {:.2} (exact, {n}) and {:.2} (subspace, {m}); KS {d:.3} (1% critical {critical:.3}); subspace energy {:.5}",
+        exact[exact.len() / 2],
+        shortcut[shortcut.len() / 2],
+        whole.subspace_energy
+    );
+    assert!(d < critical, "the shortcut's null maxima differ from the exact grid's: KS {d:.3}");
+}

@@ -159,7 +159,14 @@ fn four_shards_merge_into_the_unsharded_map() {
     let (m_whole, m_merged) = (meta(whole.join("sensitivity.json")), meta(merged.join("sensitivity.json")));
     assert_eq!(m_whole, m_merged);
     assert!(m_whole["threshold_delta_chi2"].as_f64().unwrap() > 0.0);
-    assert_eq!(meta(parts.join("sensitivity.part-3-of-4.json"))["shard"], serde_json::json!([3, 4]));
+    let part = meta(parts.join("sensitivity.part-3-of-4.json"));
+    assert_eq!(part["shard"], serde_json::json!([3, 4]));
+    // Each shard holds a quarter of the threshold search's hypotheses (24
+    // directions x 4 distances x 8 orientations x 3 speeds) and its
+    // distances' trials; the threshold waits for the merge.
+    assert_eq!(part["hypotheses"], serde_json::json!([576, 2304]));
+    assert_eq!(part["null_maxima"].as_array().unwrap().len(), 40);
+    assert!(part["threshold_delta_chi2"].is_null());
     assert!(merged.join("sensitivity.png").exists());
     // A planned schedule (epochs and sigmas only) with an orbit from fit.json.
     let text = std::fs::read_to_string(demo.join("observations.csv")).unwrap();
@@ -219,10 +226,19 @@ fn four_shards_merge_into_the_unsharded_map() {
     assert_eq!(o.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&o.stderr).contains("other settings"), "{}", String::from_utf8_lossy(&o.stderr));
     std::fs::write(&side, original).unwrap();
-    // A missing shard is refused.
+    // A shard's table missing, then the whole shard: both refused, by name.
+    let merge_bad = || {
+        let o = latens().args(["sensitivity", "merge"]).arg(&parts).arg("--out").arg(dir.join("bad")).output().unwrap();
+        assert_eq!(o.status.code(), Some(2));
+        assert!(!dir.join("bad").join("sensitivity.csv").exists());
+        String::from_utf8_lossy(&o.stderr).to_string()
+    };
     std::fs::remove_file(parts.join("sensitivity.part-2-of-4.csv")).unwrap();
-    let o = latens().args(["sensitivity", "merge"]).arg(&parts).arg("--out").arg(dir.join("bad")).output().unwrap();
-    assert_eq!(o.status.code(), Some(2));
+    let e = merge_bad();
+    assert!(e.contains("sensitivity.part-2-of-4.csv"), "{e}");
+    std::fs::remove_file(parts.join("sensitivity.part-2-of-4.json")).unwrap();
+    let e = merge_bad();
+    assert!(e.contains("1/N to N/N") && e.contains("4/4"), "{e}");
     std::fs::remove_dir_all(&dir).unwrap();
 }
 

@@ -14,8 +14,12 @@
 set -euo pipefail
 N=${SLURM_ARRAY_TASK_COUNT:-16}
 K=${SLURM_ARRAY_TASK_ID:?run as an array job}
-# Every task must use the same inputs, grid, trials and seed: each computes
-# its own slice of the cells, with the same numbers an unsharded run gives.
+# Every task must use the same inputs, grid, trials and seed: each fits
+# every body, runs every N-th hypothesis of the threshold's null
+# simulations (the costly part) and draws every N-th distance's trials; the
+# merge gives the same numbers an unsharded run gives. A population: give
+# --obs a directory of observation files (or planned schedules with
+# --orbit DIR).
 latens sensitivity \
   --obs observations.csv --sites sites.csv \
   --grid 40:40 --trials 64 --seed 1 \

@@ -74,6 +74,7 @@ __all__ = [
     "Study",
     "detect",
     "infer",
+    "merge_sensitivity",
     "posterior",
     "predict",
     "reference_fit",
@@ -342,8 +343,19 @@ def posterior(study, detection, *, progress: Any = None, checkpoint=None, **sett
     return _native.posterior(study, detection, progress=_progress(progress), checkpoint=checkpoint, **settings)
 
 
-def sensitivity(study, *, progress: Any = None, **settings) -> Sensitivity:
-    return _native.sensitivity(study, progress=_progress(progress), **settings)
+def sensitivity(study, *, progress: Any = None, out=None, **settings):
+    if out is not None:
+        out = os.fspath(out)
+    return _native.sensitivity(study, progress=_progress(progress), out=out, **settings)
+
+
+def merge_sensitivity(dirs) -> Sensitivity:
+    """Joins the shards written by ``sensitivity(..., shard=(K, N), out=DIR)``
+    or ``latens sensitivity --shard K/N`` in the directories ``dirs`` (one
+    path or several) into the whole map, as ``latens sensitivity merge``."""
+    if isinstance(dirs, (str, os.PathLike)):
+        dirs = [dirs]
+    return _native.merge_sensitivity([os.fspath(d) for d in dirs])
 
 
 def predict(study, detection, posterior, **settings) -> Columns:

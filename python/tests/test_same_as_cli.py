@@ -3,6 +3,7 @@ same seed, the same files' contents (the binding only converts)."""
 
 import csv
 import json
+from pathlib import Path
 
 import numpy as np
 
@@ -146,6 +147,22 @@ def test_sensitivity_matches_latens_sensitivity(simulated, tmp_path):
         assert abs(got[key] - float(r["detection_probability"])) < 5.1e-7
     assert s.probability.shape == (3, 3)
     assert s.to_pandas().shape[0] == 9
+    # Shards: one written here, one by the command, merged here into the
+    # unsharded map (the same numbers).
+    shards = tmp_path / "shards"
+    written = latens.sensitivity(study, grid=(3, 3), trials=8, nulls=40, directions=12, distances=2,
+                                 shard=(1, 2), out=shards)
+    assert [Path(p).name for p in written] == ["sensitivity.part-1-of-2.json", "sensitivity.part-1-of-2.csv"]
+    run_cli(
+        "sensitivity",
+        "--obs", simulated / "observations.csv",
+        "--sites", simulated / "sites.csv",
+        "--grid", "3:3", "--trials", 8, "--nulls", 40, "--directions", 12, "--distances", 2,
+        "--shard", "2/2", "--out", shards,
+    )
+    merged = latens.merge_sensitivity([shards])
+    assert merged.threshold_delta_chi2 == s.threshold_delta_chi2
+    assert list(merged.cells["detection_probability"]) == list(s.cells["detection_probability"])
 
 
 def test_infer_in_one_call_is_the_three_stages(cli_infer, py_run):

@@ -11,7 +11,10 @@ use latens::io::results::SensitivityFile;
 use latens::io::write_atomically;
 use latens::perturber::search::SearchSettings;
 use latens::perturber::sensitivity::{Cell, SensitivitySettings, contour};
-use latens::pipeline::{EphemerisSource, SensitivityPlan, Study, TrackedArc, parse_known, sensitivity};
+use latens::pipeline::{
+    EphemerisSource, SensitivityPlan, SensitivityShare, Study, TrackedArc, merge_sensitivity, parse_known, sensitivity,
+    sensitivity_share,
+};
 use latens_charts::sensitivity_chart::SensitivityChart;
 
 const HEADER: &str =
@@ -114,45 +117,28 @@ pub(super) fn run(args: &SensitivityArgs) -> Result<(), CliError> {
             study
         }
     };
-    let map = sensitivity(&study, &plan, &crate::cli::progress::Bars::new())?;
-    let (threshold, cells) = (map.threshold_delta_chi2, &map.cells);
-
-    let meta = SensitivityFile {
-        threshold_delta_chi2: threshold,
-        false_alarm_probability: args.fap,
-        seed: args.seed,
-        mass_earth: [mass.0, mass.1],
-        distance_au: [distance.0, distance.1],
-        grid: [grid.0, grid.1],
-        trials: args.trials,
-        near_ecliptic_deg: args.near_ecliptic,
-        nulls: args.nulls,
-        directions: args.directions,
-        distances: args.distances,
-        bodies: study.bodies.iter().map(|b| b.name.clone()).collect(),
-        shard: shard.map(|(k, n)| [k, n]),
-    };
-    let mut csv = format!("{HEADER}\n");
-    for c in cells {
-        csv.push_str(&csv_row(c));
-    }
+    let about = plan.file(study.bodies.iter().map(|b| b.name.clone()).collect());
+    let bars = crate::cli::progress::Bars::new();
     match shard {
         Some((k, n)) => {
+            let share = sensitivity_share(&study, &plan, &bars)?;
             std::fs::create_dir_all(&args.out)
                 .map_err(|e| CliError::failed(anyhow::anyhow!("creating {}: {e}", args.out.display())))?;
-            let path = args.out.join(format!("sensitivity.part-{k}-of-{n}.csv"));
-            write_atomically(&path.with_extension("json"), json_text(&meta).as_bytes()).map_err(CliError::failed)?;
-            write_atomically(&path, csv.as_bytes()).map_err(CliError::failed)?;
+            let [json, csv] = share.write(&args.out, &about)?;
             say!(
-                "Shard {k} of {n}: {} cells written to {} (settings in {})",
-                cells.len(),
-                path.display(),
-                path.with_extension("json").display()
+                "Shard {k} of {n}: {} of the threshold search's {} hypotheses and the trials of {} distances written to {} and {}",
+                share.nulls.n_in_shard,
+                share.nulls.n_hypotheses,
+                share.amplitudes.len(),
+                csv.display(),
+                json.display()
             );
             say!("Join the shards with: latens sensitivity merge DIR... --out DIR");
         }
         None => {
-            write_products(&args.out, &csv, cells, &meta).map_err(CliError::failed)?;
+            let map = sensitivity(&study, &plan, &bars)?;
+            let meta = SensitivityFile { threshold_delta_chi2: Some(map.threshold_delta_chi2), ..about };
+            write_products(&args.out, &map.cells, &meta).map_err(CliError::failed)?;
         }
     }
     Ok(())
@@ -206,8 +192,12 @@ pub(super) fn read_orbit(path: &Path) -> Result<(f64, [f64; 6]), CliError> {
     Ok((jd - latens::units::J2000_JD, state))
 }
 
-fn write_products(out: &Path, csv: &str, cells: &[Cell], meta: &SensitivityFile) -> anyhow::Result<()> {
-    let threshold = meta.threshold_delta_chi2;
+fn write_products(out: &Path, cells: &[Cell], meta: &SensitivityFile) -> anyhow::Result<()> {
+    let threshold = meta.threshold_delta_chi2.unwrap_or(f64::NAN);
+    let mut csv = format!("{HEADER}\n");
+    for c in cells {
+        csv.push_str(&csv_row(c));
+    }
     let c50 = contour(cells, 0.5);
     let c90 = contour(cells, 0.9);
     let c95 = contour(cells, 0.95);
@@ -239,86 +229,12 @@ fn write_products(out: &Path, csv: &str, cells: &[Cell], meta: &SensitivityFile)
 }
 
 /// Joins shard files into the full map: every shard's settings
-/// (sensitivity.part-K-of-N.json) must agree; missing or repeated cells are
-/// refused.
+/// (sensitivity.part-K-of-N.json) must agree; missing or repeated shards
+/// or distances are refused. The threshold comes from the null maxima of
+/// all the shards together, so the result is the unsharded map's.
 fn merge(dirs: &[PathBuf], out: &Path) -> Result<(), CliError> {
-    let mut settings: Option<(SensitivityFile, PathBuf)> = None;
-    let mut cells: Vec<Cell> = Vec::new();
-    for dir in dirs {
-        let entries = std::fs::read_dir(dir)
-            .with_context(|| format!("reading {}", dir.display()))
-            .map_err(CliError::bad_input)?;
-        let mut parts: Vec<PathBuf> = entries
-            .filter_map(|e| e.ok().map(|e| e.path()))
-            .filter(|p| {
-                p.file_name().is_some_and(|n| n.to_string_lossy().starts_with("sensitivity.part-"))
-                    && p.extension().is_some_and(|x| x == "csv")
-            })
-            .collect();
-        parts.sort();
-        for part in parts {
-            let side = part.with_extension("json");
-            let meta: SensitivityFile =
-                latens::io::results::read_json(&side).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
-            let same = SensitivityFile { shard: None, ..meta.clone() };
-            match &settings {
-                None => settings = Some((same, side.clone())),
-                Some((first, first_path)) if *first != same => {
-                    return Err(CliError::bad_input(anyhow::anyhow!(
-                        "{}: made with other settings than {}",
-                        side.display(),
-                        first_path.display()
-                    )));
-                }
-                _ => {}
-            }
-            let text = std::fs::read_to_string(&part)
-                .with_context(|| format!("reading {}", part.display()))
-                .map_err(CliError::bad_input)?;
-            for (i, line) in text.lines().enumerate() {
-                let bad = |what: &str| CliError::bad_input(anyhow::anyhow!("{}:{}: {what}", part.display(), i + 1));
-                if line == HEADER || line.trim().is_empty() {
-                    continue;
-                }
-                let f: Vec<&str> = line.split(',').collect();
-                if f.len() != 7 {
-                    return Err(bad("expected 7 fields"));
-                }
-                let num = |k: usize| f[k].parse::<f64>().map_err(|_| bad(&format!("field {} is not a number", k + 1)));
-                let idx =
-                    |k: usize| f[k].parse::<usize>().map_err(|_| bad(&format!("field {} is not an index", k + 1)));
-                cells.push(Cell {
-                    mass_earth: num(0)?,
-                    distance_au: num(1)?,
-                    detection_probability: num(2)?,
-                    n_trials: idx(3)?,
-                    median_delta_chi2: num(4)?,
-                    mass_index: idx(5)?,
-                    distance_index: idx(6)?,
-                });
-            }
-        }
-    }
-    let Some((meta, _)) = settings else {
-        return Err(CliError::bad_input(anyhow::anyhow!("no sensitivity.part-*.csv files in the given directories")));
-    };
-    cells.sort_by_key(|c| (c.distance_index, c.mass_index));
-    let n_mass = cells.iter().map(|c| c.mass_index).max().map_or(0, |m| m + 1);
-    let n_dist = cells.iter().map(|c| c.distance_index).max().map_or(0, |d| d + 1);
-    if cells.len() != n_mass * n_dist
-        || [n_mass, n_dist] != meta.grid
-        || cells.windows(2).any(|w| (w[0].distance_index, w[0].mass_index) == (w[1].distance_index, w[1].mass_index))
-    {
-        return Err(CliError::bad_input(anyhow::anyhow!(
-            "the shards hold {} cells for a {} x {} grid: some are missing or repeated",
-            cells.len(),
-            meta.grid[0],
-            meta.grid[1]
-        )));
-    }
-    let mut csv = format!("{HEADER}\n");
-    for c in &cells {
-        csv.push_str(&csv_row(c));
-    }
-    write_products(out, &csv, &cells, &meta).map_err(CliError::failed)
+    let (about, shares) = SensitivityShare::read_dirs(dirs)?;
+    let map = merge_sensitivity(&shares, about.false_alarm_probability)?;
+    let meta = SensitivityFile { threshold_delta_chi2: Some(map.threshold_delta_chi2), ..about };
+    write_products(out, &map.cells, &meta).map_err(CliError::failed)
 }

@@ -1470,16 +1470,19 @@ impl PySensitivity {
 
 /// sensitivity(study, mass_earth=(0.1, 10000), distance_au=(10, 1000), grid=(40, 40), trials=64,
 /// fap=0.0027, near_ecliptic=None, nulls=1000, directions=768, distances=20, seed=1, shard=None,
-/// progress=None) -> Sensitivity
+/// out=None, progress=None) -> Sensitivity (with `shard`: [json path, csv path])
 ///
 /// The detection probability over perturber mass and distance for the
 /// study's observations (several bodies: what they reveal together), as
 /// `latens sensitivity`: the threshold from the search's null simulations
 /// at `fap`, then `trials` perturber configurations per cell (directions
 /// within `near_ecliptic` degrees of the ecliptic when given). `shard`:
-/// (K, N) computes slice K of N of the cells.
+/// (K, N) computes shard K of N (every N-th hypothesis of the threshold
+/// search and every N-th distance's trials), writes it into the directory
+/// `out` as `latens sensitivity --shard K/N` does and returns the two
+/// paths written; `merge_sensitivity` joins the shards into the map.
 #[pyfunction]
-#[pyo3(signature = (study, mass_earth=(0.1, 10000.0), distance_au=(10.0, 1000.0), grid=(40, 40), trials=64, fap=0.0027, near_ecliptic=None, nulls=1000, directions=768, distances=20, seed=1, shard=None, progress=None))]
+#[pyo3(signature = (study, mass_earth=(0.1, 10000.0), distance_au=(10.0, 1000.0), grid=(40, 40), trials=64, fap=0.0027, near_ecliptic=None, nulls=1000, directions=768, distances=20, seed=1, shard=None, out=None, progress=None))]
 #[allow(clippy::too_many_arguments)]
 fn sensitivity(
     py: Python<'_>,
@@ -1495,8 +1498,9 @@ fn sensitivity(
     distances: usize,
     seed: u64,
     shard: Option<(usize, usize)>,
+    out: Option<PathBuf>,
     progress: Option<Py<PyAny>>,
-) -> PyResult<PySensitivity> {
+) -> PyResult<Py<PyAny>> {
     let search = SearchSettings {
         n_null: nulls,
         n_directions: directions,
@@ -1521,9 +1525,35 @@ fn sensitivity(
         shard,
     };
     plan.check().map_err(|e| to_py(py, e))?;
+    if shard.is_some() != out.is_some() {
+        return Err(InputError::new_err("`shard` and `out` go together: a shard is written for `merge_sensitivity`"));
+    }
     let observer = PyObserver::new(progress);
+    if let Some(dir) = out {
+        let result = py.detach(|| {
+            let share = latens::pipeline::sensitivity_share(&study.inner, &plan, &observer)?;
+            share.write(&dir, &plan.file(study.inner.bodies.iter().map(|b| b.name.clone()).collect()))
+        });
+        let paths = observer.outcome(py, result)?;
+        return Ok(PyList::new(py, paths.iter().map(|p| p.display().to_string()))?.into_any().unbind());
+    }
     let result = py.detach(|| latens::pipeline::sensitivity(&study.inner, &plan, &observer));
-    observer.outcome(py, result).map(|inner| PySensitivity { inner })
+    let map = observer.outcome(py, result)?;
+    Ok(Py::new(py, PySensitivity { inner: map })?.into_any())
+}
+
+/// merge_sensitivity(dirs) -> Sensitivity
+///
+/// Joins the shards written by `sensitivity(..., shard=(K, N), out=DIR)`
+/// or `latens sensitivity --shard K/N` in the directories `dirs` into the
+/// whole map (the same numbers as one unsharded run), as `latens
+/// sensitivity merge`; refuses shards of different settings and missing
+/// or repeated shards.
+#[pyfunction]
+fn merge_sensitivity(py: Python<'_>, dirs: Vec<PathBuf>) -> PyResult<PySensitivity> {
+    let result = latens::pipeline::SensitivityShare::read_dirs(&dirs)
+        .and_then(|(about, shares)| latens::pipeline::merge_sensitivity(&shares, about.false_alarm_probability));
+    result.map(|inner| PySensitivity { inner }).map_err(|e| to_py(py, e))
 }
 
 // ---------------------------------------------------------------------------
@@ -1579,6 +1609,7 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(sky_products, m)?)?;
     m.add_function(wrap_pyfunction!(predict, m)?)?;
     m.add_function(wrap_pyfunction!(sensitivity, m)?)?;
+    m.add_function(wrap_pyfunction!(merge_sensitivity, m)?)?;
     m.add_function(wrap_pyfunction!(simulate, m)?)?;
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;
     Ok(())

@@ -669,11 +669,13 @@ pub struct LeaveOneOutFile {
 
 /// `sensitivity.json` (and `sensitivity.part-K-of-N.json` of a shard): what
 /// the map in sensitivity.csv was made with, so the CSV holds only its
-/// table. Shards of one map agree on everything but `shard`.
+/// table. Shards of one map agree on everything but `shard` and the
+/// fields only a shard has (its hypotheses, distances and null maxima).
 #[derive(Debug, Serialize, Deserialize, Clone, PartialEq)]
 pub struct SensitivityFile {
-    /// The chi-square drop a detection needs in these data.
-    pub threshold_delta_chi2: f64,
+    /// The chi-square drop a detection needs in these data (null in a
+    /// shard: it is known once every shard's null maxima are in).
+    pub threshold_delta_chi2: Option<f64>,
     pub false_alarm_probability: f64,
     pub seed: u64,
     pub mass_earth: [f64; 2],
@@ -686,8 +688,39 @@ pub struct SensitivityFile {
     pub nulls: usize,
     pub directions: usize,
     pub distances: usize,
+    /// Trials passing closer than this to a body are redrawn, au.
+    #[serde(default = "default_min_separation")]
+    pub min_separation_au: f64,
     /// The bodies mapped together, by name.
     pub bodies: Vec<String>,
     /// [K, N] for shard K of N; null for a whole (or merged) map.
     pub shard: Option<[usize; 2]>,
+    /// A shard's hypotheses of the threshold search: [in this shard, in
+    /// the whole grid].
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub hypotheses: Option<[usize; 2]>,
+    /// A shard's distance indices (its trials are in its CSV).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub distance_indices: Option<Vec<usize>>,
+    /// A shard's search maximum of each null simulation over its hypotheses.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub null_maxima: Option<Vec<f64>>,
+}
+
+fn default_min_separation() -> f64 {
+    crate::perturber::search::SearchSettings::default().min_separation_au
+}
+
+impl SensitivityFile {
+    /// The settings every shard of one map shares (shard-only fields cleared).
+    pub fn common(&self) -> SensitivityFile {
+        SensitivityFile {
+            threshold_delta_chi2: None,
+            shard: None,
+            hypotheses: None,
+            distance_indices: None,
+            null_maxima: None,
+            ..self.clone()
+        }
+    }
 }

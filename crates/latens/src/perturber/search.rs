@@ -344,52 +344,13 @@ pub fn grid_search<K: SignalKernel + ?Sized>(
     let basis = signal_subspace(kernel, &hyps, settings, gm_max);
     let k = basis.ncols();
 
-    // Score every hypothesis and its coordinates in the subspace. The
-    // coordinates of a chunk of hypotheses come from one matrix product
-    // (basis^T times the chunk's signals, through faer), which for a joint
-    // kernel of many bodies costs far more than the scoring itself when
-    // done one signal at a time. A chunk holds up to 8 million numbers.
-    let chunk = (8_000_000 / n_res.max(1)).clamp(8, 256);
+    // Score every hypothesis and its coordinates in the subspace.
+    let chunk = coordinate_chunk(n_res);
     let done = std::sync::atomic::AtomicUsize::new(0);
     let results: Vec<(Option<Scored>, Vec<f32>, f64)> = hyps
         .par_chunks(chunk)
         .flat_map_iter(|hs| {
-            let mut scratch = vec![0.0; n_res];
-            let mut signals = Mat::<f64>::zeros(n_res, hs.len());
-            let mut norms = vec![0.0; hs.len()];
-            let scored: Vec<Option<Scored>> = hs
-                .iter()
-                .enumerate()
-                .map(|(j, h)| {
-                    let s = score(kernel, h, gm_max, settings.min_separation_au, &mut scratch)?;
-                    norms[j] = scratch.iter().map(|x| x * x).sum::<f64>().sqrt();
-                    for (i, x) in scratch.iter().enumerate() {
-                        signals[(i, j)] = *x;
-                    }
-                    Some(s)
-                })
-                .collect();
-            let coords = if k > 0 { basis.transpose() * &signals } else { Mat::zeros(0, hs.len()) };
-            let out: Vec<_> = scored
-                .into_iter()
-                .enumerate()
-                .map(|(j, s)| match s {
-                    Some(s) => {
-                        let norm = norms[j];
-                        let mut c = vec![0.0f32; k];
-                        let mut energy = 0.0;
-                        if norm > 0.0 {
-                            for (i, ci) in c.iter_mut().enumerate() {
-                                let v = coords[(i, j)] / norm;
-                                *ci = v as f32;
-                                energy += v * v;
-                            }
-                        }
-                        (Some(s), c, energy)
-                    }
-                    None => (None, Vec::new(), 0.0),
-                })
-                .collect();
+            let out = score_chunk(kernel, &basis, hs, gm_max, settings.min_separation_au);
             let n = done.fetch_add(hs.len(), std::sync::atomic::Ordering::Relaxed) + hs.len();
             observer.advance(n as u64);
             out.into_iter()
@@ -435,18 +396,12 @@ pub fn grid_search<K: SignalKernel + ?Sized>(
                     v as f32
                 })
                 .collect();
-            let mut best = 0.0f32;
-            for c in &coords {
-                let t: f32 = c.iter().zip(&z).map(|(a, b)| a * b).sum();
-                if t > best {
-                    best = t;
-                }
-            }
+            let best = null_maximum(&coords, &z);
             let n = nulls_done.fetch_add(1, std::sync::atomic::Ordering::Relaxed) + 1;
             if n % 16 == 0 || n == settings.n_null {
                 observer.advance(n as u64);
             }
-            f64::from(best) * f64::from(best)
+            best
         })
         .collect();
     if settings.n_null > 0 {
@@ -459,6 +414,198 @@ pub fn grid_search<K: SignalKernel + ?Sized>(
         n_skipped_close: n_skipped,
         basins,
         null_maxima,
+        subspace_dimension: k,
+        subspace_energy: energy,
+    }
+}
+
+/// Hypotheses per chunk of [`score_chunk`]: a chunk's signals hold up to 8
+/// million numbers.
+fn coordinate_chunk(n_res: usize) -> usize {
+    (8_000_000 / n_res.max(1)).clamp(8, 256)
+}
+
+/// Scores a chunk of hypotheses and gives each scored one's normalised
+/// coordinates in the subspace `basis` and the share of its energy they
+/// hold. The coordinates of a chunk come from one matrix product (basis^T
+/// times the chunk's signals, through faer), which for a joint kernel of
+/// many bodies costs far more than the scoring itself when done one signal
+/// at a time.
+fn score_chunk<K: SignalKernel + ?Sized>(
+    kernel: &K,
+    basis: &Mat<f64>,
+    hs: &[Hypothesis],
+    gm_max: f64,
+    min_separation_au: f64,
+) -> Vec<(Option<Scored>, Vec<f32>, f64)> {
+    let (n_res, k) = (kernel.n_residuals(), basis.ncols());
+    let mut scratch = vec![0.0; n_res];
+    let mut signals = Mat::<f64>::zeros(n_res, hs.len());
+    let mut norms = vec![0.0; hs.len()];
+    let scored: Vec<Option<Scored>> = hs
+        .iter()
+        .enumerate()
+        .map(|(j, h)| {
+            let s = score(kernel, h, gm_max, min_separation_au, &mut scratch)?;
+            norms[j] = scratch.iter().map(|x| x * x).sum::<f64>().sqrt();
+            for (i, x) in scratch.iter().enumerate() {
+                signals[(i, j)] = *x;
+            }
+            Some(s)
+        })
+        .collect();
+    let coords = if k > 0 { basis.transpose() * &signals } else { Mat::zeros(0, hs.len()) };
+    scored
+        .into_iter()
+        .enumerate()
+        .map(|(j, s)| match s {
+            Some(s) => {
+                let norm = norms[j];
+                let mut c = vec![0.0f32; k];
+                let mut energy = 0.0;
+                if norm > 0.0 {
+                    for (i, ci) in c.iter_mut().enumerate() {
+                        let v = coords[(i, j)] / norm;
+                        *ci = v as f32;
+                        energy += v * v;
+                    }
+                }
+                (Some(s), c, energy)
+            }
+            None => (None, Vec::new(), 0.0),
+        })
+        .collect()
+}
+
+/// The largest (c.w)^2 with c.w > 0 over the coordinates `coords` (the
+/// chi-square drop of the best hypothesis, mass >= 0, for the noise whose
+/// coordinates in the subspace are `w`).
+fn null_maximum(coords: &[&Vec<f32>], w: &[f32]) -> f64 {
+    let mut best = 0.0f32;
+    for c in coords {
+        let t: f32 = c.iter().zip(w).map(|(a, b)| a * b).sum();
+        if t > best {
+            best = t;
+        }
+    }
+    f64::from(best) * f64::from(best)
+}
+
+/// One share of the search's null simulations: the maxima over one slice
+/// of the grid's hypotheses (see [`null_maxima_share`]).
+#[derive(Clone, Debug, PartialEq)]
+pub struct NullShare {
+    /// Shard K of N (1-based) of the hypotheses: those whose index in the
+    /// grid's order is K - 1 modulo N.
+    pub shard: (usize, usize),
+    /// The search maximum over this shard's hypotheses of each null
+    /// realisation (0 when no hypothesis fits with a positive mass).
+    pub maxima: Vec<f64>,
+    /// Hypotheses in the whole grid and in this shard.
+    pub n_hypotheses: usize,
+    pub n_in_shard: usize,
+    /// Dimension of the signal subspace and the share of signal energy it
+    /// holds (averaged over this shard's hypotheses).
+    pub subspace_dimension: usize,
+    pub subspace_energy: f64,
+}
+
+impl NullShare {
+    /// The maxima of the whole search from the maxima of all its shards:
+    /// each realisation's maximum over the shards (the same noise in every
+    /// shard, so this is the maximum over the whole grid). None unless the
+    /// shards are exactly 1..N of one N, each with as many realisations.
+    pub fn combine(shares: &[&NullShare]) -> Option<Vec<f64>> {
+        let n = shares.first()?.shard.1;
+        let mut seen: Vec<usize> = shares.iter().map(|s| s.shard.0).collect();
+        seen.sort();
+        let len = shares[0].maxima.len();
+        if seen != (1..=n).collect::<Vec<_>>() || shares.iter().any(|s| s.shard.1 != n || s.maxima.len() != len) {
+            return None;
+        }
+        Some((0..len).map(|r| shares.iter().map(|s| s.maxima[r]).fold(0.0, f64::max)).collect())
+    }
+}
+
+/// The search's null simulations alone (no search of the data), over shard
+/// K of N of the grid's hypotheses: the maxima that set the detection
+/// threshold, computed in pieces for job arrays.
+///
+/// Each realisation draws white noise z in the whole space of whitened
+/// residuals (seeded by realisation, so every shard draws the same noise)
+/// and takes its coordinates B^T z in the signal subspace B (the same
+/// sample of the whole grid in every shard). Since B is orthonormal those
+/// coordinates are independent unit normals, as the draw of
+/// [`grid_search`]; unlike that draw, they do not depend on the signs or
+/// the rotation the SVD picks for B, so every shard sees the same noise
+/// field whatever its rounding, and the maximum over the shards' maxima is
+/// the whole grid's maximum.
+pub fn null_maxima_share<K: SignalKernel + ?Sized>(
+    kernel: &K,
+    settings: &SearchSettings,
+    shard: (usize, usize),
+    observer: &dyn Observer,
+) -> NullShare {
+    let (k_shard, n_shards) = (shard.0.max(1), shard.1.max(1));
+    let gm_max = settings.mass_earth.1 * crate::units::GM_EARTH_MASS_AU3_PER_DAY2;
+    let hyps = hypotheses(settings, kernel.central_gm());
+    let mine: Vec<Hypothesis> =
+        hyps.iter().enumerate().filter(|(i, _)| i % n_shards == k_shard - 1).map(|(_, h)| *h).collect();
+    let n_res = kernel.n_residuals();
+    observer.begin(Stage::Search, mine.len() as u64);
+    let basis = signal_subspace(kernel, &hyps, settings, gm_max);
+    let k = basis.ncols();
+    let done = std::sync::atomic::AtomicUsize::new(0);
+    let results: Vec<(Option<Scored>, Vec<f32>, f64)> = mine
+        .par_chunks(coordinate_chunk(n_res))
+        .flat_map_iter(|hs| {
+            let out = score_chunk(kernel, &basis, hs, gm_max, settings.min_separation_au);
+            let n = done.fetch_add(hs.len(), std::sync::atomic::Ordering::Relaxed) + hs.len();
+            observer.advance(n as u64);
+            out.into_iter()
+        })
+        .collect();
+    observer.finish();
+    let coords: Vec<&Vec<f32>> = results.iter().filter(|r| r.0.is_some()).map(|r| &r.1).collect();
+    let energy = results.iter().filter(|r| r.0.is_some()).map(|r| r.2).sum::<f64>() / coords.len().max(1) as f64;
+
+    if settings.n_null > 0 {
+        observer.begin(Stage::Nulls, settings.n_null as u64);
+    }
+    let mut maxima = Vec::with_capacity(settings.n_null);
+    let block = (4_000_000 / n_res.max(1)).clamp(1, 64);
+    let all: Vec<usize> = (0..settings.n_null).collect();
+    for rs in all.chunks(block) {
+        let draws: Vec<Vec<f64>> = rs
+            .par_iter()
+            .map(|&r| {
+                let mut rng = rand::rngs::StdRng::seed_from_u64(
+                    settings.seed.wrapping_mul(2_000_003).wrapping_add(r as u64) ^ 0x6e75_6c6c,
+                );
+                (0..n_res).map(|_| StandardNormal.sample(&mut rng)).collect()
+            })
+            .collect();
+        let z = Mat::<f64>::from_fn(n_res, rs.len(), |i, j| draws[j][i]);
+        drop(draws);
+        let w = if k > 0 { basis.transpose() * &z } else { Mat::zeros(0, rs.len()) };
+        let found: Vec<f64> = (0..rs.len())
+            .into_par_iter()
+            .map(|j| {
+                let wj: Vec<f32> = (0..k).map(|i| w[(i, j)] as f32).collect();
+                null_maximum(&coords, &wj)
+            })
+            .collect();
+        maxima.extend(found);
+        observer.advance(maxima.len() as u64);
+    }
+    if settings.n_null > 0 {
+        observer.finish();
+    }
+    NullShare {
+        shard: (k_shard, n_shards),
+        maxima,
+        n_hypotheses: hyps.len(),
+        n_in_shard: mine.len(),
         subspace_dimension: k,
         subspace_energy: energy,
     }
@@ -572,7 +719,10 @@ fn signal_subspace<K: SignalKernel + ?Sized>(
     gm_max: f64,
 ) -> Mat<f64> {
     let n_res = kernel.n_residuals();
-    let stride = (hyps.len() / 1000).max(1);
+    // About 1000 signals, fewer for populations of many bodies (at most
+    // 250 million numbers, 2 GB, but never fewer than 300 signals).
+    let target = (250_000_000 / n_res.max(1)).clamp(300, 1000);
+    let stride = (hyps.len() / target).max(1);
     let sample: Vec<Vec<f64>> = hyps
         .par_iter()
         .step_by(stride)
@@ -587,10 +737,12 @@ fn signal_subspace<K: SignalKernel + ?Sized>(
         return Mat::zeros(n_res, 0);
     }
     let m = Mat::<f64>::from_fn(n_res, sample.len(), |i, j| sample[j][i]);
+    let n_sample = sample.len();
+    drop(sample);
     let Ok(svd) = m.thin_svd() else {
         return Mat::zeros(n_res, 0);
     };
-    let s: Vec<f64> = (0..sample.len().min(n_res)).map(|i| svd.S().column_vector()[i]).collect();
+    let s: Vec<f64> = (0..n_sample.min(n_res)).map(|i| svd.S().column_vector()[i]).collect();
     let total: f64 = s.iter().map(|x| x * x).sum();
     let mut acc = 0.0;
     let mut k = 0;

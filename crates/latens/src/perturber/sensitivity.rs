@@ -163,9 +163,14 @@ pub fn detection_probability(amplitude_per_gm: f64, gm: f64, threshold_delta_chi
     normal_cdf(gm * amplitude_per_gm - threshold_delta_chi2.max(0.0).sqrt())
 }
 
-/// The mass grid value at index `i` (Earth masses) and the distance at `i` (au).
+/// The mass grid value at index `i` (Earth masses).
 pub fn grid_mass_earth(settings: &SensitivitySettings, i: usize) -> f64 {
     log_grid(settings.mass_earth, settings.n_masses, i)
+}
+
+/// The distance grid value at index `i` (au).
+pub fn grid_distance_au(settings: &SensitivitySettings, i: usize) -> f64 {
+    log_grid(settings.distance_au, settings.n_distances, i)
 }
 
 fn rand_unit(rng: &mut rand::rngs::StdRng) -> f64 {
@@ -181,44 +186,72 @@ pub fn compute_cells<K: SignalKernel + ?Sized>(
     cells: &[(usize, usize)],
     observer: &dyn crate::progress::Observer,
 ) -> Vec<Cell> {
-    use rayon::prelude::*;
-    let gm_earth = crate::units::GM_EARTH_MASS_AU3_PER_DAY2;
     let mut distances: Vec<usize> = cells.iter().map(|c| c.1).collect();
     distances.sort();
     distances.dedup();
+    let amplitudes = trial_amplitudes_at(kernel, settings, &distances, observer);
+    let all = cells_from_amplitudes(settings, threshold_delta_chi2, &amplitudes);
+    cells
+        .iter()
+        .filter_map(|&(m, d)| all.iter().find(|c| (c.mass_index, c.distance_index) == (m, d)).copied())
+        .collect()
+}
+
+/// Each trial's noise-free square root of the chi-square drop per Earth
+/// mass (the amplitude per unit GM times one Earth mass's GM), at the
+/// distance indices `distances`, in parallel over distances.
+pub fn trial_amplitudes_at<K: SignalKernel + ?Sized>(
+    kernel: &K,
+    settings: &SensitivitySettings,
+    distances: &[usize],
+    observer: &dyn crate::progress::Observer,
+) -> Vec<(usize, Vec<f64>)> {
+    use rayon::prelude::*;
+    let gm_earth = crate::units::GM_EARTH_MASS_AU3_PER_DAY2;
     let done = std::sync::atomic::AtomicUsize::new(0);
     observer.begin(crate::progress::Stage::Sensitivity, distances.len() as u64);
-    let amplitudes: Vec<(usize, Vec<f64>)> = distances
+    let amplitudes = distances
         .par_iter()
         .map(|&di| {
-            let a = trial_amplitudes(kernel, settings, di);
+            let a = trial_amplitudes(kernel, settings, di).into_iter().map(|a| a * gm_earth).collect();
             observer.advance(done.fetch_add(1, std::sync::atomic::Ordering::Relaxed) as u64 + 1);
             (di, a)
         })
         .collect();
     observer.finish();
+    amplitudes
+}
+
+/// Every cell of the mass grid at the distances of `amplitudes` (distance
+/// index, each trial's amplitude per Earth mass): the detection
+/// probability Phi(m a - sqrt T) averaged over the trials, and the median
+/// noise-free drop (m a)^2.
+pub fn cells_from_amplitudes(
+    settings: &SensitivitySettings,
+    threshold_delta_chi2: f64,
+    amplitudes: &[(usize, Vec<f64>)],
+) -> Vec<Cell> {
     let sqrt_t = threshold_delta_chi2.max(0.0).sqrt();
-    cells
-        .iter()
-        .map(|&(mi, di)| {
-            let amps = &amplitudes.iter().find(|(d, _)| *d == di).expect("computed").1;
+    let mut out = Vec::with_capacity(amplitudes.len() * settings.n_masses);
+    for (di, amps) in amplitudes {
+        for mi in 0..settings.n_masses {
             let m = log_grid(settings.mass_earth, settings.n_masses, mi);
-            let gm = m * gm_earth;
             let n = amps.len();
-            let p = if n == 0 { 0.0 } else { amps.iter().map(|a| normal_cdf(gm * a - sqrt_t)).sum::<f64>() / n as f64 };
-            let mut d2: Vec<f64> = amps.iter().map(|a| (gm * a).powi(2)).collect();
+            let p = if n == 0 { 0.0 } else { amps.iter().map(|a| normal_cdf(m * a - sqrt_t)).sum::<f64>() / n as f64 };
+            let mut d2: Vec<f64> = amps.iter().map(|a| (m * a).powi(2)).collect();
             d2.sort_by(f64::total_cmp);
-            Cell {
+            out.push(Cell {
                 mass_index: mi,
-                distance_index: di,
+                distance_index: *di,
                 mass_earth: m,
-                distance_au: log_grid(settings.distance_au, settings.n_distances, di),
+                distance_au: log_grid(settings.distance_au, settings.n_distances, *di),
                 detection_probability: p,
                 n_trials: n,
                 median_delta_chi2: if n == 0 { 0.0 } else { d2[n / 2] },
-            }
-        })
-        .collect()
+            });
+        }
+    }
+    out
 }
 
 /// For each distance, the mass (log-interpolated along the mass axis) at

@@ -41,7 +41,10 @@ pub use posterior::{
     SampleSource, SearchGeometry, geometry_at, next_months, posterior,
 };
 pub use predict::{OrbitSample, Prediction, predict};
-pub use sensitivity::{SensitivityMap, SensitivityPlan, sensitivity};
+pub use sensitivity::{
+    SensitivityMap, SensitivityPlan, SensitivityShare, merge_sensitivity, sensitivity, sensitivity_share,
+    threshold_from_maxima,
+};
 pub use simulation::{SimulatedScenario, TRACK_SPACING_DAYS, TrackPoint, simulate_population, simulate_scenario};
 pub use sky::{
     AS_GOOD_DELTA_CHI2, ConfidenceRegion, SUN_WARNING_DEG, SkyProducts, basin_eccentricity, confidence_region,

@@ -2,10 +2,16 @@
 //! observations (or a planned schedule) would reveal, at the detection
 //! threshold `detect` uses for these very data.
 
+use std::path::{Path, PathBuf};
+
 use super::{PipelineError, Study};
-use crate::perturber::search::SearchSettings;
-use crate::perturber::sensitivity::{Cell, SensitivitySettings, compute_cells, probability_grid};
-use crate::perturber::{LinearKernel, SignalKernel, grid_search};
+use crate::io::results::SensitivityFile;
+use crate::io::write_atomically;
+use crate::perturber::search::{NullShare, SearchSettings, null_maxima_share};
+use crate::perturber::sensitivity::{
+    Cell, SensitivitySettings, cells_from_amplitudes, probability_grid, trial_amplitudes_at,
+};
+use crate::perturber::{LinearKernel, SignalKernel};
 use crate::progress::Observer;
 use crate::reference::{ReferenceSettings, fit_reference_orbit, observing_geometry};
 
@@ -60,18 +66,15 @@ impl SensitivityPlan {
         Ok(())
     }
 
-    /// The (mass index, distance index) cells this plan computes.
-    pub fn cells(&self) -> Vec<(usize, usize)> {
-        let (nm, nd) = (self.map.n_masses, self.map.n_distances);
-        let all = (0..nd).flat_map(|d| (0..nm).map(move |m| (m, d)));
-        match self.shard {
-            Some((k, n)) => all.enumerate().filter(|(i, _)| i % n == k - 1).map(|(_, c)| c).collect(),
-            None => all.collect(),
-        }
+    /// The distance indices whose trials shard K of N draws (every N-th,
+    /// starting at K - 1; all of them unsharded).
+    pub fn distance_indices(&self) -> Vec<usize> {
+        let (k, n) = self.shard.unwrap_or((1, 1));
+        (0..self.map.n_distances).filter(|d| d % n == k - 1).collect()
     }
 }
 
-/// A sensitivity map (or one shard of it).
+/// A sensitivity map.
 #[derive(Clone, Debug)]
 pub struct SensitivityMap {
     /// The detection threshold on the chi-square drop for these data.
@@ -81,11 +84,24 @@ pub struct SensitivityMap {
 }
 
 impl SensitivityMap {
-    /// Masses (rows), distances (columns) and the detection probability
-    /// (NaN for cells outside this shard).
+    /// Masses (rows), distances (columns) and the detection probability.
     pub fn grid(&self) -> (ndarray::Array1<f64>, ndarray::Array1<f64>, ndarray::Array2<f64>) {
         probability_grid(&self.settings, &self.cells)
     }
+}
+
+/// Shard K of N of a sensitivity map: its slice of the threshold search's
+/// null simulations (every N-th hypothesis of the grid, the same noise in
+/// every shard) and the trials of every N-th distance. The detection
+/// threshold is known only once all shards are in: [`merge_sensitivity`].
+#[derive(Clone, Debug, PartialEq)]
+pub struct SensitivityShare {
+    pub settings: SensitivitySettings,
+    pub nulls: NullShare,
+    /// Per distance index of this shard, each trial's noise-free square
+    /// root of the chi-square drop per Earth mass of the perturber (the
+    /// drop of a perturber of m Earth masses is (m a)^2).
+    pub amplitudes: Vec<(usize, Vec<f64>)>,
 }
 
 /// Maps the detection probability over mass and distance: the reference
@@ -94,16 +110,32 @@ impl SensitivityMap {
 /// together: their kernels at one common epoch side by side (the joint
 /// kernel of [`super::detect_joint`]), the threshold from the joint
 /// search's nulls, and each trial's signal amplitude over all bodies.
+/// The plan's shard is ignored: the whole map is made (in one piece, the
+/// same numbers as its shards merged).
 pub fn sensitivity(
     study: &Study,
     plan: &SensitivityPlan,
     observer: &dyn Observer,
 ) -> Result<SensitivityMap, PipelineError> {
+    let whole = SensitivityPlan { shard: None, ..plan.clone() };
+    let share = sensitivity_share(study, &whole, observer)?;
+    merge_sensitivity(&[share], plan.false_alarm_probability)
+}
+
+/// Shard K of N (the plan's; 1 of 1 when none) of a sensitivity map.
+/// Every shard fits every body and builds the kernels (a few per cent of
+/// a shard's work on large populations); the hypotheses of the threshold
+/// search, its costly part, are split evenly.
+pub fn sensitivity_share(
+    study: &Study,
+    plan: &SensitivityPlan,
+    observer: &dyn Observer,
+) -> Result<SensitivityShare, PipelineError> {
     plan.check()?;
     if study.bodies.len() > 1 {
         let (_, _, kernel) = super::joint::fit_bodies(study, observer)?;
         let zeros = vec![0.0; kernel.n_residuals()];
-        return Ok(map_with(&kernel.with_residuals(&zeros), plan, observer));
+        return Ok(share_with(&kernel.with_residuals(&zeros), plan, observer));
     }
     let arc = study.single()?;
     let ephemeris = study.ephemeris.as_ref();
@@ -116,24 +148,221 @@ pub fn sensitivity(
     let kernel = LinearKernel::build(&null, &arc.observations, geometry, &arc.model, ephemeris)
         .map_err(PipelineError::failed("linear kernel"))?;
     let zeros = vec![0.0; kernel.n_residuals()];
-    Ok(map_with(&kernel.with_residuals(&zeros), plan, observer))
+    Ok(share_with(&kernel.with_residuals(&zeros), plan, observer))
 }
 
-/// The map of a plan through any kernel (one body's or several bodies').
-fn map_with<K: SignalKernel + ?Sized>(kernel: &K, plan: &SensitivityPlan, observer: &dyn Observer) -> SensitivityMap {
+/// One shard of a plan through any kernel (one body's or several bodies').
+fn share_with<K: SignalKernel + ?Sized>(
+    kernel: &K,
+    plan: &SensitivityPlan,
+    observer: &dyn Observer,
+) -> SensitivityShare {
     // The detection threshold of `detect` for these data: the (1 - fap)
-    // quantile of its search maxima on noise alone (the null simulations
-    // draw their own noise: the kernel comes with zero residuals, so the
-    // search of the data themselves costs nothing).
+    // quantile of its search maxima on noise alone (the kernel comes with
+    // zero residuals: only the null simulations are run).
     observer.note("Calibrating the detection threshold with null simulations of the search...");
-    let nulls = grid_search(kernel, &plan.search, &crate::progress::Quiet);
-    let mut maxima = nulls.null_maxima.clone();
-    maxima.sort_by(f64::total_cmp);
-    let q = ((1.0 - plan.false_alarm_probability) * maxima.len() as f64).ceil() as usize;
-    let threshold = maxima[q.clamp(1, maxima.len()) - 1];
+    let nulls = null_maxima_share(kernel, &plan.search, plan.shard.unwrap_or((1, 1)), observer);
     let settings = SensitivitySettings { min_separation_au: plan.search.min_separation_au, ..plan.map.clone() };
-    let cells = compute_cells(kernel, &settings, threshold, &plan.cells(), observer);
-    SensitivityMap { threshold_delta_chi2: threshold, cells, settings }
+    let amplitudes = trial_amplitudes_at(kernel, &settings, &plan.distance_indices(), observer);
+    SensitivityShare { settings, nulls, amplitudes }
+}
+
+/// The whole map from all its shards (in any order): the threshold from
+/// the null maxima over every shard's hypotheses, then every cell from
+/// its distance's trials. Refuses shards of different maps, a missing or
+/// repeated shard, and distances missing or drawn twice.
+pub fn merge_sensitivity(
+    shares: &[SensitivityShare],
+    false_alarm_probability: f64,
+) -> Result<SensitivityMap, PipelineError> {
+    let bad = |t: String| Err(PipelineError::Input(t));
+    let Some(first) = shares.first() else { return bad("no shards to merge".into()) };
+    if shares.iter().any(|s| s.settings != first.settings) {
+        return bad("the shards were made with different map settings".into());
+    }
+    let nulls: Vec<&NullShare> = shares.iter().map(|s| &s.nulls).collect();
+    let Some(maxima) = NullShare::combine(&nulls) else {
+        let have: Vec<String> = nulls.iter().map(|s| format!("{}/{}", s.shard.0, s.shard.1)).collect();
+        return bad(format!(
+            "the shards must be 1/N to N/N of one N, each with the same number of null simulations; got {}",
+            have.join(", ")
+        ));
+    };
+    let mut amplitudes: Vec<(usize, Vec<f64>)> = shares.iter().flat_map(|s| s.amplitudes.iter().cloned()).collect();
+    amplitudes.sort_by_key(|a| a.0);
+    let nd = first.settings.n_distances;
+    if amplitudes.len() != nd || amplitudes.iter().enumerate().any(|(i, a)| a.0 != i) {
+        return bad(format!("the shards hold the trials of {} distances for a grid of {nd}", amplitudes.len()));
+    }
+    let threshold = threshold_from_maxima(&maxima, false_alarm_probability);
+    let cells = cells_from_amplitudes(&first.settings, threshold, &amplitudes);
+    Ok(SensitivityMap { threshold_delta_chi2: threshold, cells, settings: first.settings.clone() })
+}
+
+/// The header of a shard's CSV: each trial's amplitude.
+const SHARD_HEADER: &str = "distance_index,distance_au,trial,amplitude_per_earth_mass";
+
+impl SensitivityPlan {
+    /// What sensitivity.json (or a shard's JSON) records of this plan for
+    /// the bodies `bodies` (no threshold yet).
+    pub fn file(&self, bodies: Vec<String>) -> SensitivityFile {
+        let m = &self.map;
+        SensitivityFile {
+            threshold_delta_chi2: None,
+            false_alarm_probability: self.false_alarm_probability,
+            seed: m.seed,
+            mass_earth: [m.mass_earth.0, m.mass_earth.1],
+            distance_au: [m.distance_au.0, m.distance_au.1],
+            grid: [m.n_masses, m.n_distances],
+            trials: m.n_trials,
+            near_ecliptic_deg: m.near_ecliptic_deg,
+            nulls: self.search.n_null,
+            directions: self.search.n_directions,
+            distances: self.search.n_distances,
+            min_separation_au: self.search.min_separation_au,
+            bodies,
+            shard: self.shard.map(|(k, n)| [k, n]),
+            hypotheses: None,
+            distance_indices: None,
+            null_maxima: None,
+        }
+    }
+}
+
+impl SensitivityShare {
+    /// The file name of shard K of N (`sensitivity.part-K-of-N`, without
+    /// its extension).
+    pub fn stem(&self) -> String {
+        format!("sensitivity.part-{}-of-{}", self.nulls.shard.0, self.nulls.shard.1)
+    }
+
+    /// Writes the shard into `dir` as `sensitivity.part-K-of-N.json` (the
+    /// plan's settings `about`, the shard's hypotheses, distances and null
+    /// maxima) and `.csv` (each trial's amplitude); returns the two paths.
+    pub fn write(&self, dir: &Path, about: &SensitivityFile) -> Result<[PathBuf; 2], PipelineError> {
+        let meta = SensitivityFile {
+            threshold_delta_chi2: None,
+            shard: Some([self.nulls.shard.0, self.nulls.shard.1]),
+            hypotheses: Some([self.nulls.n_in_shard, self.nulls.n_hypotheses]),
+            distance_indices: Some(self.amplitudes.iter().map(|a| a.0).collect()),
+            null_maxima: Some(self.nulls.maxima.clone()),
+            ..about.clone()
+        };
+        let mut csv = format!("{SHARD_HEADER}\n");
+        for (di, amps) in &self.amplitudes {
+            let d = crate::perturber::sensitivity::grid_distance_au(&self.settings, *di);
+            for (t, a) in amps.iter().enumerate() {
+                csv.push_str(&format!("{di},{d},{t},{a}\n"));
+            }
+        }
+        let json = serde_json::to_string_pretty(&meta).map_err(PipelineError::failed("shard file"))? + "\n";
+        let stem = self.stem();
+        let paths = [dir.join(format!("{stem}.json")), dir.join(format!("{stem}.csv"))];
+        write_atomically(&paths[0], json.as_bytes()).map_err(PipelineError::failed("writing a shard"))?;
+        write_atomically(&paths[1], csv.as_bytes()).map_err(PipelineError::failed("writing a shard"))?;
+        Ok(paths)
+    }
+
+    /// Reads every shard (`sensitivity.part-*.json` with its `.csv`) in
+    /// `dirs`; refuses shards whose settings differ (naming both files) and
+    /// malformed lines (naming the file, the line and the field). Returns
+    /// the settings they share and the shards.
+    pub fn read_dirs(dirs: &[PathBuf]) -> Result<(SensitivityFile, Vec<SensitivityShare>), PipelineError> {
+        let bad = |t: String| PipelineError::Input(t);
+        let mut common: Option<(SensitivityFile, PathBuf)> = None;
+        let mut shares = Vec::new();
+        for dir in dirs {
+            let entries = std::fs::read_dir(dir).map_err(|e| bad(format!("{}: {e}", dir.display())))?;
+            let mut parts: Vec<PathBuf> = entries
+                .filter_map(|e| e.ok().map(|e| e.path()))
+                .filter(|p| {
+                    p.file_name().is_some_and(|n| n.to_string_lossy().starts_with("sensitivity.part-"))
+                        && p.extension().is_some_and(|x| x == "json")
+                })
+                .collect();
+            parts.sort();
+            for side in parts {
+                let meta: SensitivityFile = crate::io::results::read_json(&side).map_err(bad)?;
+                let name = side.display();
+                let same = meta.common();
+                match &common {
+                    None => common = Some((same, side.clone())),
+                    Some((first, path)) if *first != same => {
+                        return Err(bad(format!("{name}: made with other settings than {}", path.display())));
+                    }
+                    _ => {}
+                }
+                let (Some([k, n]), Some(hyp), Some(maxima), Some(indices)) =
+                    (meta.shard, meta.hypotheses, meta.null_maxima.clone(), meta.distance_indices.clone())
+                else {
+                    return Err(bad(format!(
+                        "{name}: not a shard of the present format (fields `shard`, `hypotheses`, `null_maxima`, `distance_indices`)"
+                    )));
+                };
+                let table = side.with_extension("csv");
+                let text = std::fs::read_to_string(&table).map_err(|e| bad(format!("{}: {e}", table.display())))?;
+                let mut amplitudes: Vec<(usize, Vec<f64>)> = indices.iter().map(|&d| (d, Vec::new())).collect();
+                for (i, line) in text.lines().enumerate() {
+                    if i == 0 && line == SHARD_HEADER || line.trim().is_empty() {
+                        continue;
+                    }
+                    let here = |what: String| bad(format!("{}:{}: {what}", table.display(), i + 1));
+                    let f: Vec<&str> = line.split(',').collect();
+                    if f.len() != 4 {
+                        return Err(here(format!("expected 4 fields ({SHARD_HEADER}), found {}", f.len())));
+                    }
+                    let di: usize = f[0].parse().map_err(|_| here("field distance_index is not an index".into()))?;
+                    let a: f64 = f[3]
+                        .parse()
+                        .ok()
+                        .filter(|a: &f64| a.is_finite())
+                        .ok_or_else(|| here("field amplitude_per_earth_mass is not a number".into()))?;
+                    match amplitudes.iter_mut().find(|x| x.0 == di) {
+                        Some(x) => x.1.push(a),
+                        None => return Err(here(format!("distance index {di} is not among the shard's"))),
+                    }
+                }
+                let settings = SensitivitySettings {
+                    mass_earth: (meta.mass_earth[0], meta.mass_earth[1]),
+                    distance_au: (meta.distance_au[0], meta.distance_au[1]),
+                    n_masses: meta.grid[0],
+                    n_distances: meta.grid[1],
+                    n_trials: meta.trials,
+                    near_ecliptic_deg: meta.near_ecliptic_deg,
+                    seed: meta.seed,
+                    min_separation_au: meta.min_separation_au,
+                };
+                shares.push(SensitivityShare {
+                    settings,
+                    nulls: NullShare {
+                        shard: (k, n),
+                        maxima,
+                        n_hypotheses: hyp[1],
+                        n_in_shard: hyp[0],
+                        subspace_dimension: 0,
+                        subspace_energy: f64::NAN,
+                    },
+                    amplitudes,
+                });
+            }
+        }
+        match common {
+            Some((meta, _)) => Ok((meta, shares)),
+            None => Err(bad("no sensitivity.part-*.json files in the given directories".into())),
+        }
+    }
+}
+
+/// The (1 - fap) quantile of the search maxima on noise alone: the
+/// chi-square drop the search exceeds by chance with probability fap.
+pub fn threshold_from_maxima(maxima: &[f64], false_alarm_probability: f64) -> f64 {
+    let mut m = maxima.to_vec();
+    m.sort_by(f64::total_cmp);
+    if m.is_empty() {
+        return 0.0;
+    }
+    let q = ((1.0 - false_alarm_probability) * m.len() as f64).ceil() as usize;
+    m[q.clamp(1, m.len()) - 1]
 }
 
 impl Study {
