@@ -396,7 +396,6 @@ fn null_simulations_in_shards_are_the_whole_grids_and_match_exact_search_maxima(
     // (two-sample Kolmogorov-Smirnov at the 1% level, critical value
     // 1.628 sqrt((n + m) / (n m)): Smirnov's asymptotic table, common
     // practice).
-    use latens::perturber::SignalKernel;
     use latens::perturber::search::{NullShare, hypotheses, null_maxima_share, score};
     use rand::SeedableRng;
     use rand_distr::{Distribution, StandardNormal};
