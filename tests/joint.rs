@@ -611,6 +611,7 @@ fn population_map_agrees_with_the_joint_search_on_injected_perturbers() {
         false_alarm_probability: fap,
         search: search.clone(),
         shard: None,
+        sky: None,
     };
     let map = sensitivity(&study, &plan, &Quiet).unwrap();
     let joint = fit_bodies(&study, &Quiet).unwrap().2;

@@ -251,6 +251,16 @@ fn null_data_sets_are_rarely_detected() {
     assert!(detected <= 1, "{detected} of 6 null data sets were 'detected'");
 }
 
+/// The kernel of the scenario's survey (seed 55) simulated without a perturber.
+fn unperturbed_kernel() -> LinearKernel {
+    let s = scenario();
+    let obs = simulate_survey(&survey(55, true), &initial(&s, vec![]), &s.model, &s.ephemeris, &s.sites).unwrap();
+    let settings = ReferenceSettings { epoch_tdb_days: Some(T0), ..ReferenceSettings::default() };
+    let fit = fit_reference_orbit(&obs, &s.sites, &s.model, &s.ephemeris, &settings, None).unwrap();
+    let geometry = observing_geometry(&obs, &s.sites, &s.ephemeris).unwrap();
+    LinearKernel::build(&fit, &obs, geometry, &s.model, &s.ephemeris).unwrap()
+}
+
 #[test]
 fn false_alarm_probabilities_are_uniform_on_linear_null_data() {
     // Calibration of the null simulations: pure-noise residuals fed through the
@@ -259,12 +269,7 @@ fn false_alarm_probabilities_are_uniform_on_linear_null_data() {
     // the signal-subspace shortcut against the full grid.
     use rand::SeedableRng;
     use rand_distr::{Distribution, StandardNormal};
-    let s = scenario();
-    let obs = simulate_survey(&survey(55, true), &initial(&s, vec![]), &s.model, &s.ephemeris, &s.sites).unwrap();
-    let settings = ReferenceSettings { epoch_tdb_days: Some(T0), ..ReferenceSettings::default() };
-    let fit = fit_reference_orbit(&obs, &s.sites, &s.model, &s.ephemeris, &settings, None).unwrap();
-    let geometry = observing_geometry(&obs, &s.sites, &s.ephemeris).unwrap();
-    let kernel = LinearKernel::build(&fit, &obs, geometry, &s.model, &s.ephemeris).unwrap();
+    let kernel = unperturbed_kernel();
     let search = SearchSettings {
         n_directions: 64,
         n_distances: 6,
@@ -399,12 +404,7 @@ fn null_simulations_in_shards_are_the_whole_grids_and_match_exact_search_maxima(
     use latens::perturber::search::{NullShare, hypotheses, null_maxima_share, score};
     use rand::SeedableRng;
     use rand_distr::{Distribution, StandardNormal};
-    let s = scenario();
-    let obs = simulate_survey(&survey(55, true), &initial(&s, vec![]), &s.model, &s.ephemeris, &s.sites).unwrap();
-    let settings = ReferenceSettings { epoch_tdb_days: Some(T0), ..ReferenceSettings::default() };
-    let fit = fit_reference_orbit(&obs, &s.sites, &s.model, &s.ephemeris, &settings, None).unwrap();
-    let geometry = observing_geometry(&obs, &s.sites, &s.ephemeris).unwrap();
-    let kernel = LinearKernel::build(&fit, &obs, geometry, &s.model, &s.ephemeris).unwrap();
+    let kernel = unperturbed_kernel();
     let search = SearchSettings {
         n_directions: 64,
         n_distances: 6,

@@ -127,6 +127,10 @@ fn four_shards_merge_into_the_unsharded_map() {
                 "4",
                 "--seed",
                 "5",
+                "--sky-map",
+                "1",
+                "--sky-trials",
+                "2",
                 "--out",
             ])
             .arg(out);
@@ -148,6 +152,15 @@ fn four_shards_merge_into_the_unsharded_map() {
     let a = std::fs::read_to_string(whole.join("sensitivity.csv")).unwrap();
     let b = std::fs::read_to_string(merged.join("sensitivity.csv")).unwrap();
     assert_eq!(a, b, "merged shards differ from the unsharded map");
+    // The sky map too: every cell of order 1 at each of the 5 distances
+    // (most hold their 2 trials), the same merged as whole; the masses
+    // empty where the range does not reach them (pandas reads NaN).
+    let sky = std::fs::read_to_string(whole.join("sensitivity_sky.csv")).unwrap();
+    assert_eq!(sky, std::fs::read_to_string(merged.join("sensitivity_sky.csv")).unwrap());
+    assert!(sky.starts_with("distance_au,healpix_order,cell,ra_deg,dec_deg,"), "{}", &sky[..80]);
+    assert!((200..=241).contains(&sky.lines().count()), "{} lines", sky.lines().count());
+    assert!(sky.lines().all(|l| l.split(',').count() == 10));
+    assert!(merged.join("sensitivity_sky.png").exists() && parts.join("sensitivity_sky.part-2-of-4.csv").exists());
     // The CSV holds only its table (header first, no comment lines: pandas,
     // the csv module and spreadsheets read it with default settings); the
     // settings and the threshold are in the JSON beside it.
@@ -375,4 +388,79 @@ fn map_agrees_with_the_full_search_on_injected_perturbers_quick() {
 fn map_agrees_with_the_full_search_on_injected_perturbers() {
     let (z, _, _) = injection_recovery(12);
     assert!((-3.0..3.5).contains(&z), "z = {z}");
+}
+
+#[test]
+fn the_sky_map_of_a_far_perturber_is_symmetric_through_the_sun() {
+    // Physics (common practice): far beyond the tracked body a perturber
+    // acts through its tide, G M (3 n (n.r) - r) / d^3 for a perturber in
+    // direction n at distance d, the same for n and -n; the next term
+    // (octupole), odd in n, is smaller by about r/d. So the signal power a
+    // perturber makes, cell by cell of the sky map, must be nearly the same
+    // in antipodal cells, the more so the farther out (about 2 r/d in
+    // power: ~11% at 800 au and ~3% at 3200 au for this body at 44 au),
+    // while it varies strongly from cell to cell (the tide's pattern
+    // against the body's orbit).
+    use latens::perturber::sensitivity::{SkyPlan, sky_amplitudes};
+    let (model, eph, (r, v)) = scenario();
+    let init = InitialState {
+        t0_tdb_days: T0,
+        tracked_position_au: icrf_from_ecliptic(r),
+        tracked_velocity_au_per_day: icrf_from_ecliptic(v),
+        perturbers: vec![],
+    };
+    let sites = SiteTable::new();
+    let plan = SurveyPlan {
+        times_tdb_days: (0..520).map(|k| T0 - 3652.5 + 14.0 * k as f64).collect(),
+        site: "geocenter".into(),
+        sigma_arcsec: 0.05,
+        add_noise: true,
+        min_elongation_deg: 90.0,
+        seed: 6,
+    };
+    let obs = simulate_survey(&plan, &init, &model, &eph, &sites).unwrap();
+    let settings = ReferenceSettings { epoch_tdb_days: Some(T0), ..Default::default() };
+    let fit = fit_reference_orbit(&obs, &sites, &model, &eph, &settings, None).unwrap();
+    let geometry = observing_geometry(&obs, &sites, &eph).unwrap();
+    let kernel = LinearKernel::build(&fit, &obs, geometry, &model, &eph).unwrap();
+    let map = SensitivitySettings {
+        mass_earth: (1.0, 1e6),
+        distance_au: (800.0, 3200.0),
+        n_masses: 10,
+        n_distances: 2,
+        n_trials: 1,
+        near_ecliptic_deg: None,
+        seed: 9,
+        min_separation_au: 2.0,
+    };
+    let sky = SkyPlan { order: 1, trials_per_cell: 200 };
+    let asymmetry = |di: usize| -> (f64, f64) {
+        let cells = sky_amplitudes(&kernel, &map, &sky, di);
+        assert_eq!(cells.len(), 48, "every cell of order 1 holds trials");
+        assert!(cells.iter().all(|c| c.1.len() == 200));
+        // The mean squared signal per cell (the noise-free chi-square drop).
+        let power: std::collections::HashMap<u64, f64> =
+            cells.iter().map(|(c, a)| (*c, a.iter().map(|x| x * x).sum::<f64>() / a.len() as f64)).collect();
+        let mut log_ratios: Vec<f64> = power
+            .iter()
+            .map(|(&c, &p)| {
+                let centre = latens::skymap::cell_centre(1, c);
+                let (lon, lat) = latens::skymap::lon_lat(centre * -1.0);
+                (p / power[&cdshealpix::nested::hash(1, lon, lat)]).ln().abs()
+            })
+            .collect();
+        log_ratios.sort_by(f64::total_cmp);
+        let (lo, hi) = power.values().fold((f64::INFINITY, 0.0f64), |(a, b), &p| (a.min(p), b.max(p)));
+        (log_ratios[log_ratios.len() / 2], hi / lo)
+    };
+    let (near, span_near) = asymmetry(0);
+    let (far, span) = asymmetry(1);
+    eprintln!(
+        "sky map: antipodal cells differ by a median {:.1}% in signal power at 800 au and {:.1}% at 3200 au; cells span a factor {span_near:.1} and {span:.1}",
+        100.0 * (near.exp() - 1.0),
+        100.0 * (far.exp() - 1.0)
+    );
+    assert!(span > 2.0, "the sky map hardly varies over the sky: {span:.2}");
+    assert!(far < 0.08, "antipodal cells differ by {:.1}% in median at 3200 au", 100.0 * (far.exp() - 1.0));
+    assert!(far < 0.6 * near, "the asymmetry does not shrink outwards: {near:.3} at 800 au, {far:.3} at 3200 au");
 }

@@ -130,10 +130,11 @@ def test_sensitivity_matches_latens_sensitivity(simulated, tmp_path):
         "--obs", simulated / "observations.csv",
         "--sites", simulated / "sites.csv",
         "--grid", "3:3", "--trials", 8, "--nulls", 40, "--directions", 12, "--distances", 2,
-        "--out", tmp_path,
+        "--sky-map", 0, "--sky-trials", 3, "--out", tmp_path,
     )
     study = latens.Study(simulated / "observations.csv", sites=simulated / "sites.csv")
-    s = latens.sensitivity(study, grid=(3, 3), trials=8, nulls=40, directions=12, distances=2)
+    s = latens.sensitivity(study, grid=(3, 3), trials=8, nulls=40, directions=12, distances=2,
+                           sky_map=0, sky_trials=3)
     with open(tmp_path / "sensitivity.csv", newline="") as f:
         rows = list(csv.DictReader(f))
     meta = json.loads((tmp_path / "sensitivity.json").read_text())
@@ -147,22 +148,34 @@ def test_sensitivity_matches_latens_sensitivity(simulated, tmp_path):
         assert abs(got[key] - float(r["detection_probability"])) < 5.1e-7
     assert s.probability.shape == (3, 3)
     assert s.to_pandas().shape[0] == 9
+    # The sky map: the same cells and masses as sensitivity_sky.csv (4
+    # decimals there; empty fields where the range is not reached, NaN here).
+    with open(tmp_path / "sensitivity_sky.csv", newline="") as f:
+        sky_rows = list(csv.DictReader(f))
+    assert len(sky_rows) == len(s.sky["cell"]) > 0
+    for r, cell, m50 in zip(sky_rows, s.sky["cell"], s.sky["mass50_earth"]):
+        assert int(r["cell"]) == int(cell)
+        if r["mass50_earth"] == "":
+            assert np.isnan(m50)
+        else:
+            assert abs(float(r["mass50_earth"]) - m50) <= 5e-5 * max(1.0, m50)
     # Shards: one written here, one by the command, merged here into the
     # unsharded map (the same numbers).
     shards = tmp_path / "shards"
     written = latens.sensitivity(study, grid=(3, 3), trials=8, nulls=40, directions=12, distances=2,
-                                 shard=(1, 2), out=shards)
+                                 sky_map=0, sky_trials=3, shard=(1, 2), out=shards)
     assert [Path(p).name for p in written] == ["sensitivity.part-1-of-2.json", "sensitivity.part-1-of-2.csv"]
     run_cli(
         "sensitivity",
         "--obs", simulated / "observations.csv",
         "--sites", simulated / "sites.csv",
         "--grid", "3:3", "--trials", 8, "--nulls", 40, "--directions", 12, "--distances", 2,
-        "--shard", "2/2", "--out", shards,
+        "--sky-map", 0, "--sky-trials", 3, "--shard", "2/2", "--out", shards,
     )
     merged = latens.merge_sensitivity([shards])
     assert merged.threshold_delta_chi2 == s.threshold_delta_chi2
     assert list(merged.cells["detection_probability"]) == list(s.cells["detection_probability"])
+    np.testing.assert_array_equal(merged.sky["mass50_earth"], s.sky["mass50_earth"])
 
 
 def test_infer_in_one_call_is_the_three_stages(cli_infer, py_run):

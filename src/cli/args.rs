@@ -233,9 +233,23 @@ pub struct SensitivityArgs {
     /// observed.
     #[arg(long, value_name = "FIT_JSON")]
     pub orbit: Option<PathBuf>,
-    /// Compute only slice K of N of the cells (same numbers as an unsharded run).
+    /// Compute only shard K of N (every N-th hypothesis of the threshold's
+    /// null simulations, every N-th distance's trials), for a job array;
+    /// `latens sensitivity merge` joins the shards (same numbers as an
+    /// unsharded run).
     #[arg(long, value_name = "K/N")]
     pub shard: Option<String>,
+    /// Also map where on the sky a perturber at each distance would be
+    /// detected: the masses detected with 50% and 90% probability in each
+    /// HEALPix cell of this order (0: 12 cells, 1: 48, 2: 192, 3: 768), in
+    /// sensitivity_sky.csv and its chart (within the --near-ecliptic band
+    /// when one is given).
+    #[arg(long, value_name = "ORDER")]
+    pub sky_map: Option<u8>,
+    /// Perturber configurations drawn in each cell of the sky map at each
+    /// distance.
+    #[arg(long, value_name = "N", default_value_t = 16)]
+    pub sky_trials: usize,
     /// Seed of all random draws.
     #[arg(long, value_name = "N", default_value_t = 1)]
     pub seed: u64,

@@ -160,6 +160,9 @@ pub(super) fn run(args: &DemoArgs) -> Result<(), CliError> {
         directions: 768,
         distances: 20,
         shard: None,
+        // Where on the sky: 48 cells of 860 sq deg, 16 perturbers each.
+        sky_map: Some(1),
+        sky_trials: 16,
         seed: scenario.survey.seed,
         out: sensitivity_dir.clone(),
     })?;

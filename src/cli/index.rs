@@ -67,8 +67,12 @@ const CATALOGUE: &[(&str, &str)] = &[
     ("sensitivity.json", "the sensitivity map's settings and detection threshold"),
     ("sensitivity.png", "chart of the detection probability with the 50%/90% and 95% exclusion curves"),
     ("sensitivity.svg", "chart of the detection probability (vector)"),
-    ("sensitivity.part-*.csv", "one shard of the sensitivity map's cells"),
-    ("sensitivity.part-*.json", "one shard's settings and detection threshold"),
+    ("sensitivity_sky.csv", "the mass detected with 50%/90% probability per distance and HEALPix cell of the sky"),
+    ("sensitivity_sky.png", "chart of where on the sky a perturber would be detected, at three distances"),
+    ("sensitivity_sky.svg", "chart of where on the sky a perturber would be detected (vector)"),
+    ("sensitivity.part-*.csv", "one shard of the sensitivity map: each trial's signal amplitude per Earth mass"),
+    ("sensitivity.part-*.json", "one shard's settings, hypotheses, distances and null-simulation maxima"),
+    ("sensitivity_sky.part-*.csv", "one shard of the sky map: each trial's cell and signal amplitude"),
     ("predict.csv", "each sky mode's place date by date, with error ellipse, brightness, motion, solar elongation"),
 ];
 

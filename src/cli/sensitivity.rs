@@ -10,10 +10,10 @@ use super::args::{SensitivityArgs, SensitivityCommand};
 use latens::io::results::SensitivityFile;
 use latens::io::write_atomically;
 use latens::perturber::search::SearchSettings;
-use latens::perturber::sensitivity::{Cell, SensitivitySettings, contour};
+use latens::perturber::sensitivity::{Cell, SensitivitySettings, SkyCellMass, SkyPlan, contour};
 use latens::pipeline::{
-    EphemerisSource, SensitivityPlan, SensitivityShare, Study, TrackedArc, merge_sensitivity, parse_known, sensitivity,
-    sensitivity_share,
+    EphemerisSource, SensitivityMap, SensitivityPlan, SensitivityShare, Study, TrackedArc, merge_sensitivity,
+    parse_known, sensitivity, sensitivity_share,
 };
 use latens_charts::sensitivity_chart::SensitivityChart;
 
@@ -63,6 +63,7 @@ pub(super) fn run(args: &SensitivityArgs) -> Result<(), CliError> {
             ..SearchSettings::default()
         },
         shard,
+        sky: args.sky_map.map(|order| SkyPlan { order, trials_per_cell: args.sky_trials }),
     };
     plan.check()?;
     let known = parse_known(&input.known).map_err(|e| CliError::bad_input(anyhow::anyhow!(e)))?;
@@ -138,7 +139,7 @@ pub(super) fn run(args: &SensitivityArgs) -> Result<(), CliError> {
         None => {
             let map = sensitivity(&study, &plan, &bars)?;
             let meta = SensitivityFile { threshold_delta_chi2: Some(map.threshold_delta_chi2), ..about };
-            write_products(&args.out, &map.cells, &meta).map_err(CliError::failed)?;
+            write_products(&args.out, &map, &meta).map_err(CliError::failed)?;
         }
     }
     Ok(())
@@ -192,7 +193,8 @@ pub(super) fn read_orbit(path: &Path) -> Result<(f64, [f64; 6]), CliError> {
     Ok((jd - latens::units::J2000_JD, state))
 }
 
-fn write_products(out: &Path, cells: &[Cell], meta: &SensitivityFile) -> anyhow::Result<()> {
+fn write_products(out: &Path, whole: &SensitivityMap, meta: &SensitivityFile) -> anyhow::Result<()> {
+    let cells = &whole.cells;
     let threshold = meta.threshold_delta_chi2.unwrap_or(f64::NAN);
     let mut csv = format!("{HEADER}\n");
     for c in cells {
@@ -220,8 +222,14 @@ fn write_products(out: &Path, cells: &[Cell], meta: &SensitivityFile) -> anyhow:
         let f = |m: &Option<f64>| m.map_or("beyond the grid".to_string(), |m| format!("{m:.3} Earth masses"));
         say!("  at {d:7.1} au: {} / {} / {}", f(m50), f(m90), f(m95));
     }
+    let sky = if whole.sky.is_empty() {
+        String::new()
+    } else {
+        write_sky(out, &whole.sky)?;
+        format!(", sensitivity_sky.csv (the sky map){}", super::and_chart("sensitivity_sky"))
+    };
     say!(
-        "Files written in {}: sensitivity.csv (the map), sensitivity.json (its settings and threshold){}",
+        "Files written in {}: sensitivity.csv (the map), sensitivity.json (its settings and threshold){}{sky}",
         out.display(),
         super::and_chart("sensitivity")
     );
@@ -236,5 +244,35 @@ fn merge(dirs: &[PathBuf], out: &Path) -> Result<(), CliError> {
     let (about, shares) = SensitivityShare::read_dirs(dirs)?;
     let map = merge_sensitivity(&shares, about.false_alarm_probability)?;
     let meta = SensitivityFile { threshold_delta_chi2: Some(map.threshold_delta_chi2), ..about };
-    write_products(out, &map.cells, &meta).map_err(CliError::failed)
+    write_products(out, &map, &meta).map_err(CliError::failed)
+}
+
+const SKY_HEADER: &str =
+    "distance_au,healpix_order,cell,ra_deg,dec_deg,ecliptic_lat_deg,n_trials,mass50_earth,mass90_earth,distance_index";
+
+/// sensitivity_sky.csv (one row per distance and HEALPix cell; a mass the
+/// map's range does not reach is an empty field) and its chart.
+fn write_sky(out: &Path, sky: &[SkyCellMass]) -> anyhow::Result<()> {
+    let mut csv = format!("{SKY_HEADER}\n");
+    let opt = |m: Option<f64>| m.map_or(String::new(), |m| format!("{m:.4}"));
+    for c in sky {
+        let (ra, dec, lat) = c.centre_deg();
+        csv.push_str(&format!(
+            "{},{},{},{:.4},{:.4},{:.4},{},{},{},{}\n",
+            c.distance_au,
+            c.order,
+            c.cell,
+            ra,
+            dec,
+            lat,
+            c.n_trials,
+            opt(c.mass50_earth),
+            opt(c.mass90_earth),
+            c.distance_index
+        ));
+    }
+    let chart = latens_charts::sky_sensitivity_chart::SkySensitivityChart::new(sky);
+    super::write_chart(out, "sensitivity_sky", |tmp| chart.draw_png(tmp), || chart.draw_svg())?;
+    write_atomically(&out.join("sensitivity_sky.csv"), csv.as_bytes())?;
+    Ok(())
 }

@@ -6,6 +6,7 @@ pub mod posterior_chart;
 pub mod residual_chart;
 pub mod search_chart;
 pub mod sensitivity_chart;
+pub mod sky_sensitivity_chart;
 
 /// Registers the embedded DejaVu Sans font with plotters once, so charts need
 /// no system font library.

@@ -112,7 +112,7 @@ pub fn hammer(d: Vec3) -> (f64, f64) {
     hammer_ra_dec(ra, dec)
 }
 
-fn hammer_ra_dec(ra: f64, dec: f64) -> (f64, f64) {
+pub(crate) fn hammer_ra_dec(ra: f64, dec: f64) -> (f64, f64) {
     // Longitude measured from the centre, positive to the left.
     let l = -(ra - std::f64::consts::PI);
     let den = (1.0 + dec.cos() * (l / 2.0).cos()).sqrt();
@@ -145,8 +145,66 @@ fn project_cell(cell: &SkyCell) -> Vec<(f64, f64)> {
         .collect()
 }
 
+/// A whole-sky chart's graticule and outline: RA every `hour_step` hours
+/// (labelled on the equator), Dec every 30 deg (labelled at the right edge
+/// when `dec_labels`; without, the RA labels get a white patch, for maps
+/// filled with colour), and the projection's edge.
+pub(crate) fn draw_graticule<DB: DrawingBackend>(
+    chart: &mut ChartContext<
+        '_,
+        DB,
+        Cartesian2d<plotters::coord::types::RangedCoordf64, plotters::coord::types::RangedCoordf64>,
+    >,
+    hour_step: usize,
+    font: u32,
+    dec_labels: bool,
+) -> Result<(), String> {
+    let e = |x: DrawingAreaErrorKind<DB::ErrorType>| x.to_string();
+    let (xr, yr) = (2.0 * std::f64::consts::SQRT_2, std::f64::consts::SQRT_2);
+    let grid = RGBColor(150, 150, 150);
+    for h in (0..24).step_by(hour_step.max(1)) {
+        let ra = (h as f64 * 15.0).to_radians().clamp(1e-6, std::f64::consts::TAU - 1e-6);
+        let pts: Vec<(f64, f64)> = (-90..=90).map(|d| hammer_ra_dec(ra, (d as f64).to_radians())).collect();
+        chart.draw_series(LineSeries::new(pts, grid.stroke_width(1))).map_err(e)?;
+        let (x, y) = hammer_ra_dec(ra, 0.0);
+        if !dec_labels {
+            // On a filled map: a white patch keeps the label legible.
+            let (w, h) = (0.03 * f64::from(font) / 3.0, 0.075 * f64::from(font) / 15.0);
+            chart.draw_series([Rectangle::new([(x - 0.01, y + 0.01), (x + w, y - h)], WHITE.filled())]).map_err(e)?;
+        }
+        chart
+            .draw_series([Text::new(format!("{h}h"), (x, y), ("sans-serif", font).into_font().color(&INK))])
+            .map_err(e)?;
+    }
+    for d in [-60, -30, 0, 30, 60] {
+        let dec = (d as f64).to_radians();
+        let pts: Vec<(f64, f64)> = (0..=360)
+            .map(|r| hammer_ra_dec((r as f64).to_radians().clamp(1e-6, std::f64::consts::TAU - 1e-6), dec))
+            .collect();
+        chart.draw_series(LineSeries::new(pts, grid.stroke_width(1))).map_err(e)?;
+        if dec_labels {
+            let (x, y) = hammer_ra_dec(std::f64::consts::TAU - 1e-6, dec);
+            chart
+                .draw_series([Text::new(
+                    if d == 0 { "0°".to_string() } else { format!("{d:+}°") },
+                    (x - 0.2, y + 0.03),
+                    ("sans-serif", font).into_font().color(&INK),
+                )])
+                .map_err(e)?;
+        }
+    }
+    let edge: Vec<(f64, f64)> = (0..=360)
+        .map(|k| {
+            let t = (k as f64).to_radians();
+            (xr * t.cos(), yr * t.sin())
+        })
+        .collect();
+    chart.draw_series(LineSeries::new(edge, INK.stroke_width(2))).map_err(e)?;
+    Ok(())
+}
+
 /// Splits a projected curve where it jumps across the chart's edge.
-fn split_curve(points: &[Vec3]) -> Vec<Vec<(f64, f64)>> {
+pub(crate) fn split_curve(points: &[Vec3]) -> Vec<Vec<(f64, f64)>> {
     let mut out: Vec<Vec<(f64, f64)>> = vec![Vec::new()];
     let mut last: Option<(f64, f64)> = None;
     for p in points {
@@ -238,40 +296,7 @@ impl SearchChart {
                 )
                 .map_err(e)?;
         }
-        // Graticule: RA every 2 h, Dec every 30 deg.
-        let grid = RGBColor(150, 150, 150);
-        for h in (0..24).step_by(2) {
-            let ra = (h as f64 * 15.0).to_radians().clamp(1e-6, std::f64::consts::TAU - 1e-6);
-            let pts: Vec<(f64, f64)> = (-90..=90).map(|d| hammer_ra_dec(ra, (d as f64).to_radians())).collect();
-            chart.draw_series(LineSeries::new(pts, grid.stroke_width(1))).map_err(e)?;
-            let (x, y) = hammer_ra_dec(ra, 0.0);
-            chart
-                .draw_series([Text::new(format!("{h}h"), (x, y), ("sans-serif", 16).into_font().color(&INK))])
-                .map_err(e)?;
-        }
-        for d in [-60, -30, 0, 30, 60] {
-            let dec = (d as f64).to_radians();
-            let pts: Vec<(f64, f64)> = (0..=360)
-                .map(|r| hammer_ra_dec((r as f64).to_radians().clamp(1e-6, std::f64::consts::TAU - 1e-6), dec))
-                .collect();
-            chart.draw_series(LineSeries::new(pts, grid.stroke_width(1))).map_err(e)?;
-            let (x, y) = hammer_ra_dec(std::f64::consts::TAU - 1e-6, dec);
-            chart
-                .draw_series([Text::new(
-                    if d == 0 { "0°".to_string() } else { format!("{d:+}°") },
-                    (x - 0.2, y + 0.03),
-                    ("sans-serif", 16).into_font().color(&INK),
-                )])
-                .map_err(e)?;
-        }
-        // Outline.
-        let edge: Vec<(f64, f64)> = (0..=360)
-            .map(|k| {
-                let t = (k as f64).to_radians();
-                (xr * t.cos(), yr * t.sin())
-            })
-            .collect();
-        chart.draw_series(LineSeries::new(edge, INK.stroke_width(2))).map_err(e)?;
+        draw_graticule(&mut chart, 2, 16, true)?;
         for part in split_curve(&self.ecliptic) {
             chart.draw_series(DashedLineSeries::new(part, 12, 6, ECLIPTIC.stroke_width(3))).map_err(e)?;
         }

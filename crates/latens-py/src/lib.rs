@@ -1445,6 +1445,29 @@ impl PySensitivity {
         d.set_item("median_delta_chi2", c.iter().map(|x| x.median_delta_chi2).collect::<Vec<_>>().into_pyarray(py))?;
         Ok(d)
     }
+    /// The sky map (with `sky_map=ORDER`) as columns: distance_index,
+    /// distance_au, healpix_order, cell (nested, ICRF), ra_deg, dec_deg,
+    /// ecliptic_lat_deg (the cell's centre), n_trials, mass50_earth,
+    /// mass90_earth (NaN where the map's mass range does not reach); empty
+    /// columns without a sky map.
+    #[getter]
+    fn sky<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyDict>> {
+        let c = &self.inner.sky;
+        let centres: Vec<(f64, f64, f64)> = c.iter().map(|x| x.centre_deg()).collect();
+        let d = PyDict::new(py);
+        d.set_item("distance_index", c.iter().map(|x| x.distance_index as i64).collect::<Vec<_>>().into_pyarray(py))?;
+        d.set_item("distance_au", c.iter().map(|x| x.distance_au).collect::<Vec<_>>().into_pyarray(py))?;
+        d.set_item("healpix_order", c.iter().map(|x| i64::from(x.order)).collect::<Vec<_>>().into_pyarray(py))?;
+        d.set_item("cell", c.iter().map(|x| x.cell).collect::<Vec<_>>().into_pyarray(py))?;
+        d.set_item("ra_deg", centres.iter().map(|x| x.0).collect::<Vec<_>>().into_pyarray(py))?;
+        d.set_item("dec_deg", centres.iter().map(|x| x.1).collect::<Vec<_>>().into_pyarray(py))?;
+        d.set_item("ecliptic_lat_deg", centres.iter().map(|x| x.2).collect::<Vec<_>>().into_pyarray(py))?;
+        d.set_item("n_trials", c.iter().map(|x| x.n_trials as i64).collect::<Vec<_>>().into_pyarray(py))?;
+        let nan = |m: Option<f64>| m.unwrap_or(f64::NAN);
+        d.set_item("mass50_earth", c.iter().map(|x| nan(x.mass50_earth)).collect::<Vec<_>>().into_pyarray(py))?;
+        d.set_item("mass90_earth", c.iter().map(|x| nan(x.mass90_earth)).collect::<Vec<_>>().into_pyarray(py))?;
+        Ok(d)
+    }
     /// The cells as a pandas DataFrame.
     fn to_pandas<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyAny>> {
         frame(py, self.cells(py)?)
@@ -1470,7 +1493,7 @@ impl PySensitivity {
 
 /// sensitivity(study, mass_earth=(0.1, 10000), distance_au=(10, 1000), grid=(40, 40), trials=64,
 /// fap=0.0027, near_ecliptic=None, nulls=1000, directions=768, distances=20, seed=1, shard=None,
-/// out=None, progress=None) -> Sensitivity (with `shard`: [json path, csv path])
+/// out=None, sky_map=None, sky_trials=16, progress=None) -> Sensitivity (with `shard`: [json path, csv path])
 ///
 /// The detection probability over perturber mass and distance for the
 /// study's observations (several bodies: what they reveal together), as
@@ -1481,8 +1504,11 @@ impl PySensitivity {
 /// search and every N-th distance's trials), writes it into the directory
 /// `out` as `latens sensitivity --shard K/N` does and returns the two
 /// paths written; `merge_sensitivity` joins the shards into the map.
+/// `sky_map`: a HEALPix order (0-3) for the map of where on the sky a
+/// perturber at each distance would be detected (`Sensitivity.sky`), with
+/// `sky_trials` perturbers drawn per cell.
 #[pyfunction]
-#[pyo3(signature = (study, mass_earth=(0.1, 10000.0), distance_au=(10.0, 1000.0), grid=(40, 40), trials=64, fap=0.0027, near_ecliptic=None, nulls=1000, directions=768, distances=20, seed=1, shard=None, out=None, progress=None))]
+#[pyo3(signature = (study, mass_earth=(0.1, 10000.0), distance_au=(10.0, 1000.0), grid=(40, 40), trials=64, fap=0.0027, near_ecliptic=None, nulls=1000, directions=768, distances=20, seed=1, shard=None, out=None, sky_map=None, sky_trials=16, progress=None))]
 #[allow(clippy::too_many_arguments)]
 fn sensitivity(
     py: Python<'_>,
@@ -1499,6 +1525,8 @@ fn sensitivity(
     seed: u64,
     shard: Option<(usize, usize)>,
     out: Option<PathBuf>,
+    sky_map: Option<u8>,
+    sky_trials: usize,
     progress: Option<Py<PyAny>>,
 ) -> PyResult<Py<PyAny>> {
     let search = SearchSettings {
@@ -1523,6 +1551,7 @@ fn sensitivity(
         false_alarm_probability: fap,
         search,
         shard,
+        sky: sky_map.map(|order| latens::perturber::sensitivity::SkyPlan { order, trials_per_cell: sky_trials }),
     };
     plan.check().map_err(|e| to_py(py, e))?;
     if shard.is_some() != out.is_some() {

@@ -695,6 +695,11 @@ pub struct SensitivityFile {
     pub bodies: Vec<String>,
     /// [K, N] for shard K of N; null for a whole (or merged) map.
     pub shard: Option<[usize; 2]>,
+    /// The sky map's HEALPix order and trials per cell (absent: no sky map).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub sky_order: Option<u8>,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub sky_trials: Option<usize>,
     /// A shard's hypotheses of the threshold search: [in this shard, in
     /// the whole grid].
     #[serde(default, skip_serializing_if = "Option::is_none")]

@@ -337,7 +337,6 @@ pub fn grid_search<K: SignalKernel + ?Sized>(
     let gm_earth = crate::units::GM_EARTH_MASS_AU3_PER_DAY2;
     let gm_max = settings.mass_earth.1 * gm_earth;
     let hyps = hypotheses(settings, kernel.central_gm());
-    let n_res = kernel.n_residuals();
     observer.begin(Stage::Search, hyps.len() as u64);
 
     // The signal subspace, from a sample of hypotheses.
@@ -345,18 +344,7 @@ pub fn grid_search<K: SignalKernel + ?Sized>(
     let k = basis.ncols();
 
     // Score every hypothesis and its coordinates in the subspace.
-    let chunk = coordinate_chunk(n_res);
-    let done = std::sync::atomic::AtomicUsize::new(0);
-    let results: Vec<(Option<Scored>, Vec<f32>, f64)> = hyps
-        .par_chunks(chunk)
-        .flat_map_iter(|hs| {
-            let out = score_chunk(kernel, &basis, hs, gm_max, settings.min_separation_au);
-            let n = done.fetch_add(hs.len(), std::sync::atomic::Ordering::Relaxed) + hs.len();
-            observer.advance(n as u64);
-            out.into_iter()
-        })
-        .collect();
-    observer.finish();
+    let results = score_all(kernel, &basis, &hyps, gm_max, settings.min_separation_au, observer);
 
     let n_skipped = results.iter().filter(|r| r.0.is_none()).count();
     let scored: Vec<Scored> = results.iter().filter_map(|r| r.0).collect();
@@ -419,10 +407,30 @@ pub fn grid_search<K: SignalKernel + ?Sized>(
     }
 }
 
-/// Hypotheses per chunk of [`score_chunk`]: a chunk's signals hold up to 8
-/// million numbers.
-fn coordinate_chunk(n_res: usize) -> usize {
-    (8_000_000 / n_res.max(1)).clamp(8, 256)
+/// Scores every hypothesis of `hyps` with its coordinates in the subspace
+/// `basis` ([`score_chunk`] over chunks whose signals hold up to 8 million
+/// numbers, in parallel), reporting to `observer` and finishing its stage.
+fn score_all<K: SignalKernel + ?Sized>(
+    kernel: &K,
+    basis: &Mat<f64>,
+    hyps: &[Hypothesis],
+    gm_max: f64,
+    min_separation_au: f64,
+    observer: &dyn Observer,
+) -> Vec<(Option<Scored>, Vec<f32>, f64)> {
+    let chunk = (8_000_000 / kernel.n_residuals().max(1)).clamp(8, 256);
+    let done = std::sync::atomic::AtomicUsize::new(0);
+    let results = hyps
+        .par_chunks(chunk)
+        .flat_map_iter(|hs| {
+            let out = score_chunk(kernel, basis, hs, gm_max, min_separation_au);
+            let n = done.fetch_add(hs.len(), std::sync::atomic::Ordering::Relaxed) + hs.len();
+            observer.advance(n as u64);
+            out.into_iter()
+        })
+        .collect();
+    observer.finish();
+    results
 }
 
 /// Scores a chunk of hypotheses and gives each scored one's normalised
@@ -555,17 +563,7 @@ pub fn null_maxima_share<K: SignalKernel + ?Sized>(
     observer.begin(Stage::Search, mine.len() as u64);
     let basis = signal_subspace(kernel, &hyps, settings, gm_max);
     let k = basis.ncols();
-    let done = std::sync::atomic::AtomicUsize::new(0);
-    let results: Vec<(Option<Scored>, Vec<f32>, f64)> = mine
-        .par_chunks(coordinate_chunk(n_res))
-        .flat_map_iter(|hs| {
-            let out = score_chunk(kernel, &basis, hs, gm_max, settings.min_separation_au);
-            let n = done.fetch_add(hs.len(), std::sync::atomic::Ordering::Relaxed) + hs.len();
-            observer.advance(n as u64);
-            out.into_iter()
-        })
-        .collect();
-    observer.finish();
+    let results = score_all(kernel, &basis, &mine, gm_max, settings.min_separation_au, observer);
     let coords: Vec<&Vec<f32>> = results.iter().filter(|r| r.0.is_some()).map(|r| &r.1).collect();
     let energy = results.iter().filter(|r| r.0.is_some()).map(|r| r.2).sum::<f64>() / coords.len().max(1) as f64;
 

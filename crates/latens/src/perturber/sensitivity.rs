@@ -117,40 +117,189 @@ pub fn configurations<K: SignalKernel + ?Sized>(
     let mut attempts = 0;
     while out.len() < settings.n_trials && attempts < 50 * settings.n_trials {
         attempts += 1;
-        let (dir, t) = match settings.near_ecliptic_deg {
-            // Near-ecliptic: an orbit plane within the band, the position
-            // anywhere on it.
-            Some(band) => super::search::draw_in_band(band, &mut rng),
-            None => {
-                let mut g = || -> f64 { StandardNormal.sample(&mut rng) };
-                let dir = Vec3::new(g(), g(), g()).unit();
-                let mut e1 = pole.cross(dir);
-                if e1.norm() < 1e-9 {
-                    e1 = Vec3::new(1.0, 0.0, 0.0).cross(dir);
-                }
-                let e1 = e1.unit();
-                let e2 = dir.cross(e1);
-                let psi = std::f64::consts::TAU * rand_unit(&mut rng);
-                (dir, e1 * psi.cos() + e2 * psi.sin())
-            }
-        };
-        let r = dir * d;
-        let speed = (0.75 + 0.5 * rand_unit(&mut rng)) * (kernel.central_gm() / d).sqrt();
-        let v = t * speed;
-        let Some(orbit) = KeplerOrbit::from_state(kernel.central_gm(), r, v, kernel.epoch_tdb_days()) else {
-            continue;
-        };
-        if kernel.signal(&orbit, &mut signal) < settings.min_separation_au {
-            continue;
+        let (r, v) = draw_state(settings, pole, d, kernel.central_gm(), &mut rng);
+        if let Some(c) = configuration(kernel, settings, r, v, &mut signal) {
+            out.push(c);
         }
-        kernel.project(&mut signal);
-        out.push(Configuration {
-            position_au: r,
-            velocity_au_per_day: v,
-            amplitude_per_gm: signal.iter().map(|x| x * x).sum::<f64>().sqrt(),
-        });
     }
     out
+}
+
+/// One perturber state at heliocentric distance `d` as the map draws them:
+/// an isotropic direction (or an orbit plane within the band, the position
+/// anywhere on it) and a tangential speed of 0.75-1.25 times circular.
+fn draw_state(
+    settings: &SensitivitySettings,
+    pole: Vec3,
+    d: f64,
+    central_gm: f64,
+    rng: &mut rand::rngs::StdRng,
+) -> (Vec3, Vec3) {
+    let (dir, t) = match settings.near_ecliptic_deg {
+        Some(band) => super::search::draw_in_band(band, rng),
+        None => {
+            let mut g = || -> f64 { StandardNormal.sample(rng) };
+            let dir = Vec3::new(g(), g(), g()).unit();
+            let mut e1 = pole.cross(dir);
+            if e1.norm() < 1e-9 {
+                e1 = Vec3::new(1.0, 0.0, 0.0).cross(dir);
+            }
+            let e1 = e1.unit();
+            let e2 = dir.cross(e1);
+            let psi = std::f64::consts::TAU * rand_unit(rng);
+            (dir, e1 * psi.cos() + e2 * psi.sin())
+        }
+    };
+    let speed = (0.75 + 0.5 * rand_unit(rng)) * (central_gm / d).sqrt();
+    (dir * d, t * speed)
+}
+
+/// The configuration of a drawn state through the kernel (None when it is
+/// not a bound orbit or passes within the closest allowed approach).
+fn configuration<K: SignalKernel + ?Sized>(
+    kernel: &K,
+    settings: &SensitivitySettings,
+    r: Vec3,
+    v: Vec3,
+    signal: &mut [f64],
+) -> Option<Configuration> {
+    let orbit = KeplerOrbit::from_state(kernel.central_gm(), r, v, kernel.epoch_tdb_days())?;
+    if kernel.signal(&orbit, signal) < settings.min_separation_au {
+        return None;
+    }
+    kernel.project(signal);
+    Some(Configuration {
+        position_au: r,
+        velocity_au_per_day: v,
+        amplitude_per_gm: signal.iter().map(|x| x * x).sum::<f64>().sqrt(),
+    })
+}
+
+/// A sky map's trials: distance index, HEALPix cell, each trial's
+/// amplitude per Earth mass.
+pub type SkyTrials = Vec<(usize, u64, Vec<f64>)>;
+
+/// Where on the sky the population could detect a perturber: HEALPix
+/// cells (nested, ICRF) of one order and trials drawn in each.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct SkyPlan {
+    /// HEALPix order of the cells (0: 12 cells of 3438 sq deg; 1: 48 of
+    /// 859; 2: 192 of 215; 3: 768 of 54).
+    pub order: u8,
+    /// Trials drawn in each cell at each distance.
+    pub trials_per_cell: usize,
+}
+
+/// The trials of a sky map at distance index `di`: draws as the map's
+/// (same band, speeds and closest approach), each kept in the cell of its
+/// heliocentric direction until every cell holds `trials_per_cell` (cells
+/// the band keeps out stay empty). Seeded by distance index, so shards
+/// draw the same trials. Returns (cell, each trial's amplitude per Earth
+/// mass) for the cells with trials.
+pub fn sky_amplitudes<K: SignalKernel + ?Sized>(
+    kernel: &K,
+    settings: &SensitivitySettings,
+    plan: &SkyPlan,
+    di: usize,
+) -> Vec<(u64, Vec<f64>)> {
+    let d = log_grid(settings.distance_au, settings.n_distances, di);
+    let pole = super::search::ecliptic_pole();
+    let n_cells = 12usize << (2 * plan.order as usize);
+    let mut rng = rand::rngs::StdRng::seed_from_u64(
+        settings.seed.wrapping_mul(0x2545_F491).wrapping_add(di as u64) ^ (u64::from(plan.order) << 40),
+    );
+    let gm_earth = crate::units::GM_EARTH_MASS_AU3_PER_DAY2;
+    let mut cells: Vec<Vec<f64>> = vec![Vec::new(); n_cells];
+    let mut open = n_cells;
+    let mut signal = vec![0.0; kernel.n_residuals()];
+    let cap = 60 * n_cells * plan.trials_per_cell.max(1);
+    let mut attempts = 0;
+    while open > 0 && attempts < cap {
+        attempts += 1;
+        let (r, v) = draw_state(settings, pole, d, kernel.central_gm(), &mut rng);
+        let (lon, lat) = crate::skymap::lon_lat(r.unit());
+        let cell = cdshealpix::nested::hash(plan.order, lon, lat) as usize;
+        if cells[cell].len() >= plan.trials_per_cell {
+            continue;
+        }
+        if let Some(c) = configuration(kernel, settings, r, v, &mut signal) {
+            cells[cell].push(c.amplitude_per_gm * gm_earth);
+            if cells[cell].len() == plan.trials_per_cell {
+                open -= 1;
+            }
+        }
+    }
+    cells.into_iter().enumerate().filter(|(_, a)| !a.is_empty()).map(|(i, a)| (i as u64, a)).collect()
+}
+
+/// One cell of the sky map at one distance.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct SkyCellMass {
+    pub distance_index: usize,
+    pub distance_au: f64,
+    pub order: u8,
+    /// Nested HEALPix index (ICRF) of the cell.
+    pub cell: u64,
+    pub n_trials: usize,
+    /// The masses (Earth masses) detected with 50% and 90% probability by
+    /// a perturber in this cell (None: not within the map's mass range; the
+    /// lower end of the range when already reached there).
+    pub mass50_earth: Option<f64>,
+    pub mass90_earth: Option<f64>,
+}
+
+impl SkyCellMass {
+    /// The cell's centre: right ascension and declination (ICRF, degrees)
+    /// and ecliptic latitude (degrees).
+    pub fn centre_deg(&self) -> (f64, f64, f64) {
+        let c = crate::skymap::cell_centre(self.order, self.cell);
+        let (ra, dec) = crate::skymap::lon_lat(c);
+        let lat = crate::frames::ecliptic_lonlat_from_icrf(c).lat_rad;
+        (ra.to_degrees(), dec.to_degrees(), lat.to_degrees())
+    }
+}
+
+/// The smallest mass within `range` (Earth masses) whose detection
+/// probability, averaged over trials with amplitudes `amps` per Earth
+/// mass, reaches `level` at threshold sqrt_t^2 (bisection in log mass: the
+/// probability rises with the mass).
+pub fn mass_at_level(amps: &[f64], sqrt_t: f64, level: f64, range: (f64, f64)) -> Option<f64> {
+    let p = |m: f64| amps.iter().map(|a| normal_cdf(m * a - sqrt_t)).sum::<f64>() / amps.len().max(1) as f64;
+    if amps.is_empty() || p(range.1) < level {
+        return None;
+    }
+    if p(range.0) >= level {
+        return Some(range.0);
+    }
+    let (mut lo, mut hi) = (range.0.ln(), range.1.ln());
+    for _ in 0..60 {
+        let mid = 0.5 * (lo + hi);
+        if p(mid.exp()) >= level { hi = mid } else { lo = mid }
+    }
+    Some(hi.exp())
+}
+
+/// The sky map's cells from the trials' amplitudes (distance index, cell,
+/// amplitudes per Earth mass) at the detection threshold.
+pub fn sky_cells(
+    settings: &SensitivitySettings,
+    order: u8,
+    threshold_delta_chi2: f64,
+    amplitudes: &[(usize, u64, Vec<f64>)],
+) -> Vec<SkyCellMass> {
+    let sqrt_t = threshold_delta_chi2.max(0.0).sqrt();
+    amplitudes
+        .iter()
+        .map(|(di, cell, amps)| SkyCellMass {
+            distance_index: *di,
+            distance_au: log_grid(settings.distance_au, settings.n_distances, *di),
+            order,
+            cell: *cell,
+            n_trials: amps.len(),
+            mass50_earth: mass_at_level(amps, sqrt_t, 0.5, settings.mass_earth),
+            mass90_earth: mass_at_level(amps, sqrt_t, 0.9, settings.mass_earth),
+        })
+        .collect()
 }
 
 /// Signal amplitudes (per unit GM) of the trials at distance index `di`.

@@ -9,7 +9,8 @@ use crate::io::results::SensitivityFile;
 use crate::io::write_atomically;
 use crate::perturber::search::{NullShare, SearchSettings, null_maxima_share};
 use crate::perturber::sensitivity::{
-    Cell, SensitivitySettings, cells_from_amplitudes, probability_grid, trial_amplitudes_at,
+    Cell, SensitivitySettings, SkyCellMass, SkyPlan, SkyTrials, cells_from_amplitudes, probability_grid,
+    sky_amplitudes, sky_cells, trial_amplitudes_at,
 };
 use crate::perturber::{LinearKernel, SignalKernel};
 use crate::progress::Observer;
@@ -28,6 +29,10 @@ pub struct SensitivityPlan {
     pub search: SearchSettings,
     /// Only the cells of shard K of N (1-based), for job arrays.
     pub shard: Option<(usize, usize)>,
+    /// Also map where on the sky (within the band, when one is given) a
+    /// perturber at each distance would be detected: HEALPix cells and
+    /// trials per cell.
+    pub sky: Option<SkyPlan>,
 }
 
 impl SensitivityPlan {
@@ -58,6 +63,11 @@ impl SensitivityPlan {
         {
             return bad("the map's band and its threshold search's band must agree");
         }
+        if let Some(sky) = self.sky
+            && (sky.order > 3 || sky.trials_per_cell == 0)
+        {
+            return bad("--sky-map needs a HEALPix order of 0 to 3 and --sky-trials at least 1");
+        }
         if let Some((k, n)) = self.shard
             && (n == 0 || k == 0 || k > n)
         {
@@ -81,6 +91,9 @@ pub struct SensitivityMap {
     pub threshold_delta_chi2: f64,
     pub cells: Vec<Cell>,
     pub settings: SensitivitySettings,
+    /// The sky map (empty unless the plan asked for one): per distance and
+    /// HEALPix cell, the masses detected with 50% and 90% probability.
+    pub sky: Vec<SkyCellMass>,
 }
 
 impl SensitivityMap {
@@ -102,6 +115,9 @@ pub struct SensitivityShare {
     /// root of the chi-square drop per Earth mass of the perturber (the
     /// drop of a perturber of m Earth masses is (m a)^2).
     pub amplitudes: Vec<(usize, Vec<f64>)>,
+    /// The sky map's trials at this shard's distances (distance index,
+    /// HEALPix cell, each trial's amplitude per Earth mass) and its plan.
+    pub sky: Option<(SkyPlan, SkyTrials)>,
 }
 
 /// Maps the detection probability over mass and distance: the reference
@@ -164,7 +180,18 @@ fn share_with<K: SignalKernel + ?Sized>(
     let nulls = null_maxima_share(kernel, &plan.search, plan.shard.unwrap_or((1, 1)), observer);
     let settings = SensitivitySettings { min_separation_au: plan.search.min_separation_au, ..plan.map.clone() };
     let amplitudes = trial_amplitudes_at(kernel, &settings, &plan.distance_indices(), observer);
-    SensitivityShare { settings, nulls, amplitudes }
+    let sky = plan.sky.map(|sky_plan| {
+        use rayon::prelude::*;
+        let trials: SkyTrials = plan
+            .distance_indices()
+            .par_iter()
+            .flat_map_iter(|&di| {
+                sky_amplitudes(kernel, &settings, &sky_plan, di).into_iter().map(move |(cell, a)| (di, cell, a))
+            })
+            .collect();
+        (sky_plan, trials)
+    });
+    SensitivityShare { settings, nulls, amplitudes, sky }
 }
 
 /// The whole map from all its shards (in any order): the threshold from
@@ -196,11 +223,25 @@ pub fn merge_sensitivity(
     }
     let threshold = threshold_from_maxima(&maxima, false_alarm_probability);
     let cells = cells_from_amplitudes(&first.settings, threshold, &amplitudes);
-    Ok(SensitivityMap { threshold_delta_chi2: threshold, cells, settings: first.settings.clone() })
+    let sky = match &first.sky {
+        None => Vec::new(),
+        Some((sky_plan, _)) => {
+            if shares.iter().any(|s| s.sky.as_ref().map(|x| x.0) != Some(*sky_plan)) {
+                return bad("the shards were made with different sky maps (or some without one)".into());
+            }
+            let mut trials: SkyTrials =
+                shares.iter().flat_map(|s| s.sky.as_ref().map(|x| x.1.clone()).unwrap_or_default()).collect();
+            trials.sort_by_key(|t| (t.0, t.1));
+            sky_cells(&first.settings, sky_plan.order, threshold, &trials)
+        }
+    };
+    Ok(SensitivityMap { threshold_delta_chi2: threshold, cells, settings: first.settings.clone(), sky })
 }
 
 /// The header of a shard's CSV: each trial's amplitude.
 const SHARD_HEADER: &str = "distance_index,distance_au,trial,amplitude_per_earth_mass";
+/// The header of a shard's sky-map trials.
+const SKY_HEADER: &str = "distance_index,cell,trial,amplitude_per_earth_mass";
 
 impl SensitivityPlan {
     /// What sensitivity.json (or a shard's JSON) records of this plan for
@@ -222,6 +263,8 @@ impl SensitivityPlan {
             min_separation_au: self.search.min_separation_au,
             bodies,
             shard: self.shard.map(|(k, n)| [k, n]),
+            sky_order: self.sky.map(|p| p.order),
+            sky_trials: self.sky.map(|p| p.trials_per_cell),
             hypotheses: None,
             distance_indices: None,
             null_maxima: None,
@@ -229,11 +272,49 @@ impl SensitivityPlan {
     }
 }
 
+/// A shard's sky-map trials (`sensitivity_sky.part-K-of-N.csv`), grouped
+/// by distance index and cell; every distance must be one of `indices`.
+fn read_sky_trials(path: &Path, indices: &[usize]) -> Result<SkyTrials, PipelineError> {
+    let bad = |t: String| PipelineError::Input(t);
+    let text = std::fs::read_to_string(path).map_err(|e| bad(format!("{}: {e}", path.display())))?;
+    let mut out: SkyTrials = Vec::new();
+    for (i, line) in text.lines().enumerate() {
+        if i == 0 && line == SKY_HEADER || line.trim().is_empty() {
+            continue;
+        }
+        let here = |what: &str| bad(format!("{}:{}: {what}", path.display(), i + 1));
+        let f: Vec<&str> = line.split(',').collect();
+        if f.len() != 4 {
+            return Err(here(&format!("expected 4 fields ({SKY_HEADER}), found {}", f.len())));
+        }
+        let di: usize = f[0].parse().map_err(|_| here("field distance_index is not an index"))?;
+        let cell: u64 = f[1].parse().map_err(|_| here("field cell is not a HEALPix index"))?;
+        let a: f64 = f[3]
+            .parse()
+            .ok()
+            .filter(|a: &f64| a.is_finite())
+            .ok_or_else(|| here("field amplitude_per_earth_mass is not a number"))?;
+        if !indices.contains(&di) {
+            return Err(here(&format!("distance index {di} is not among the shard's")));
+        }
+        match out.last_mut() {
+            Some(last) if last.0 == di && last.1 == cell => last.2.push(a),
+            _ => out.push((di, cell, vec![a])),
+        }
+    }
+    Ok(out)
+}
+
 impl SensitivityShare {
     /// The file name of shard K of N (`sensitivity.part-K-of-N`, without
     /// its extension).
     pub fn stem(&self) -> String {
         format!("sensitivity.part-{}-of-{}", self.nulls.shard.0, self.nulls.shard.1)
+    }
+
+    /// The file name of the shard's sky-map trials (without extension).
+    pub fn sky_stem(&self) -> String {
+        format!("sensitivity_sky.part-{}-of-{}", self.nulls.shard.0, self.nulls.shard.1)
     }
 
     /// Writes the shard into `dir` as `sensitivity.part-K-of-N.json` (the
@@ -256,6 +337,16 @@ impl SensitivityShare {
             }
         }
         let json = serde_json::to_string_pretty(&meta).map_err(PipelineError::failed("shard file"))? + "\n";
+        if let Some((_, trials)) = &self.sky {
+            let mut sky = format!("{SKY_HEADER}\n");
+            for (di, cell, amps) in trials {
+                for (t, a) in amps.iter().enumerate() {
+                    sky.push_str(&format!("{di},{cell},{t},{a}\n"));
+                }
+            }
+            write_atomically(&dir.join(format!("{}.csv", self.sky_stem())), sky.as_bytes())
+                .map_err(PipelineError::failed("writing a shard"))?;
+        }
         let stem = self.stem();
         let paths = [dir.join(format!("{stem}.json")), dir.join(format!("{stem}.csv"))];
         write_atomically(&paths[0], json.as_bytes()).map_err(PipelineError::failed("writing a shard"))?;
@@ -332,6 +423,13 @@ impl SensitivityShare {
                     seed: meta.seed,
                     min_separation_au: meta.min_separation_au,
                 };
+                let sky = match (meta.sky_order, meta.sky_trials) {
+                    (Some(order), Some(trials_per_cell)) => {
+                        let path = dir.join(format!("sensitivity_sky.part-{k}-of-{n}.csv"));
+                        Some((SkyPlan { order, trials_per_cell }, read_sky_trials(&path, &indices)?))
+                    }
+                    _ => None,
+                };
                 shares.push(SensitivityShare {
                     settings,
                     nulls: NullShare {
@@ -343,6 +441,7 @@ impl SensitivityShare {
                         subspace_energy: f64::NAN,
                     },
                     amplitudes,
+                    sky,
                 });
             }
         }

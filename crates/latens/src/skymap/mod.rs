@@ -97,6 +97,21 @@ pub fn unit_from_lon_lat((lon, lat): (f64, f64)) -> Vec3 {
     crate::frames::vector_from_radec(crate::frames::RaDec { ra_rad: lon, dec_rad: lat })
 }
 
+/// The centre of nested HEALPix cell `cell` at `order` (ICRF unit vector).
+pub fn cell_centre(order: u8, cell: u64) -> Vec3 {
+    unit_from_lon_lat(nested::center(order, cell))
+}
+
+/// The outline of nested HEALPix cell `cell` at `order`: `per_side` points
+/// along each of its four edges (the edges are not great circles), as
+/// ICRF unit vectors.
+pub fn cell_outline(order: u8, cell: u64, per_side: u32) -> Vec<Vec3> {
+    nested::path_along_cell_edge(order, cell, &cdshealpix::compass_point::Cardinal::S, false, per_side.max(1))
+        .iter()
+        .map(|&p| unit_from_lon_lat(p))
+        .collect()
+}
+
 /// The multi-order probability map of a set of equally weighted directions.
 #[derive(Clone, Debug)]
 pub struct SkyMap {
