@@ -30,41 +30,38 @@ fn scenario() -> (ForceModel, latens::ephemeris::Tabulated, (latens::vec3::Vec3,
     (model, eph, state_from_elements(GM_SUN_AU3_PER_DAY2, &el).unwrap())
 }
 
-#[test]
-fn half_detection_mass_grows_as_distance_cubed_far_out() {
-    // Physics (common practice): far beyond the tracked body a perturber acts
-    // through its tide, GM / d^3, so the mass detected with 50% probability
-    // scales as d^3: slope 3 in log-log.
-    let t0 = T0;
+/// The kernel of the tracked body observed `n` times every `step_days`
+/// over ten years before T0 (0.05" noise, seeded), fitted without a perturber.
+fn unperturbed_kernel(n: usize, step_days: f64, seed: u64) -> LinearKernel {
     let (model, eph, (r, v)) = scenario();
     let init = InitialState {
-        t0_tdb_days: t0,
+        t0_tdb_days: T0,
         tracked_position_au: icrf_from_ecliptic(r),
         tracked_velocity_au_per_day: icrf_from_ecliptic(v),
         perturbers: vec![],
     };
     let sites = SiteTable::new();
-    let times = (0..1040).map(|k| t0 - 3652.5 + 7.0 * k as f64).collect();
     let plan = SurveyPlan {
-        times_tdb_days: times,
+        times_tdb_days: (0..n).map(|k| T0 - 3652.5 + step_days * k as f64).collect(),
         site: "geocenter".into(),
         sigma_arcsec: 0.05,
         add_noise: true,
         min_elongation_deg: 90.0,
-        seed: 4,
+        seed,
     };
     let obs = simulate_survey(&plan, &init, &model, &eph, &sites).unwrap();
-    let fit = fit_reference_orbit(
-        &obs,
-        &sites,
-        &model,
-        &eph,
-        &ReferenceSettings { epoch_tdb_days: Some(t0), ..Default::default() },
-        None,
-    )
-    .unwrap();
+    let settings = ReferenceSettings { epoch_tdb_days: Some(T0), ..Default::default() };
+    let fit = fit_reference_orbit(&obs, &sites, &model, &eph, &settings, None).unwrap();
     let geometry = observing_geometry(&obs, &sites, &eph).unwrap();
-    let kernel = LinearKernel::build(&fit, &obs, geometry, &model, &eph).unwrap();
+    LinearKernel::build(&fit, &obs, geometry, &model, &eph).unwrap()
+}
+
+#[test]
+fn half_detection_mass_grows_as_distance_cubed_far_out() {
+    // Physics (common practice): far beyond the tracked body a perturber acts
+    // through its tide, GM / d^3, so the mass detected with 50% probability
+    // scales as d^3: slope 3 in log-log.
+    let kernel = unperturbed_kernel(1040, 7.0, 4);
     let settings = SensitivitySettings {
         mass_earth: (1.0, 1e6),
         distance_au: (200.0, 800.0),
@@ -402,27 +399,7 @@ fn the_sky_map_of_a_far_perturber_is_symmetric_through_the_sun() {
     // while it varies strongly from cell to cell (the tide's pattern
     // against the body's orbit).
     use latens::perturber::sensitivity::{SkyPlan, sky_amplitudes};
-    let (model, eph, (r, v)) = scenario();
-    let init = InitialState {
-        t0_tdb_days: T0,
-        tracked_position_au: icrf_from_ecliptic(r),
-        tracked_velocity_au_per_day: icrf_from_ecliptic(v),
-        perturbers: vec![],
-    };
-    let sites = SiteTable::new();
-    let plan = SurveyPlan {
-        times_tdb_days: (0..520).map(|k| T0 - 3652.5 + 14.0 * k as f64).collect(),
-        site: "geocenter".into(),
-        sigma_arcsec: 0.05,
-        add_noise: true,
-        min_elongation_deg: 90.0,
-        seed: 6,
-    };
-    let obs = simulate_survey(&plan, &init, &model, &eph, &sites).unwrap();
-    let settings = ReferenceSettings { epoch_tdb_days: Some(T0), ..Default::default() };
-    let fit = fit_reference_orbit(&obs, &sites, &model, &eph, &settings, None).unwrap();
-    let geometry = observing_geometry(&obs, &sites, &eph).unwrap();
-    let kernel = LinearKernel::build(&fit, &obs, geometry, &model, &eph).unwrap();
+    let kernel = unperturbed_kernel(520, 14.0, 6);
     let map = SensitivitySettings {
         mass_earth: (1.0, 1e6),
         distance_au: (800.0, 3200.0),
