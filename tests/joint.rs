@@ -1,7 +1,8 @@
 //! Several tracked bodies, one perturber: the joint kernel against its parts,
 //! joint false-alarm probabilities on noise-only populations, injection and
-//! recovery through `latens infer` on the invented population scenario, and
-//! the errors a joint study's input can raise.
+//! recovery through `latens infer` on the invented population scenario, the
+//! joint posterior's coverage over injections, and the errors a joint
+//! study's input can raise.
 //!
 //! The population is invented (scenarios/population.toml); the truth is the
 //! scenario's own, simulated on the full nonlinear model.
@@ -659,4 +660,95 @@ fn population_map_agrees_with_the_joint_search_on_injected_perturbers() {
     // As for one body: the search may do a little better than the map,
     // which counts only the true hypothesis; not clearly worse.
     assert!((-3.0..3.5).contains(&z), "z = {z}");
+}
+
+#[test]
+fn joint_posterior_intervals_cover_the_truth() {
+    // Calibration of the joint posterior, as tests/calibration.rs does it
+    // for one body: perturbers drawn from the prior, their joint linear
+    // signal (each body's orbit corrections projected out of its own part)
+    // plus unit Gaussian noise on every used residual of three bodies as the
+    // data, and the sampler's 68% and 90% intervals of mass and sky
+    // direction must hold the truth at those rates (within 3 binomial
+    // standard deviations; with data made by the likelihood's own model, a
+    // correct sampler and prior cover exactly: common practice of
+    // simulation-based calibration).
+    use latens::frames::angular_separation;
+    use latens::posterior::sampler::{SamplerSettings, SamplerState, run};
+    use latens::posterior::{PerturberPosterior, PerturberPrior, PerturberSample, quantiles};
+    use latens::vec3::Vec3;
+    use rand::SeedableRng;
+    use rand_distr::{Distribution, StandardNormal};
+    let base = first_bodies(3);
+    let prior = PerturberPrior {
+        mass_earth: (5.0, 100.0),
+        distance_au: (70.0, 200.0),
+        max_eccentricity: 0.3,
+        min_separation_au: 3.0,
+        near_ecliptic_deg: None,
+    };
+    let n = 40;
+    let mut hits = [0usize; 4];
+    for k in 0..n {
+        let mut rng = rand::rngs::StdRng::seed_from_u64(2000 + k as u64);
+        let truth_x = PerturberPosterior::new(&base, prior).draw_prior(&mut rng);
+        let truth = PerturberSample::from_params(&truth_x);
+        let orbit = KeplerOrbit::from_state(
+            base.central_gm(),
+            truth.position_au,
+            truth.velocity_au_per_day,
+            base.epoch_tdb_days(),
+        )
+        .unwrap();
+        let mut y = vec![0.0; base.n_residuals()];
+        base.signal(&orbit, &mut y);
+        base.project(&mut y);
+        for (b, body) in base.bodies().iter().enumerate() {
+            let part = base.part(b);
+            for (i, v) in y[part.clone()].iter_mut().enumerate() {
+                *v *= truth.gm_au3_per_day2;
+                if body.used[i / 2] {
+                    *v += Distribution::<f64>::sample(&StandardNormal, &mut rng);
+                }
+            }
+        }
+        let data = base.with_residuals(&y);
+        let posterior = PerturberPosterior::new(&data, prior);
+        let settings = SamplerSettings {
+            n_walkers: 32,
+            n_temperatures: 8,
+            max_temperature: 1e3,
+            n_steps: 1200,
+            burn_in: 500,
+            thin: 5,
+            seed: 300 + k as u64,
+            ..SamplerSettings::default()
+        };
+        let start: Vec<Vec<Vec<f64>>> = settings
+            .initial_betas()
+            .iter()
+            .map(|_| (0..32).map(|_| posterior.draw_prior(&mut rng)).collect())
+            .collect();
+        let state = SamplerState::new(&posterior, &settings, 0, &start).unwrap();
+        let states = run(&posterior, &settings, vec![state], None, latens::progress::Stage::Sampling, &Quiet).unwrap();
+        let samples: Vec<Vec<f64>> = states[0].posterior_samples(settings.burn_in).into_iter().map(|s| s.0).collect();
+        let lm: Vec<f64> = samples.iter().map(|x| x[0]).collect();
+        let q = quantiles(&lm, &[0.16, 0.84, 0.05, 0.95]);
+        hits[0] += usize::from(truth_x[0] >= q[0] && truth_x[0] <= q[1]);
+        hits[1] += usize::from(truth_x[0] >= q[2] && truth_x[0] <= q[3]);
+        let dir = |x: &[f64]| Vec3::new(x[1], x[2], x[3]).unit();
+        let mean = samples.iter().fold(Vec3::ZERO, |a, x| a + dir(x)).unit();
+        let dist: Vec<f64> = samples.iter().map(|x| angular_separation(dir(x), mean)).collect();
+        let q = quantiles(&dist, &[0.68, 0.9]);
+        let t = angular_separation(dir(&truth_x), mean);
+        hits[2] += usize::from(t <= q[0]);
+        hits[3] += usize::from(t <= q[1]);
+    }
+    eprintln!(
+        "joint coverage of {n}: mass 68% {}, mass 90% {}, sky 68% {}, sky 90% {}",
+        hits[0], hits[1], hits[2], hits[3]
+    );
+    let consistent = |h: usize, p: f64| (h as f64 - n as f64 * p).abs() <= 3.0 * (n as f64 * p * (1.0 - p)).sqrt();
+    assert!(consistent(hits[0], 0.68) && consistent(hits[1], 0.9), "mass {hits:?}");
+    assert!(consistent(hits[2], 0.68) && consistent(hits[3], 0.9), "sky {hits:?}");
 }
