@@ -7,6 +7,8 @@
 //! The population is invented (scenarios/population.toml); the truth is the
 //! scenario's own, simulated on the full nonlinear model.
 
+mod common;
+
 use std::path::{Path, PathBuf};
 use std::process::Command;
 
@@ -673,10 +675,7 @@ fn joint_posterior_intervals_cover_the_truth() {
     // standard deviations; with data made by the likelihood's own model, a
     // correct sampler and prior cover exactly: common practice of
     // simulation-based calibration).
-    use latens::frames::angular_separation;
-    use latens::posterior::sampler::{SamplerSettings, SamplerState, run};
-    use latens::posterior::{PerturberPosterior, PerturberPrior, PerturberSample, quantiles};
-    use latens::vec3::Vec3;
+    use latens::posterior::{PerturberPosterior, PerturberPrior, PerturberSample};
     use rand::SeedableRng;
     use rand_distr::{Distribution, StandardNormal};
     let base = first_bodies(3);
@@ -714,41 +713,14 @@ fn joint_posterior_intervals_cover_the_truth() {
         }
         let data = base.with_residuals(&y);
         let posterior = PerturberPosterior::new(&data, prior);
-        let settings = SamplerSettings {
-            n_walkers: 32,
-            n_temperatures: 8,
-            max_temperature: 1e3,
-            n_steps: 1200,
-            burn_in: 500,
-            thin: 5,
-            seed: 300 + k as u64,
-            ..SamplerSettings::default()
-        };
-        let start: Vec<Vec<Vec<f64>>> = settings
-            .initial_betas()
-            .iter()
-            .map(|_| (0..32).map(|_| posterior.draw_prior(&mut rng)).collect())
-            .collect();
-        let state = SamplerState::new(&posterior, &settings, 0, &start).unwrap();
-        let states = run(&posterior, &settings, vec![state], None, latens::progress::Stage::Sampling, &Quiet).unwrap();
-        let samples: Vec<Vec<f64>> = states[0].posterior_samples(settings.burn_in).into_iter().map(|s| s.0).collect();
-        let lm: Vec<f64> = samples.iter().map(|x| x[0]).collect();
-        let q = quantiles(&lm, &[0.16, 0.84, 0.05, 0.95]);
-        hits[0] += usize::from(truth_x[0] >= q[0] && truth_x[0] <= q[1]);
-        hits[1] += usize::from(truth_x[0] >= q[2] && truth_x[0] <= q[3]);
-        let dir = |x: &[f64]| Vec3::new(x[1], x[2], x[3]).unit();
-        let mean = samples.iter().fold(Vec3::ZERO, |a, x| a + dir(x)).unit();
-        let dist: Vec<f64> = samples.iter().map(|x| angular_separation(dir(x), mean)).collect();
-        let q = quantiles(&dist, &[0.68, 0.9]);
-        let t = angular_separation(dir(&truth_x), mean);
-        hits[2] += usize::from(t <= q[0]);
-        hits[3] += usize::from(t <= q[1]);
+        for (h, c) in hits.iter_mut().zip(common::covers(&posterior, &truth_x, 300 + k as u64, &mut rng)) {
+            *h += usize::from(c);
+        }
     }
     eprintln!(
         "joint coverage of {n}: mass 68% {}, mass 90% {}, sky 68% {}, sky 90% {}",
         hits[0], hits[1], hits[2], hits[3]
     );
-    let consistent = |h: usize, p: f64| (h as f64 - n as f64 * p).abs() <= 3.0 * (n as f64 * p * (1.0 - p)).sqrt();
-    assert!(consistent(hits[0], 0.68) && consistent(hits[1], 0.9), "mass {hits:?}");
-    assert!(consistent(hits[2], 0.68) && consistent(hits[3], 0.9), "sky {hits:?}");
+    assert!(common::consistent(hits[0], n, 0.68) && common::consistent(hits[1], n, 0.9), "mass {hits:?}");
+    assert!(common::consistent(hits[2], n, 0.68) && common::consistent(hits[3], n, 0.9), "sky {hits:?}");
 }
