@@ -12,7 +12,7 @@ use latens::dynamics::{ForceModel, InitialState};
 use latens::ephemeris::Vsop87;
 use latens::frames::icrf_from_ecliptic;
 use latens::io::observations::SiteTable;
-use latens::perturber::LinearKernel;
+use latens::perturber::{LinearKernel, SignalKernel};
 use latens::posterior::{PerturberPosterior, PerturberPrior, PerturberSample};
 use latens::reference::{ReferenceSettings, fit_reference_orbit, observing_geometry};
 use latens::simulate::{SurveyPlan, simulate_survey};

@@ -692,20 +692,9 @@ fn joint_posterior_intervals_cover_the_truth() {
         let mut rng = rand::rngs::StdRng::seed_from_u64(2000 + k as u64);
         let truth_x = PerturberPosterior::new(&base, prior).draw_prior(&mut rng);
         let truth = PerturberSample::from_params(&truth_x);
-        let orbit = KeplerOrbit::from_state(
-            base.central_gm(),
-            truth.position_au,
-            truth.velocity_au_per_day,
-            base.epoch_tdb_days(),
-        )
-        .unwrap();
-        let mut y = vec![0.0; base.n_residuals()];
-        base.signal(&orbit, &mut y);
-        base.project(&mut y);
+        let mut y = base.projected_signal(truth.position_au, truth.velocity_au_per_day, truth.gm_au3_per_day2).unwrap();
         for (b, body) in base.bodies().iter().enumerate() {
-            let part = base.part(b);
-            for (i, v) in y[part.clone()].iter_mut().enumerate() {
-                *v *= truth.gm_au3_per_day2;
+            for (i, v) in y[base.part(b)].iter_mut().enumerate() {
                 if body.used[i / 2] {
                     *v += Distribution::<f64>::sample(&StandardNormal, &mut rng);
                 }

@@ -19,7 +19,7 @@ use latens::io::results::{
     DetectionFile, InferSettingsFile, InferSummary, NullModelFile, PerturberFile, SearchStatsFile,
 };
 use latens::io::write_atomically;
-use latens::perturber::{KeplerOrbit, LinearKernel, Scored, SearchSettings};
+use latens::perturber::{KeplerOrbit, LinearKernel, Scored, SearchSettings, SignalKernel};
 use latens::pipeline::{
     Best, Detection, DetectionSettings, EphemerisSource, PosteriorSettings, Study, TrackedArc, detect,
     linearisation_error, parse_known,

@@ -414,18 +414,6 @@ impl LinearKernel {
         let _ = self.first_t;
     }
 
-    /// The whitened signal of a perturber with GM `gm` on the two-body orbit
-    /// through `position`/`velocity` at the epoch, with the orbit correction
-    /// removed; `None` for an unbound orbit.
-    pub fn projected_signal(&self, position_au: Vec3, velocity_au_per_day: Vec3, gm: f64) -> Option<Vec<f64>> {
-        let orbit = KeplerOrbit::from_state(self.gm_sun, position_au, velocity_au_per_day, self.epoch_tdb_days)?;
-        let mut s = vec![0.0; self.n_residuals()];
-        self.signal(&orbit, &mut s);
-        s.iter_mut().for_each(|x| *x *= gm);
-        self.project(&mut s);
-        Some(s)
-    }
-
     /// Closest approach (au) at the quadrature nodes between the tracked body
     /// and a perturber on the two-body orbit through `position`/`velocity`
     /// (infinite for an unbound orbit).
@@ -554,6 +542,18 @@ pub trait SignalKernel: Sync {
     /// (s.y, s.s) of a projected signal s against the residuals y.
     fn signal_products(&self, projected: &[f64]) -> (f64, f64) {
         (dot(projected, self.residuals()), dot(projected, projected))
+    }
+    /// The whitened signal of a perturber with GM `gm` on the two-body orbit
+    /// through `position`/`velocity` at the epoch, with the orbit
+    /// corrections removed; `None` for an unbound orbit.
+    fn projected_signal(&self, position_au: Vec3, velocity_au_per_day: Vec3, gm: f64) -> Option<Vec<f64>> {
+        let orbit =
+            KeplerOrbit::from_state(self.central_gm(), position_au, velocity_au_per_day, self.epoch_tdb_days())?;
+        let mut s = vec![0.0; self.n_residuals()];
+        self.signal(&orbit, &mut s);
+        s.iter_mut().for_each(|x| *x *= gm);
+        self.project(&mut s);
+        Some(s)
     }
 }
 

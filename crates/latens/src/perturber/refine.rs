@@ -15,7 +15,7 @@ use crate::dynamics::{ForceModel, Perturber};
 use crate::ephemeris::Ephemeris;
 use crate::fit::{FitError, LeastSquaresProblem, Lm, LmReport};
 use crate::io::observations::Observation;
-use crate::perturber::LinearKernel;
+use crate::perturber::{LinearKernel, SignalKernel};
 use crate::reference::{OrbitModel, ReferenceFit, whiten, whitened_residuals};
 use crate::units::RAD_PER_ARCSEC;
 use crate::vec3::Vec3;

@@ -407,14 +407,18 @@ pub fn grid_search<K: SignalKernel + ?Sized>(
     }
 }
 
+/// The most numbers a chunk of signals (hypotheses scored, or null
+/// realisations drawn) holds at once, 256 MB: each chunk streams the whole
+/// subspace basis through one product, so for long signals (thousands of
+/// bodies) the chunk must be wide for the product to be bound by arithmetic
+/// rather than by memory: at 600 000 residuals a chunk of 53 signals
+/// instead of 13 took a 1000-body shard from 692 s to 235 s
+/// (docs/performance.md).
+const CHUNK_NUMBERS: usize = 32_000_000;
+
 /// Scores every hypothesis of `hyps` with its coordinates in the subspace
-/// `basis` ([`score_chunk`] over chunks whose signals hold up to 32 million
-/// numbers, 256 MB a thread, in parallel), reporting to `observer` and
-/// finishing its stage. Each chunk streams the whole basis through one
-/// product, so for long signals (thousands of bodies) the chunk must be wide
-/// for the product to be bound by arithmetic rather than by memory: at
-/// 600 000 residuals a chunk of 53 signals instead of 13 took a 1000-body
-/// shard from 692 s to 235 s (docs/performance.md).
+/// `basis` ([`score_chunk`] over chunks of at most [`CHUNK_NUMBERS`], in
+/// parallel), reporting to `observer` and finishing its stage.
 fn score_all<K: SignalKernel + ?Sized>(
     kernel: &K,
     basis: &Mat<f64>,
@@ -423,7 +427,7 @@ fn score_all<K: SignalKernel + ?Sized>(
     min_separation_au: f64,
     observer: &dyn Observer,
 ) -> Vec<(Option<Scored>, Vec<f32>, f64)> {
-    let chunk = (32_000_000 / kernel.n_residuals().max(1)).clamp(8, 256);
+    let chunk = (CHUNK_NUMBERS / kernel.n_residuals().max(1)).clamp(8, 256);
     let done = std::sync::atomic::AtomicUsize::new(0);
     let results = hyps
         .par_chunks(chunk)
@@ -576,9 +580,7 @@ pub fn null_maxima_share<K: SignalKernel + ?Sized>(
         observer.begin(Stage::Nulls, settings.n_null as u64);
     }
     let mut maxima = Vec::with_capacity(settings.n_null);
-    // Realisations drawn a block at a time (up to 32 million numbers), for
-    // the same reason as the chunks of hypotheses.
-    let block = (32_000_000 / n_res.max(1)).clamp(1, 64);
+    let block = (CHUNK_NUMBERS / n_res.max(1)).clamp(1, 64);
     let all: Vec<usize> = (0..settings.n_null).collect();
     for rs in all.chunks(block) {
         let draws: Vec<Vec<f64>> = rs

@@ -11,7 +11,7 @@ use crate::dynamics::{ForceModel, Perturber};
 use crate::ephemeris::Ephemeris;
 use crate::io::observations::{Observation, SiteTable};
 use crate::perturber::refine::{Recentred, Refinement};
-use crate::perturber::{LinearKernel, Scored, SearchResult, SearchSettings, grid_search};
+use crate::perturber::{LinearKernel, Scored, SearchResult, SearchSettings, SignalKernel, grid_search};
 use crate::progress::Observer;
 use crate::reference::{OrbitModel, ReferenceFit, ReferenceSettings, fit_reference_orbit, observing_geometry, whiten};
 
