@@ -18,7 +18,7 @@ use latens_charts::residual_chart::ResidualOverview;
 const OVERVIEW_ROWS: usize = 24;
 use latens::dynamics::kepler::{OUTPUT_FRAME, OutputElements};
 use latens::io::results::{
-    DetectionFile, JointBasinFile, JointBodyFile, JointSummaryFile, LeaveOneOutFile, SearchStatsFile,
+    DetectionFile, JointBasinFile, JointBodyFile, JointSummaryFile, LeaveOneOutFile, OutlierFile, SearchStatsFile,
 };
 use latens::io::write_atomically;
 use latens::perturber::{KeplerOrbit, Scored, SignalKernel};
@@ -30,9 +30,8 @@ use latens::time::{epoch_from_tdb_days, utc_iso_from_epoch};
 use latens::units::{J2000_JD, RAD_PER_DEG};
 
 /// What a joint run does not give yet.
-const NOT_COMPUTED: [&str; 3] = [
-    "the refinement and the posterior check on the full nonlinear model (the joint figures are the linear kernel's)",
-    "outlier rejection (every observation is used)",
+const NOT_COMPUTED: [&str; 2] = [
+    "the refinement of the best solution on the full nonlinear model and the recentred kernel (the search and the sampler use the linear kernel; the posterior samples are checked on the full model)",
     "prediction (latens predict takes one body's summary)",
 ];
 
@@ -42,7 +41,12 @@ pub(super) fn execute(plan: &InferPlan, arcs: Vec<TrackedArc>) -> Result<(), Cli
     let sources: Vec<String> =
         arcs.iter().map(|a| a.observations.first().map_or("", |o| o.file()).to_string()).collect();
     let study = Study::new(arcs, &plan.ephemeris, plan.search_epoch)?;
-    let settings = JointSettings { search: plan.detection.search.clone(), each_alone: true, leave_one_out: true };
+    let settings = JointSettings {
+        search: plan.detection.search.clone(),
+        each_alone: true,
+        leave_one_out: true,
+        reject_sigma: plan.detection.reject_sigma,
+    };
     let found = detect_joint(&study, &settings, &crate::cli::progress::Bars::new())?;
     let detected = found.verdict.detected();
 
@@ -114,6 +118,7 @@ pub(super) fn execute(plan: &InferPlan, arcs: Vec<TrackedArc>) -> Result<(), Cli
             tracked_mass_earth: study.bodies[k].tracked.gm_au3_per_day2 / latens::units::GM_EARTH_MASS_AU3_PER_DAY2,
             null_chi2: b.null.chi2,
             null_dof: b.null.dof,
+            n_set_aside: b.set_aside.len(),
             delta_chi2_at_best: e.delta_chi2_at_best,
             share_of_best: if total_part > 0.0 { e.delta_chi2_at_best / total_part } else { 0.0 },
             alone_delta_chi2: e.alone.map(|a| a.delta_chi2),
@@ -162,6 +167,12 @@ pub(super) fn execute(plan: &InferPlan, arcs: Vec<TrackedArc>) -> Result<(), Cli
         diagnostics: posterior.run.as_ref().map(|r| r.diagnostics.clone()),
         sky: sky.as_ref().map(|s| s.sky.clone()),
         upper_limits,
+        outliers: OutlierFile {
+            threshold_sigma: settings.reject_sigma,
+            judged_against: found.judged_against.describe().into(),
+            excluded_by_hand: study.bodies.iter().flat_map(|a| a.excluded_by_hand.iter().cloned()).collect(),
+            set_aside: found.bodies.iter().flat_map(|b| b.set_aside.iter().cloned()).collect(),
+        },
         not_computed: NOT_COMPUTED.iter().map(|s| s.to_string()).collect(),
         warnings,
     };
@@ -227,14 +238,14 @@ fn write_outputs(out: &Path, summary: &JointSummaryFile, found: &JointDetection,
     write_atomically(&out.join("summary.json"), json.as_bytes())?;
     let opt = |x: Option<f64>| x.map_or(String::new(), |v| format!("{v:.6e}"));
     let mut csv = String::from(
-        "name,file,n_observations,null_chi2,null_dof,delta_chi2_at_best,share_of_best,alone_delta_chi2,alone_false_alarm_probability,orbit_correction_km_median,orbit_correction_m_per_s_median,nongrav_log10_bayes_factor,kind,tracked_mass_earth\n",
+        "name,file,n_observations,null_chi2,null_dof,delta_chi2_at_best,share_of_best,alone_delta_chi2,alone_false_alarm_probability,orbit_correction_km_median,orbit_correction_m_per_s_median,nongrav_log10_bayes_factor,kind,tracked_mass_earth,n_set_aside\n",
     );
     for b in &summary.bodies {
         let nongrav =
             b.alternatives.iter().find(|a| a.name.starts_with("non-gravitational")).map(|a| a.log10_bayes_factor);
         let _ = writeln!(
             csv,
-            "{},{},{},{:.4},{},{:.4},{:.4},{},{},{},{},{},{},{:.6e}",
+            "{},{},{},{:.4},{},{:.4},{:.4},{},{},{},{},{},{},{:.6e},{}",
             field(&b.name),
             field(&b.file),
             b.n_observations,
@@ -248,7 +259,8 @@ fn write_outputs(out: &Path, summary: &JointSummaryFile, found: &JointDetection,
             opt(b.orbit_correction_m_per_s.map(|c| c.median)),
             opt(nongrav),
             b.kind,
-            b.tracked_mass_earth
+            b.tracked_mass_earth,
+            b.n_set_aside
         );
     }
     write_atomically(&out.join("bodies.csv"), csv.as_bytes())?;

@@ -676,7 +676,8 @@ impl PyDetection {
 ///
 /// A study of several bodies is searched jointly for one shared perturber
 /// and gives a JointDetection (each body also searched alone, and the
-/// search repeated without the strongest body; every observation is used).
+/// search repeated without the strongest body; outliers judged against
+/// the best joint solution, as `reject_sigma` says).
 #[pyfunction]
 #[pyo3(signature = (study, mass_earth=(0.01, 5000.0), distance_au=(5.0, 500.0), nulls=1000, directions=768, distances=20, seed=1, reject_sigma=Some(10.0), near_ecliptic=None, progress=None))]
 #[allow(clippy::too_many_arguments)]
@@ -699,7 +700,12 @@ fn detect(
     settings.search.check_band().map_err(|e| bad_setting(py, format!("near_ecliptic: {e}")))?;
     let observer = PyObserver::new(progress);
     if study.inner.bodies.len() > 1 {
-        let joint = JointSettings { search: settings.search, each_alone: true, leave_one_out: true };
+        let joint = JointSettings {
+            search: settings.search,
+            each_alone: true,
+            leave_one_out: true,
+            reject_sigma: settings.reject_sigma,
+        };
         let result = py.detach(|| latens::pipeline::detect_joint(&study.inner, &joint, &observer));
         let inner = observer.outcome(py, result)?;
         return Ok(Py::new(py, PyJointDetection { inner })?.into_any());
@@ -796,7 +802,8 @@ impl PyJointDetection {
         self.inner.search.n_hypotheses
     }
     /// Per body, in the study's order: `name`, `n_observations`,
-    /// `null_chi2`, `null_dof`, `delta_chi2_at_best` (its part of the best
+    /// `null_chi2`, `null_dof`, `set_aside` (its outliers, as file:line),
+    /// `delta_chi2_at_best` (its part of the best
     /// joint drop), `alone_delta_chi2` and `alone_false_alarm_probability`
     /// (its own search), `orbit` (its reference fit, as fit.json).
     #[getter]
@@ -808,6 +815,7 @@ impl PyJointDetection {
             d.set_item("n_observations", b.observations.len())?;
             d.set_item("null_chi2", b.null.chi2)?;
             d.set_item("null_dof", b.null.dof)?;
+            d.set_item("set_aside", b.set_aside.clone())?;
             d.set_item("delta_chi2_at_best", e.delta_chi2_at_best)?;
             d.set_item("alone_delta_chi2", e.alone.map(|a| a.delta_chi2))?;
             d.set_item("alone_false_alarm_probability", e.alone.map(|a| a.false_alarm_probability))?;

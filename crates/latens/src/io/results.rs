@@ -601,6 +601,9 @@ pub struct JointSummaryFile {
     pub sky: Option<SkyFile>,
     /// 95% mass limits by distance (a non-detection with a posterior only).
     pub upper_limits: Vec<UpperLimitFile>,
+    /// Observations left out by hand and set aside as outliers, all bodies
+    /// (each named by file and line).
+    pub outliers: OutlierFile,
     /// What a joint run does not give (yet), so nobody looks for it.
     pub not_computed: Vec<String>,
     pub warnings: Vec<String>,
@@ -618,6 +621,8 @@ pub struct JointBodyFile {
     pub tracked_mass_earth: f64,
     pub null_chi2: f64,
     pub null_dof: usize,
+    /// Observations set aside as outliers (they are not in `n_observations`).
+    pub n_set_aside: usize,
     /// Its part of the best joint solution's chi-square drop (at the joint mass).
     pub delta_chi2_at_best: f64,
     /// That part over the joint drop.

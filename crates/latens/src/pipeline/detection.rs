@@ -49,6 +49,10 @@ pub enum OutlierJudge {
     NullModel,
     /// The full model with the refined perturber.
     RefinedPerturber,
+    /// A joint study's best grid solution through the linear kernel (each
+    /// body's orbit refitted to first order, the perturber's signal taken
+    /// off).
+    JointPerturber,
 }
 
 impl OutlierJudge {
@@ -56,6 +60,7 @@ impl OutlierJudge {
         match self {
             OutlierJudge::NullModel => "the null model (no perturber)",
             OutlierJudge::RefinedPerturber => "the full model with the refined perturber",
+            OutlierJudge::JointPerturber => "the best joint solution (the grid's perturber, each orbit refitted)",
         }
     }
 }

@@ -15,18 +15,24 @@
 //! and false-alarm probability), and the search run again without the body
 //! that carries most: does the detection survive without it?
 //!
+//! Outliers are judged against the best model, as in the one-body stage:
+//! the best joint solution when one is detected, else the null model; those
+//! beyond the threshold are set aside and every body is fitted and searched
+//! again without them.
+//!
 //! The joint stage works in the linear kernel throughout; the full-model
 //! refinement and the recentred kernel of the one-body stage are not run
 //! (joint detection matters most where each body's signal is weak, which is
-//! where the linear kernel holds best).
+//! where the linear kernel holds best; the posterior's samples are checked
+//! on the full model).
 
 use rayon::prelude::*;
 
-use super::detection::Verdict;
+use super::detection::{OutlierJudge, Verdict};
 use super::{PipelineError, Study};
 use crate::astrometry::ObservingGeometry;
 use crate::io::observations::Observation;
-use crate::perturber::{JointKernel, LinearKernel, SearchResult, SearchSettings, SignalKernel, grid_search};
+use crate::perturber::{JointKernel, LinearKernel, Scored, SearchResult, SearchSettings, SignalKernel, grid_search};
 use crate::progress::{Observer, Quiet};
 use crate::reference::{ReferenceFit, ReferenceSettings, fit_reference_orbit, observing_geometry};
 
@@ -41,12 +47,20 @@ pub struct JointSettings {
     pub each_alone: bool,
     /// Search again without the body that carries most of the signal.
     pub leave_one_out: bool,
+    /// Observations beyond this many sigma (both coordinates together)
+    /// against the best model are set aside and the search runs again;
+    /// `None` sets nothing aside.
+    pub reject_sigma: Option<f64>,
 }
 
 /// One body's part of a joint study after its reference fit.
 pub struct BodyFit {
     pub name: String,
+    /// The observations fitted (those set aside excluded).
     pub observations: Vec<Observation>,
+    /// The sources (file and line) of the observations set aside as
+    /// outliers.
+    pub set_aside: Vec<String>,
     pub null: ReferenceFit,
     pub geometry: Vec<ObservingGeometry>,
 }
@@ -94,6 +108,9 @@ pub struct JointDetection {
     pub evidence: Vec<BodyEvidence>,
     pub leave_one_out: Option<LeaveOneOut>,
     pub verdict: Verdict,
+    /// What outliers were judged against (each body's are in its
+    /// [`BodyFit::set_aside`]).
+    pub judged_against: OutlierJudge,
 }
 
 impl JointDetection {
@@ -153,9 +170,22 @@ impl JointDetection {
         text
     }
 
-    /// The warnings of the bodies' reference fits, each named.
+    /// The warnings of the bodies' reference fits and the observations
+    /// set aside, each named by body.
     pub fn warnings(&self) -> Vec<String> {
-        self.bodies.iter().flat_map(|b| b.null.warnings.iter().map(move |w| format!("{}: {w}", b.name))).collect()
+        let mut out: Vec<String> =
+            self.bodies.iter().flat_map(|b| b.null.warnings.iter().map(move |w| format!("{}: {w}", b.name))).collect();
+        for b in self.bodies.iter().filter(|b| !b.set_aside.is_empty()) {
+            out.push(format!(
+                "{}: {} observation(s) set aside beyond {} sigma against {}: {}",
+                b.name,
+                b.set_aside.len(),
+                self.settings.reject_sigma.unwrap_or(f64::NAN),
+                self.judged_against.describe(),
+                b.set_aside.join(", ")
+            ));
+        }
+        out
     }
 }
 
@@ -175,6 +205,19 @@ pub fn fit_bodies(study: &Study, observer: &dyn Observer) -> Result<(f64, Vec<Bo
         return Err(PipelineError::Input("the study has no tracked body".into()));
     }
     let epoch = joint_epoch(study);
+    let all = study.bodies.iter().map(|b| b.observations.clone()).collect();
+    let (bodies, kernel) = fit_observations(study, epoch, all, observer)?;
+    Ok((epoch, bodies, kernel))
+}
+
+/// The bodies' null fits and kernels at `epoch` on the given observations
+/// (one list per body of the study, in its order).
+fn fit_observations(
+    study: &Study,
+    epoch: f64,
+    observations: Vec<Vec<Observation>>,
+    observer: &dyn Observer,
+) -> Result<(Vec<BodyFit>, JointKernel), PipelineError> {
     let settings = ReferenceSettings {
         epoch_tdb_days: Some(epoch),
         reject_chi2: f64::INFINITY,
@@ -186,18 +229,20 @@ pub fn fit_bodies(study: &Study, observer: &dyn Observer) -> Result<(f64, Vec<Bo
     let fitted: Vec<Result<(BodyFit, LinearKernel), PipelineError>> = study
         .bodies
         .par_iter()
-        .map(|arc| {
+        .zip(observations)
+        .map(|(arc, observations)| {
             let failed = |stage: &'static str| {
                 let name = arc.name.clone();
                 move |e: Box<dyn std::error::Error + Send + Sync>| PipelineError::failure(stage, format!("{name}: {e}"))
             };
-            let null = fit_reference_orbit(&arc.observations, &arc.sites, &arc.model, ephemeris, &settings, None)
+            let null = fit_reference_orbit(&observations, &arc.sites, &arc.model, ephemeris, &settings, None)
                 .map_err(|e| failed("reference fit")(e.into()))?;
-            let geometry = observing_geometry(&arc.observations, &arc.sites, ephemeris)
+            let geometry = observing_geometry(&observations, &arc.sites, ephemeris)
                 .map_err(|e| failed("observing geometry")(e.into()))?;
-            let kernel = LinearKernel::build(&null, &arc.observations, geometry.clone(), &arc.model, ephemeris)
+            let kernel = LinearKernel::build(&null, &observations, geometry.clone(), &arc.model, ephemeris)
                 .map_err(|e| failed("linear kernel")(e.into()))?;
-            Ok((BodyFit { name: arc.name.clone(), observations: arc.observations.clone(), null, geometry }, kernel))
+            let name = arc.name.clone();
+            Ok((BodyFit { name, observations, set_aside: Vec::new(), null, geometry }, kernel))
         })
         .collect();
     let mut bodies = Vec::with_capacity(fitted.len());
@@ -208,7 +253,39 @@ pub fn fit_bodies(study: &Study, observer: &dyn Observer) -> Result<(f64, Vec<Bo
         kernels.push(k);
     }
     let kernel = JointKernel::new(kernels).map_err(|e| PipelineError::failure("joint kernel", e))?;
-    Ok((epoch, bodies, kernel))
+    Ok((bodies, kernel))
+}
+
+/// Each body's observations' chi-square (both coordinates) against the best
+/// model: with `best`, its projected signal taken off each body's whitened
+/// residuals (the residuals of each orbit refitted, to first order, with
+/// the perturber), else the null residuals.
+fn chi2_per_observation(kernel: &JointKernel, best: Option<&Scored>) -> Vec<Vec<f64>> {
+    let signal = best.and_then(|b| {
+        kernel.projected_signal(b.hypothesis.position_au, b.hypothesis.velocity_au_per_day, b.gm_au3_per_day2)
+    });
+    kernel
+        .bodies()
+        .iter()
+        .enumerate()
+        .map(|(b, k)| {
+            let s = signal.as_ref().map(|s| &s[kernel.part(b)]);
+            let r = |i: usize| k.residuals[i] - s.map_or(0.0, |s| s[i]);
+            (0..k.used.len()).map(|j| if k.used[j] { r(2 * j).powi(2) + r(2 * j + 1).powi(2) } else { 0.0 }).collect()
+        })
+        .collect()
+}
+
+/// The verdict of a joint search.
+fn verdict_of(search: &SearchResult, settings: &SearchSettings) -> Verdict {
+    let fap = search.false_alarm_probability();
+    if fap < settings.fap_level && search.grid_best_delta_chi2 > 0.0 {
+        Verdict::Detected
+    } else if fap < 0.05 {
+        Verdict::Marginal
+    } else {
+        Verdict::NotDetected
+    }
 }
 
 /// Runs joint detection on a study of one or more bodies.
@@ -218,22 +295,69 @@ pub fn detect_joint(
     observer: &dyn Observer,
 ) -> Result<JointDetection, PipelineError> {
     check_bodies(study)?;
-    let (epoch, bodies, kernel) = fit_bodies(study, observer)?;
-    observer.note(&format!(
-        "Searching {} bodies together ({} residuals)...",
-        bodies.len(),
-        SignalKernel::n_residuals(&kernel)
-    ));
-    let search = grid_search(&kernel, &settings.search, observer);
-    let fap = search.false_alarm_probability();
-    let detected = fap < settings.search.fap_level && search.grid_best_delta_chi2 > 0.0;
-    let verdict = if detected {
-        Verdict::Detected
-    } else if fap < 0.05 {
-        Verdict::Marginal
-    } else {
-        Verdict::NotDetected
+    if let Some(limit) = settings.reject_sigma
+        && !(limit.is_finite() && limit > 0.0)
+    {
+        return Err(PipelineError::Input(format!(
+            "the outlier threshold must be a positive number of sigma, not {limit}"
+        )));
+    }
+    let (epoch, mut bodies, mut kernel) = fit_bodies(study, observer)?;
+    let searching = |bodies: &[BodyFit], kernel: &JointKernel| {
+        let n = SignalKernel::n_residuals(kernel);
+        observer.note(&format!("Searching {} bodies together ({n} residuals)...", bodies.len()));
+        grid_search(kernel, &settings.search, observer)
     };
+    let mut search = searching(&bodies, &kernel);
+    let mut verdict = verdict_of(&search, &settings.search);
+
+    // Outliers are judged against the best model (the best joint solution
+    // when one is detected: in each body the largest residuals may be the
+    // signal), as in the one-body detection; those set aside, the bodies
+    // are fitted and searched again without them.
+    let mut judged_against = OutlierJudge::NullModel;
+    if let Some(limit) = settings.reject_sigma {
+        let best = search.best().filter(|_| verdict.detected());
+        if best.is_some() {
+            judged_against = OutlierJudge::JointPerturber;
+        }
+        let keep: Vec<Vec<bool>> = chi2_per_observation(&kernel, best)
+            .iter()
+            .map(|c| c.iter().map(|&c| c <= limit * limit).collect())
+            .collect();
+        if keep.iter().flatten().any(|k| !k) {
+            for (b, k) in bodies.iter().zip(&keep) {
+                let kept = k.iter().filter(|&&k| k).count();
+                if kept < 4 {
+                    let file = b.observations.first().map_or("", |x| x.file());
+                    return Err(PipelineError::Input(format!(
+                        "body `{}` ({file}) keeps {kept} of {} observations within {limit} sigma of {}: too few to fit; check its observations or raise the outlier threshold",
+                        b.name,
+                        k.len(),
+                        judged_against.describe()
+                    )));
+                }
+            }
+            let n_out = keep.iter().flatten().filter(|k| !**k).count();
+            observer.note(&format!(
+                "Setting aside {n_out} observation(s) beyond {limit} sigma against {}; fitting and searching again...",
+                judged_against.describe()
+            ));
+            let split = |b: &BodyFit, k: &[bool], want: bool| -> Vec<Observation> {
+                b.observations.iter().zip(k).filter(|(_, k)| **k == want).map(|(o, _)| o.clone()).collect()
+            };
+            let set_aside: Vec<Vec<String>> = bodies
+                .iter()
+                .zip(&keep)
+                .map(|(b, k)| split(b, k, false).iter().map(|o| o.source.clone()).collect())
+                .collect();
+            let rest = bodies.iter().zip(&keep).map(|(b, k)| split(b, k, true)).collect();
+            (bodies, kernel) = fit_observations(study, epoch, rest, observer)?;
+            bodies.iter_mut().zip(set_aside).for_each(|(b, s)| b.set_aside = s);
+            search = searching(&bodies, &kernel);
+            verdict = verdict_of(&search, &settings.search);
+        }
+    }
 
     // Each body's part of the best solution's drop.
     let gm_max = settings.search.mass_earth.1 * crate::units::GM_EARTH_MASS_AU3_PER_DAY2;
@@ -301,6 +425,7 @@ pub fn detect_joint(
         evidence,
         leave_one_out,
         verdict,
+        judged_against,
     })
 }
 

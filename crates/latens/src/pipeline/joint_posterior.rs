@@ -3,10 +3,13 @@
 //! The sampler, its convergence diagnostics and the thermodynamic evidence
 //! are those of the one-body stage, run on the joint kernel (one mass and
 //! one orbit for all bodies; each body's own 6 orbit corrections projected
-//! out of its part). The samples are the linear kernel's: the full-model
-//! check of the one-body stage is not run (it would need every body's
-//! nonlinear model; joint studies matter most where each body's signal is
-//! weak, which is where the linear kernel holds best).
+//! out of its part). The samples are then checked on the full nonlinear
+//! model as in the one-body stage, every body integrated with the sampled
+//! perturber and the bodies' log-likelihoods added: confirmed, reweighted,
+//! or (when the weights collapse) replaced by MCMC steps on the full model.
+//! The joint kernel is not recentred on a refined solution (no joint
+//! refinement on the full model yet); the check is what guards the
+//! strong-signal regime.
 //!
 //! The alternatives are weighed on the same residuals, each as the bodies
 //! would need it:
@@ -27,14 +30,14 @@
 
 use super::joint::JointDetection;
 use super::posterior::{
-    Explanation, PosteriorRun, PosteriorSettings, SampleSource, SearchGeometry, capped, derive_all, diagnose,
-    evidence_of, explain, fingerprint, impostor_file, interval, sample, summarise,
+    Explanation, PosteriorRun, PosteriorSettings, SearchGeometry, check_full_model, derive_all, diagnose, evidence_of,
+    explain, fingerprint, impostor_file, interval, sample, summarise,
 };
 use super::{PipelineError, Study};
 use crate::io::results::{EstimateFile, ImpostorFile, IntervalFile};
 use crate::perturber::{KeplerOrbit, SignalKernel};
 use crate::posterior::impostors::{self, Comparison, LinearModel};
-use crate::posterior::{PerturberPosterior, PerturberPrior, PerturberSample};
+use crate::posterior::{BodyModel, NonlinearLikelihood, PerturberPosterior, PerturberPrior, PerturberSample};
 use crate::progress::Observer;
 use crate::units::{AU_KM, AU_M, DAY_S};
 
@@ -101,18 +104,34 @@ pub fn posterior_joint(
     let posterior = PerturberPosterior::new(kernel, prior);
     let fp = fingerprint(kernel.residuals(), &prior, &settings.sampler());
     let sampled = sample(&posterior, basins, settings, &fp, observer)?;
-    let (diagnostics, mut sampling_warnings) = diagnose(&sampled, settings);
+    let (mut diagnostics, mut sampling_warnings) = diagnose(&sampled, settings);
     warnings.append(&mut sampling_warnings);
     // The joint kernel is not recentred: its likelihood is relative to the
     // bodies' null residuals, as the evidence needs.
     let evidence = evidence_of(&sampled, settings.runs, 0.0);
-    let burn_in = sampled.sampler.burn_in;
-    let linear: Vec<(Vec<f64>, f64)> = sampled.states.iter().flat_map(|s| s.posterior_samples(burn_in)).collect();
-    let chosen = capped(&linear);
+    // The check on the full model: every body integrated with the sampled
+    // perturber, the bodies' log-likelihoods added.
+    let parts = detection
+        .bodies
+        .iter()
+        .zip(kernel.bodies())
+        .zip(&study.bodies)
+        .map(|((fit, k), arc)| BodyModel {
+            null: &fit.null,
+            kernel: k,
+            observations: &fit.observations,
+            geometry: &fit.geometry,
+            model: &arc.model,
+        })
+        .collect();
+    let nonlinear = NonlinearLikelihood::joint(parts, study.ephemeris.as_ref())
+        .map_err(PipelineError::failed("nonlinear check"))?;
+    let (source, chosen) =
+        check_full_model(&posterior, &nonlinear, &sampled, settings, &mut diagnostics, &mut warnings, observer)?;
     let search = SearchGeometry::new(study.wide.as_ref(), study.search_epoch_tdb_days)?;
     let (t0, gm_sun) = (kernel.epoch_tdb_days(), kernel.central_gm());
     let derived = derive_all(&search, &chosen, t0, gm_sun);
-    let summary = summarise(&derived, &prior, SampleSource::Linear);
+    let summary = summarise(&derived, &prior, source);
     let corrections = corrections(detection, &chosen);
     if let Some(path) = &settings.checkpoint {
         let _ = std::fs::remove_file(path);
@@ -127,7 +146,7 @@ pub fn posterior_joint(
             summary,
             evidence,
             diagnostics,
-            source: SampleSource::Linear,
+            source,
             samples: derived,
             states: sampled.states,
             sampler: sampled.sampler,

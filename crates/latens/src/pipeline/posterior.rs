@@ -398,35 +398,11 @@ pub fn posterior(
     let evidence = evidence_of(&sampled, settings.runs, delta_chi2_offset);
 
     // The nonlinear check.
-    let burn_in = sampled.sampler.burn_in;
-    let linear: Vec<(Vec<f64>, f64)> = sampled.states.iter().flat_map(|s| s.posterior_samples(burn_in)).collect();
-    let stride = (linear.len() / CHECKED).max(1);
-    let checked: Vec<(Vec<f64>, f64)> = linear.iter().step_by(stride).take(CHECKED).cloned().collect();
-    observer.note(&format!("Checking {} posterior samples against the full nonlinear model...", checked.len()));
     let nonlinear =
         NonlinearLikelihood::new(&detection.null, kernel, observations, &detection.geometry, model, ephemeris)
             .map_err(PipelineError::failed("nonlinear check"))?;
-    let log_w = importance_log_weights(&checked, &nonlinear);
-    let ess = effective_sample_size(&log_w);
-    let share = ess / checked.len().max(1) as f64;
-    diagnostics.reweighting_effective_samples = ess;
-    diagnostics.reweighting_checked = checked.len();
-    let (source, chosen): (SampleSource, Vec<(Vec<f64>, f64)>) = if share >= 0.9 {
-        (SampleSource::Linear, capped(&linear))
-    } else if share >= 0.1 {
-        warnings.push(format!(
-            "the nonlinear model reweights the linear posterior (effective share {:.0}%): the samples are resampled by weight",
-            100.0 * share
-        ));
-        let idx = resample(&log_w, checked.len(), settings.seed ^ 0x7e5a);
-        (SampleSource::Reweighted, idx.iter().map(|&i| checked[i].clone()).collect())
-    } else {
-        warnings.push(format!(
-            "the linear posterior collapses under the nonlinear model (effective share {:.1}%): running MCMC steps on the full model around the modes",
-            100.0 * share
-        ));
-        (SampleSource::Nonlinear, nonlinear_steps(&posterior, &nonlinear, &checked, &log_w, settings.seed, observer)?)
-    };
+    let (source, chosen) =
+        check_full_model(&posterior, &nonlinear, &sampled, settings, &mut diagnostics, &mut warnings, observer)?;
 
     let search = SearchGeometry::new(study.wide.as_ref(), study.search_epoch_tdb_days)?;
     let derived = derive_all(&search, &chosen, kernel.epoch_tdb_days, kernel.central_gm());
@@ -717,11 +693,57 @@ pub(super) fn summarise(derived: &[DerivedSample], prior: &PerturberPrior, sourc
     }
 }
 
+/// Parameter vectors with their kernel log-likelihoods.
+type ScoredSamples = Vec<(Vec<f64>, f64)>;
+
+/// Checks the linear posterior's samples against the full nonlinear model
+/// (importance weights on up to [`CHECKED`] of them) and chooses what to
+/// report: the linear samples when the full model confirms them (effective
+/// share of the weights at least 90%), the checked samples resampled by
+/// weight when it reweights them (10-90%), MCMC steps on the full model
+/// when the weights collapse. The one-body and the joint stage share it.
+pub(super) fn check_full_model<K: SignalKernel + ?Sized>(
+    posterior: &PerturberPosterior<K>,
+    nonlinear: &NonlinearLikelihood,
+    sampled: &Sampled,
+    settings: &PosteriorSettings,
+    diagnostics: &mut DiagnosticsFile,
+    warnings: &mut Vec<String>,
+    observer: &dyn Observer,
+) -> Result<(SampleSource, ScoredSamples), PipelineError> {
+    let burn_in = sampled.sampler.burn_in;
+    let linear: Vec<(Vec<f64>, f64)> = sampled.states.iter().flat_map(|s| s.posterior_samples(burn_in)).collect();
+    let stride = (linear.len() / CHECKED).max(1);
+    let checked: Vec<(Vec<f64>, f64)> = linear.iter().step_by(stride).take(CHECKED).cloned().collect();
+    observer.note(&format!("Checking {} posterior samples against the full nonlinear model...", checked.len()));
+    let log_w = importance_log_weights(&checked, nonlinear);
+    let ess = effective_sample_size(&log_w);
+    let share = ess / checked.len().max(1) as f64;
+    diagnostics.reweighting_effective_samples = ess;
+    diagnostics.reweighting_checked = checked.len();
+    Ok(if share >= 0.9 {
+        (SampleSource::Linear, capped(&linear))
+    } else if share >= 0.1 {
+        warnings.push(format!(
+            "the nonlinear model reweights the linear posterior (effective share {:.0}%): the samples are resampled by weight",
+            100.0 * share
+        ));
+        let idx = resample(&log_w, checked.len(), settings.seed ^ 0x7e5a);
+        (SampleSource::Reweighted, idx.iter().map(|&i| checked[i].clone()).collect())
+    } else {
+        warnings.push(format!(
+            "the linear posterior collapses under the nonlinear model (effective share {:.1}%): running MCMC steps on the full model around the modes",
+            100.0 * share
+        ));
+        (SampleSource::Nonlinear, nonlinear_steps(posterior, nonlinear, &checked, &log_w, settings.seed, observer)?)
+    })
+}
+
 /// MCMC on the full nonlinear model, started from the samples the
 /// importance weights favour most (distinct ones, for a non-degenerate
 /// ensemble).
-fn nonlinear_steps(
-    linear: &PerturberPosterior,
+fn nonlinear_steps<K: SignalKernel + ?Sized>(
+    linear: &PerturberPosterior<K>,
     nonlinear: &NonlinearLikelihood,
     checked: &[(Vec<f64>, f64)],
     log_w: &[f64],

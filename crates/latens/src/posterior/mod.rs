@@ -25,15 +25,26 @@ use crate::astrometry::ObservingGeometry;
 use crate::dynamics::{ForceModel, Perturber, PropagationError, PropagationSettings};
 use crate::ephemeris::Ephemeris;
 use crate::io::observations::Observation;
-use crate::perturber::LinearKernel;
+use crate::perturber::{LinearKernel, SignalKernel};
 use crate::reference::{OrbitModel, ReferenceFit, residual_arcsec_between, whiten};
 
-/// The full nonlinear likelihood of a perturber sample: the tracked body
+/// The full nonlinear likelihood of a perturber sample: each tracked body
 /// and the perturber integrated together under the Sun and the known
 /// planets, the difference from the null model's predictions whitened and
 /// projected like the kernel's signal (so the orbit correction is
-/// marginalised the same way).
+/// marginalised the same way). For several bodies sharing one perturber
+/// ([`NonlinearLikelihood::joint`]) the bodies' log-likelihoods add, as
+/// their independent residuals do.
 pub struct NonlinearLikelihood<'a> {
+    bodies: Vec<BodyLikelihood<'a>>,
+    /// Sum over bodies of (|y_null|^2 - |y'|^2) / 2, with y' the kernel's
+    /// residuals: zero for a null kernel, the constant that puts a
+    /// recentred kernel's likelihood on the same footing otherwise.
+    offset: f64,
+}
+
+/// One body's part of the nonlinear likelihood.
+struct BodyLikelihood<'a> {
     kernel: &'a LinearKernel,
     observations: &'a [Observation],
     state: [f64; 6],
@@ -42,21 +53,23 @@ pub struct NonlinearLikelihood<'a> {
     models: Vec<Mutex<OrbitModel<'a>>>,
     /// The null model's whitened, projected residuals.
     null_residuals: Vec<f64>,
-    /// (|y_null|^2 - |y'|^2) / 2, with y' the kernel's residuals: zero for
-    /// the null kernel, the constant that puts a recentred kernel's
-    /// likelihood on the same footing otherwise.
-    offset: f64,
 }
 
-impl<'a> NonlinearLikelihood<'a> {
-    pub fn new(
-        null: &ReferenceFit,
-        kernel: &'a LinearKernel,
-        observations: &'a [Observation],
-        geometry: &[ObservingGeometry],
-        model: &'a ForceModel,
-        ephemeris: &'a dyn Ephemeris,
-    ) -> Result<Self, PropagationError> {
+/// What one body's nonlinear model is built from: its null fit, its kernel
+/// (null or recentred), its observations, their geometry and its force
+/// model.
+pub struct BodyModel<'a, 'g> {
+    pub null: &'g ReferenceFit,
+    pub kernel: &'a LinearKernel,
+    pub observations: &'a [Observation],
+    pub geometry: &'g [ObservingGeometry],
+    pub model: &'a ForceModel,
+}
+
+impl<'a> BodyLikelihood<'a> {
+    /// The body's part and its share of the offset.
+    fn new(body: BodyModel<'a, '_>, ephemeris: &'a dyn Ephemeris) -> Result<(Self, f64), PropagationError> {
+        let BodyModel { null, kernel, observations, geometry, model } = body;
         let settings = PropagationSettings { partials: false, reuse_steps: false, ..PropagationSettings::fast() };
         let make = || {
             OrbitModel::with_settings(observations, geometry.to_vec(), null.epoch_tdb_days, model, ephemeris, settings)
@@ -73,29 +86,16 @@ impl<'a> NonlinearLikelihood<'a> {
         kernel.project(&mut null_residuals);
         let y0: f64 = null_residuals.iter().map(|x| x * x).sum();
         let y1: f64 = kernel.residuals.iter().map(|x| x * x).sum();
-        Ok(NonlinearLikelihood {
-            kernel,
-            observations,
-            state: null.state,
-            base,
-            emission,
-            models,
-            null_residuals,
-            offset: 0.5 * (y0 - y1),
-        })
+        let part = BodyLikelihood { kernel, observations, state: null.state, base, emission, models, null_residuals };
+        Ok((part, 0.5 * (y0 - y1)))
     }
 
-    /// ln L (the chi-square drop over 2) of a sample; `None` when the
-    /// propagation fails (a close encounter, say).
-    pub fn log_likelihood(&self, s: &PerturberSample) -> Option<f64> {
+    /// s.y - s.s/2 of the sample's projected nonlinear signal.
+    fn log_likelihood(&self, perturber: Perturber) -> Option<f64> {
         let slot = rayon::current_thread_index().unwrap_or(0) % self.models.len();
         let mut m = self.models[slot].lock().ok()?;
         m.set_emission_epochs(&self.emission);
-        m.perturbers = vec![Perturber {
-            gm_au3_per_day2: s.gm_au3_per_day2,
-            position_au: s.position_au,
-            velocity_au_per_day: s.velocity_au_per_day,
-        }];
+        m.perturbers = vec![perturber];
         let p = m.predict(&self.state, false).ok()?;
         drop(m);
         let n = self.observations.len();
@@ -112,18 +112,61 @@ impl<'a> NonlinearLikelihood<'a> {
         self.kernel.project(&mut signal);
         let ss: f64 = signal.iter().map(|x| x * x).sum();
         let sy: f64 = signal.iter().zip(&self.null_residuals).map(|(a, b)| a * b).sum();
-        Some(sy - 0.5 * ss - self.offset)
+        Some(sy - 0.5 * ss)
+    }
+}
+
+impl<'a> NonlinearLikelihood<'a> {
+    /// One tracked body's nonlinear likelihood.
+    pub fn new(
+        null: &ReferenceFit,
+        kernel: &'a LinearKernel,
+        observations: &'a [Observation],
+        geometry: &[ObservingGeometry],
+        model: &'a ForceModel,
+        ephemeris: &'a dyn Ephemeris,
+    ) -> Result<Self, PropagationError> {
+        Self::joint(vec![BodyModel { null, kernel, observations, geometry, model }], ephemeris)
+    }
+
+    /// Several bodies sharing one perturber: the sum of their
+    /// log-likelihoods (each body integrated with the perturber on its
+    /// own; the bodies do not pull on each other, as in the kernel).
+    pub fn joint(bodies: Vec<BodyModel<'a, '_>>, ephemeris: &'a dyn Ephemeris) -> Result<Self, PropagationError> {
+        let mut parts = Vec::with_capacity(bodies.len());
+        let mut offset = 0.0;
+        for body in bodies {
+            let (part, share) = BodyLikelihood::new(body, ephemeris)?;
+            parts.push(part);
+            offset += share;
+        }
+        Ok(NonlinearLikelihood { bodies: parts, offset })
+    }
+
+    /// ln L (the chi-square drop over 2) of a sample; `None` when a
+    /// propagation fails (a close encounter, say).
+    pub fn log_likelihood(&self, s: &PerturberSample) -> Option<f64> {
+        let perturber = Perturber {
+            gm_au3_per_day2: s.gm_au3_per_day2,
+            position_au: s.position_au,
+            velocity_au_per_day: s.velocity_au_per_day,
+        };
+        let mut total = -self.offset;
+        for body in &self.bodies {
+            total += body.log_likelihood(perturber)?;
+        }
+        Some(total)
     }
 }
 
 /// The nonlinear posterior: the linear model's prior with the nonlinear
 /// likelihood, for MCMC steps where the importance weights collapse.
-pub struct NonlinearPosterior<'p, 'a> {
-    pub linear: &'p PerturberPosterior<'p>,
+pub struct NonlinearPosterior<'p, 'a, K: SignalKernel + ?Sized = LinearKernel> {
+    pub linear: &'p PerturberPosterior<'p, K>,
     pub likelihood: &'p NonlinearLikelihood<'a>,
 }
 
-impl Target for NonlinearPosterior<'_, '_> {
+impl<K: SignalKernel + ?Sized> Target for NonlinearPosterior<'_, '_, K> {
     fn dim(&self) -> usize {
         model::DIM
     }
