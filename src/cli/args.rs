@@ -294,7 +294,9 @@ pub struct InputArgs {
     /// The tracked body's own mass: a planet's name (its GM is used, e.g.
     /// `uranus`) or a number of Earth masses; 0 (the default) for a small
     /// body. With several bodies, `BODY=MASS` gives one body its own
-    /// (repeat it; a plain value applies to the others).
+    /// (repeat it; a plain value applies to the others); a planet named so
+    /// is left out of its own model's --known planets, the others still
+    /// feel it.
     #[arg(long, value_name = "[BODY=]NAME|EARTH_MASSES")]
     pub tracked_mass: Vec<String>,
     /// What the tracked body is: planet, dwarf-planet, small-body or comet

@@ -223,16 +223,13 @@ impl TrackedArc {
     }
 
     /// Gives this body its own GM and kind (a study of bodies of several
-    /// kinds): the force model takes the GM; a planet named by its GM
-    /// cannot also be a known body of the model.
+    /// kinds): the force model takes the GM. A planet named by its GM is
+    /// left out of its own model's known bodies (it cannot pull on itself),
+    /// while the other bodies of the study keep feeling it: in a joint
+    /// study of several planets, `--known` lists them all.
     pub fn set_tracked(&mut self, tracked: TrackedBody) -> Result<(), PipelineError> {
-        if let Some(b) = tracked.named
-            && self.model.known.iter().any(|k| k.body == b)
-        {
-            return Err(PipelineError::Input(format!(
-                "{}: --tracked-mass {b}: {b} is also in --known; the tracked body cannot pull on itself (leave it out of --known)",
-                self.name
-            )));
+        if let Some(b) = tracked.named {
+            self.model.known.retain(|k| k.body != b);
         }
         self.model = self.model.clone().with_tracked_gm(tracked.gm_au3_per_day2);
         self.tracked = tracked;
