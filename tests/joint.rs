@@ -131,6 +131,13 @@ fn joint_false_alarm_probabilities_are_uniform_on_noise_only_populations() {
     assert!(d < 0.258, "joint false-alarm probabilities are not uniform on nulls: KS {d}");
 }
 
+/// `latens infer` on the bodies and sites `latens simulate` wrote in `sim`.
+fn infer_simulated(sim: &Path) -> Command {
+    let mut c = latens();
+    c.args(["infer", "--obs"]).arg(sim.join("bodies")).arg("--sites").arg(sim.join("sites.csv"));
+    c
+}
+
 fn latens() -> Command {
     Command::new(env!("CARGO_BIN_EXE_latens"))
 }
@@ -167,11 +174,10 @@ fn the_joint_full_model_is_the_sum_of_the_bodies_and_confirms_the_kernel_only_wh
     // where the second-order terms are many sigma. The points are drawn
     // from the prior on those ranges and jittered as in tests/perturber.rs.
     use latens::posterior::{
-        BodyModel, NonlinearLikelihood, PerturberPosterior, PerturberPrior, PerturberSample, Target,
-        effective_sample_size, importance_log_weights,
+        BodyModel, NonlinearLikelihood, PerturberPosterior, PerturberPrior, PerturberSample, effective_sample_size,
+        importance_log_weights,
     };
     use rand::SeedableRng;
-    use rand_distr::{Distribution, StandardNormal};
     let study = population_study(3, true);
     let (_, fits, kernel) = fit_bodies(&study, &Quiet).unwrap();
     let body_model = |b: usize| BodyModel {
@@ -196,20 +202,7 @@ fn the_joint_full_model_is_the_sum_of_the_bodies_and_confirms_the_kernel_only_wh
         let posterior = PerturberPosterior::new(&kernel, prior);
         let mut rng = rand::rngs::StdRng::seed_from_u64(31);
         let centre = posterior.draw_prior(&mut rng);
-        let points: Vec<(Vec<f64>, f64)> = (0..24)
-            .map(|_| {
-                let x: Vec<f64> = centre
-                    .iter()
-                    .enumerate()
-                    .map(|(i, v)| {
-                        let z: f64 = StandardNormal.sample(&mut rng);
-                        v + z * if i == 0 { 0.01 } else { 1e-4 * v.abs().max(1e-3) }
-                    })
-                    .collect();
-                let ll = posterior.log_likelihood(&x).unwrap();
-                (x, ll)
-            })
-            .collect();
+        let points = common::jittered_points(&posterior, &centre, 24, &mut rng);
         for (x, _) in &points {
             let s = PerturberSample::from_params(x);
             let whole = joint.log_likelihood(&s).unwrap();
@@ -251,11 +244,7 @@ fn a_joint_study_sets_aside_an_outlier_against_the_best_model() {
     std::fs::write(&file, lines.join("\n") + "\n").unwrap();
     let run = |out: &str, reject: &str| {
         run_ok(
-            latens()
-                .args(["infer", "--obs"])
-                .arg(dir.join("sim/bodies"))
-                .arg("--sites")
-                .arg(dir.join("sim/sites.csv"))
+            infer_simulated(&dir.join("sim"))
                 .args(["--directions", "48", "--distances", "4", "--nulls", "400", "--no-posterior"])
                 .args(["--reject-sigma", reject, "--out"])
                 .arg(dir.join(out)),
@@ -310,11 +299,7 @@ fn a_perturber_no_single_body_reveals_is_found_jointly() {
         std::fs::write(&scenario, text.replace("seed = 4242", &format!("seed = {seed}"))).unwrap();
         run_ok(latens().arg("simulate").arg(&scenario).arg("--out").arg(dir.join("sim")));
         run_ok(
-            latens()
-                .args(["infer", "--obs"])
-                .arg(dir.join("sim/bodies"))
-                .arg("--sites")
-                .arg(dir.join("sim/sites.csv"))
+            infer_simulated(&dir.join("sim"))
                 .args(["--directions", "192", "--distances", "12", "--nulls", "400", "--out"])
                 .arg(dir.join("infer"))
                 // The credible region is what this test weighs; the joint

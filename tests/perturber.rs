@@ -1,6 +1,8 @@
 //! The perturber search on invented scenarios: the linear kernel against the
 //! full nonlinear model, injection and recovery, and null data sets.
 
+mod common;
+
 use latens::dynamics::kepler::{Elements, state_from_elements};
 use latens::dynamics::{ForceModel, InitialState, Perturber};
 use latens::ephemeris::{Tabulated, Vsop87};
@@ -317,7 +319,6 @@ fn nonlinear_weights_hold_in_the_linear_regime_and_collapse_beyond_it() {
         effective_sample_size, importance_log_weights,
     };
     use rand::SeedableRng;
-    use rand_distr::{Distribution, StandardNormal};
     let s = scenario();
     for (mass, a, linear) in [(20.0, 75.0, true), (3000.0, 40.0, false)] {
         let p = perturber(mass, a, 25.0, 200.0);
@@ -343,20 +344,7 @@ fn nonlinear_weights_hold_in_the_linear_regime_and_collapse_beyond_it() {
         }
         .to_params();
         let mut rng = rand::rngs::StdRng::seed_from_u64(5);
-        let points: Vec<(Vec<f64>, f64)> = (0..24)
-            .map(|_| {
-                let x: Vec<f64> = truth
-                    .iter()
-                    .enumerate()
-                    .map(|(i, v)| {
-                        let z: f64 = StandardNormal.sample(&mut rng);
-                        v + z * if i == 0 { 0.01 } else { 1e-4 * v.abs().max(1e-3) }
-                    })
-                    .collect();
-                let ll = posterior.log_likelihood(&x).unwrap();
-                (x, ll)
-            })
-            .collect();
+        let points = common::jittered_points(&posterior, &truth, 24, &mut rng);
         let w = importance_log_weights(&points, &full);
         let share = effective_sample_size(&w) / points.len() as f64;
         eprintln!("{mass} Earth masses at {a} au: effective share of the importance weights {share:.3}");

@@ -95,3 +95,30 @@ pub fn consistent(hits: usize, n: usize, p: f64) -> bool {
     let sd = (n as f64 * p * (1.0 - p)).sqrt();
     (hits as f64 - n as f64 * p).abs() <= 3.0 * sd
 }
+
+/// Points about `centre` (sampler parameters) for importance-weight checks:
+/// ln mass jittered by 0.01, the state's components by 1e-4 of their size
+/// (at least 1e-7), each with its kernel log-likelihood.
+pub fn jittered_points<K: latens::perturber::SignalKernel + ?Sized>(
+    posterior: &latens::posterior::PerturberPosterior<K>,
+    centre: &[f64],
+    n: usize,
+    rng: &mut impl rand::Rng,
+) -> Vec<(Vec<f64>, f64)> {
+    use latens::posterior::Target;
+    use rand_distr::{Distribution, StandardNormal};
+    (0..n)
+        .map(|_| {
+            let x: Vec<f64> = centre
+                .iter()
+                .enumerate()
+                .map(|(i, v)| {
+                    let z: f64 = StandardNormal.sample(rng);
+                    v + z * if i == 0 { 0.01 } else { 1e-4 * v.abs().max(1e-3) }
+                })
+                .collect();
+            let ll = posterior.log_likelihood(&x).unwrap();
+            (x, ll)
+        })
+        .collect()
+}
