@@ -43,10 +43,13 @@ def test_joint_study_matches_latens_infer(population):
         assert mine["delta_chi2_at_best"] == theirs["delta_chi2_at_best"]
         assert mine["alone_false_alarm_probability"] == theirs["alone_false_alarm_probability"]
         assert mine["orbit"] == theirs["orbit"]
+        assert len(mine["set_aside"]) == theirs["n_set_aside"]
     loo = det.leave_one_out
     assert (loo["body"], loo["delta_chi2"]) == (summary["leave_one_out"]["left_out"],
                                                 summary["leave_one_out"]["delta_chi2"])
-    assert det.to_pandas().shape == (12, 7)
+    table = det.to_pandas()
+    assert table.shape == (12, 8)
+    assert list(table["n_set_aside"]) == [b["n_set_aside"] for b in summary["bodies"]]
 
     post = latens.posterior(study, det, **SAMPLER)
     assert post.summary == summary["posterior"]

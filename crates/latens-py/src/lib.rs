@@ -835,11 +835,15 @@ impl PyJointDetection {
         d.set_item("false_alarm_probability", l.false_alarm_probability)?;
         Ok(Some(d))
     }
-    /// The bodies' table as a pandas DataFrame (without the orbits).
+    /// The bodies' table as a pandas DataFrame (without the orbits; the
+    /// observations set aside counted, `n_set_aside`, as in bodies.csv).
     fn to_pandas<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyAny>> {
         let rows = self.bodies(py)?;
-        for row in rows.iter() {
-            row.cast_into::<PyDict>()?.del_item("orbit")?;
+        for (row, b) in rows.iter().zip(&self.inner.bodies) {
+            let row = row.cast_into::<PyDict>()?;
+            row.del_item("orbit")?;
+            row.del_item("set_aside")?;
+            row.set_item("n_set_aside", b.set_aside.len())?;
         }
         py.import("pandas")?.getattr("DataFrame")?.call1((rows,))
     }
