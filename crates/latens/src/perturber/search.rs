@@ -761,8 +761,10 @@ fn signal_subspace<K: SignalKernel + ?Sized>(
     // the sample: a 1000-body shard in 2.81 GB instead of 5.89 GB
     // (docs/performance.md). The vectors kept have S^2 at least
     // 1e-6 of the largest at 99.99% of the energy, where the Gram
-    // matrix's rounding (1e-16 of the largest) leaves them orthonormal to
-    // about 1e-10.
+    // matrix's rounding (1e-16 of the largest) should leave them
+    // orthonormal to about 1e-10 (an estimate from the usual eigenvector
+    // error bound, not measured; `tests/perturber.rs` checks what it
+    // feeds: the null maxima against the exact search maxima).
     let g = m.transpose() * m;
     let Ok(eig) = g.self_adjoint_eigen(faer::Side::Lower) else {
         return Mat::zeros(n_res, 0);
