@@ -4,8 +4,10 @@
 //!   perturber hypothesis.
 //! - [`search`]: the grid over hypotheses, basins, null simulations.
 //! - [`refine`]: the 13-parameter refinement on the full nonlinear model.
+//! - [`joint_refine`]: the same for a perturber shared by several bodies.
 //! - [`sensitivity`]: detection probability over mass and distance.
 
+pub mod joint_refine;
 pub mod kernel;
 pub mod profile;
 pub mod refine;

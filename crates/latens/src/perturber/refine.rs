@@ -167,42 +167,62 @@ pub fn refine(
         Ok(rep) => {
             let candidate = summarise(&rep, None, true, "all 13 parameters fitted on the full nonlinear model".into());
             let relative_mass_error = candidate.gm_sigma / candidate.perturber.gm_au3_per_day2;
-            let p = &candidate.perturber;
-            let bound =
-                0.5 * p.velocity_au_per_day.norm_squared() < model.central_gm_au3_per_day2() / p.position_au.norm();
-            // The full fit stands when it is well conditioned, keeps the
-            // perturber bound to the Sun, pins the mass down to better than
-            // 100%, and fits at least as well as the held-orbit fit (within 1
-            // in chi-square).
-            let distance_au = searched.distance_au;
-            let inside = (distance_au.0..=distance_au.1).contains(&p.position_au.norm());
-            let in_band =
-                super::search::orbit_in_band(p.position_au, p.velocity_au_per_day, searched.near_ecliptic_deg);
-            if !bound {
-                Ok(held_summary("the 13-parameter fit drifted to an unbound perturber orbit".into()))
-            } else if !inside {
-                Ok(held_summary(format!(
-                    "the 13-parameter fit drifted to {:.2} au from the Sun, outside the searched range {}-{} au",
-                    p.position_au.norm(),
-                    distance_au.0,
-                    distance_au.1
-                )))
-            } else if !in_band {
-                Ok(held_summary(format!(
-                    "the 13-parameter fit drifted to an orbit leaving the searched band of {} deg about the ecliptic",
-                    searched.near_ecliptic_deg.unwrap_or(90.0)
-                )))
-            } else if rep.condition_number < UNCONSTRAINED && relative_mass_error < 1.0 && rep.cost <= held.cost + 1.0 {
-                Ok(candidate)
-            } else {
-                Ok(held_summary(format!(
-                    "13-parameter fit: condition number {:.1e}, mass known to {:.0}%",
-                    rep.condition_number,
-                    100.0 * relative_mass_error
-                )))
+            match held_reason(
+                &candidate.perturber,
+                rep.condition_number,
+                relative_mass_error,
+                rep.cost,
+                held.cost,
+                model.central_gm_au3_per_day2(),
+                searched,
+            ) {
+                None => Ok(candidate),
+                Some(reason) => Ok(held_summary(reason)),
             }
         }
         Err(e) => Ok(held_summary(e.to_string())),
+    }
+}
+
+/// Why a fit of the perturber's orbit must give way to the fit with its
+/// orbit held (`None`: it stands). It stands when it keeps the perturber
+/// bound to the Sun, inside the searched distances and band, is well
+/// conditioned, pins the mass down to better than 100%, and fits at least as
+/// well as the held-orbit fit (within 1 in chi-square).
+pub(super) fn held_reason(
+    p: &Perturber,
+    condition_number: f64,
+    relative_mass_error: f64,
+    cost: f64,
+    held_cost: f64,
+    central_gm: f64,
+    searched: &super::search::SearchSettings,
+) -> Option<String> {
+    let bound = 0.5 * p.velocity_au_per_day.norm_squared() < central_gm / p.position_au.norm();
+    let distance_au = searched.distance_au;
+    let inside = (distance_au.0..=distance_au.1).contains(&p.position_au.norm());
+    let in_band = super::search::orbit_in_band(p.position_au, p.velocity_au_per_day, searched.near_ecliptic_deg);
+    if !bound {
+        Some("the fit of the perturber's orbit drifted to an unbound orbit".into())
+    } else if !inside {
+        Some(format!(
+            "the fit of the perturber's orbit drifted to {:.2} au from the Sun, outside the searched range {}-{} au",
+            p.position_au.norm(),
+            distance_au.0,
+            distance_au.1
+        ))
+    } else if !in_band {
+        Some(format!(
+            "the fit of the perturber's orbit drifted to an orbit leaving the searched band of {} deg about the ecliptic",
+            searched.near_ecliptic_deg.unwrap_or(90.0)
+        ))
+    } else if condition_number < UNCONSTRAINED && relative_mass_error < 1.0 && cost <= held_cost + 1.0 {
+        None
+    } else {
+        Some(format!(
+            "fit of the perturber's orbit: condition number {condition_number:.1e}, mass known to {:.0}%",
+            100.0 * relative_mass_error
+        ))
     }
 }
 
