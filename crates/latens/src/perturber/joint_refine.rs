@@ -67,6 +67,9 @@ pub struct JointRefinement {
     pub note: String,
 }
 
+/// A body's whitened residuals after its refit and its projected columns.
+type Refitted = (Vec<f64>, Mat<f64>);
+
 struct Body<'a> {
     name: String,
     model: OrbitModel<'a>,
@@ -80,7 +83,7 @@ impl Body<'_> {
     /// residuals there and the perturber's columns (`columns` of the 13
     /// model parameters; column 12 is d/d ln GM) with the body's own orbit
     /// directions projected out.
-    fn refit(&mut self, perturber: Perturber, columns: &[usize]) -> Result<(Vec<f64>, Mat<f64>), FitError> {
+    fn refit(&mut self, perturber: Perturber, columns: &[usize]) -> Result<Refitted, FitError> {
         let failed = |e: String| FitError::Problem(format!("{}: {e}", self.name));
         self.model.perturbers = vec![perturber];
         let lm = Lm::new().with_max_iterations(40)?;
@@ -181,7 +184,7 @@ impl JointProblem<'_> {
         if self.last.as_ref().is_none_or(|e| e.params != params) {
             let perturber = self.perturber(params);
             let columns = self.columns();
-            let parts: Vec<Result<(Vec<f64>, Mat<f64>), FitError>> =
+            let parts: Vec<Result<Refitted, FitError>> =
                 self.bodies.par_iter_mut().map(|b| b.refit(perturber, &columns)).collect();
             let total = *self.offsets.last().unwrap_or(&0);
             let mut residuals = vec![0.0; total];
