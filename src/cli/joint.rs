@@ -18,7 +18,8 @@ use latens_charts::residual_chart::ResidualOverview;
 const OVERVIEW_ROWS: usize = 24;
 use latens::dynamics::kepler::{OUTPUT_FRAME, OutputElements};
 use latens::io::results::{
-    DetectionFile, JointBasinFile, JointBodyFile, JointSummaryFile, LeaveOneOutFile, OutlierFile, SearchStatsFile,
+    DetectionFile, JointBasinFile, JointBodyFile, JointRefinedBodyFile, JointRefinedFile, JointSummaryFile,
+    LeaveOneOutFile, NonlinearStageFile, OutlierFile, SearchStatsFile,
 };
 use latens::io::write_atomically;
 use latens::perturber::{KeplerOrbit, Scored, SignalKernel};
@@ -30,10 +31,7 @@ use latens::time::{epoch_from_tdb_days, utc_iso_from_epoch};
 use latens::units::{J2000_JD, RAD_PER_DEG};
 
 /// What a joint run does not give yet.
-const NOT_COMPUTED: [&str; 2] = [
-    "the refinement of the best solution on the full nonlinear model and the recentred kernel (the search and the sampler use the linear kernel; the posterior samples are checked on the full model)",
-    "prediction (latens predict takes one body's summary)",
-];
+const NOT_COMPUTED: [&str; 1] = ["prediction (latens predict takes one body's summary)"];
 
 /// Runs a joint study of the plan's bodies and writes its files.
 pub(super) fn execute(plan: &InferPlan, arcs: Vec<TrackedArc>) -> Result<(), CliError> {
@@ -59,7 +57,7 @@ pub(super) fn execute(plan: &InferPlan, arcs: Vec<TrackedArc>) -> Result<(), Cli
         if detected { Vec::new() } else { super::infer::upper_limits(samples, settings.search.distance_au) };
     let sky = match &posterior.run {
         Some(run) if detected && !run.samples.is_empty() => {
-            let kernel = &found.kernel;
+            let (kernel, _) = found.posterior_kernel();
             let bars = crate::cli::progress::Bars::new();
             let confidence = plan
                 .confidence_region
@@ -68,7 +66,7 @@ pub(super) fn execute(plan: &InferPlan, arcs: Vec<TrackedArc>) -> Result<(), Cli
                         &study,
                         kernel,
                         &found.settings.search,
-                        &found.search.basins,
+                        &found.basins,
                         run,
                         &bars,
                     )
@@ -77,7 +75,7 @@ pub(super) fn execute(plan: &InferPlan, arcs: Vec<TrackedArc>) -> Result<(), Cli
             let sky_inputs = super::search::Found {
                 t0: kernel.epoch_tdb_days(),
                 gm_sun: kernel.central_gm(),
-                basins: &found.search.basins,
+                basins: &found.basins,
                 confidence: confidence.as_ref(),
             };
             Some(super::search::run_at(out, &study, &sky_inputs, run, &posterior.explanation, truth.as_ref())?)
@@ -89,8 +87,7 @@ pub(super) fn execute(plan: &InferPlan, arcs: Vec<TrackedArc>) -> Result<(), Cli
     }
 
     let search = SearchGeometry::new(study.wide.as_ref(), study.search_epoch_tdb_days)?;
-    let basins: Vec<JointBasinFile> =
-        found.search.basins.iter().filter_map(|b| basin_file(b, &found, &search)).collect();
+    let basins: Vec<JointBasinFile> = found.basins.iter().filter_map(|b| basin_file(b, &found, &search)).collect();
     let mut warnings = found.warnings();
     warnings.extend(posterior.warnings.iter().cloned());
     if let Some(s) = &sky {
@@ -159,6 +156,16 @@ pub(super) fn execute(plan: &InferPlan, arcs: Vec<TrackedArc>) -> Result<(), Cli
             delta_chi2: l.delta_chi2,
             false_alarm_probability: l.false_alarm_probability,
             detected: l.false_alarm_probability < settings.search.fap_level,
+        }),
+        refined_best_fit: found.refined.as_ref().map(|r| refined_file(r, &found)),
+        nonlinear_stage: found.centred.as_ref().map(|c| NonlinearStageFile {
+            rounds: found.rounds,
+            chi2_at_centre: c.chi2_at_centre,
+            delta_chi2_at_centre: found.bodies.iter().map(|b| b.null.chi2).sum::<f64>() - c.chi2_at_centre,
+            note: "every body's linear kernel recentred on the refined full-model solution (its residuals under the \
+                   full model plus the kernel's signal of that solution), so the linear model is exact at the centre; \
+                   the basins and the posterior come from the search on them"
+                .into(),
         }),
         posterior: posterior.run.as_ref().map(|r| r.summary.clone()),
         evidence: posterior.run.as_ref().and_then(|r| r.evidence.clone()),
@@ -371,4 +378,44 @@ fn report(
         let _ = writeln!(text, "  {name:<15} {what}");
     }
     text
+}
+
+/// The refined joint solution as `summary.json` gives it.
+fn refined_file(r: &latens::perturber::joint_refine::JointRefinement, found: &JointDetection) -> JointRefinedFile {
+    let gm_earth = latens::units::GM_EARTH_MASS_AU3_PER_DAY2;
+    let p = &r.perturber;
+    let el = OutputElements::from_icrf_state(p.position_au, p.velocity_au_per_day).unwrap_or(OutputElements::nan());
+    let null_chi2: f64 = found.bodies.iter().map(|b| b.null.chi2).sum();
+    JointRefinedFile {
+        chi2: r.chi2,
+        delta_chi2: null_chi2 - r.chi2,
+        mass_earth: p.gm_au3_per_day2 / gm_earth,
+        mass_sigma_earth: r.gm_sigma / gm_earth,
+        frame: OUTPUT_FRAME.into(),
+        epoch_tdb_jd: J2000_JD + found.epoch_tdb_days,
+        a_au: el.a_au,
+        e: el.e,
+        inc_deg: el.inc_deg,
+        node_deg: el.node_deg,
+        peri_deg: el.peri_deg,
+        mean_anomaly_deg: el.mean_anomaly_deg,
+        state_icrf: [
+            p.position_au.x,
+            p.position_au.y,
+            p.position_au.z,
+            p.velocity_au_per_day.x,
+            p.velocity_au_per_day.y,
+            p.velocity_au_per_day.z,
+        ],
+        orbit_fitted: r.orbit_fitted,
+        iterations: r.iterations,
+        condition_number: r.condition_number,
+        note: r.note.clone(),
+        bodies: found
+            .bodies
+            .iter()
+            .zip(&r.chi2_by_body)
+            .map(|(b, &chi2)| JointRefinedBodyFile { name: b.name.clone(), chi2, delta_chi2: b.null.chi2 - chi2 })
+            .collect(),
+    }
 }

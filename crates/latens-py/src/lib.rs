@@ -906,7 +906,7 @@ impl Found<'_> {
     fn basins(&self) -> &[latens::perturber::search::Scored] {
         match self {
             Found::One(d) => &d.basins,
-            Found::Joint(d) => &d.search.basins,
+            Found::Joint(d) => &d.basins,
         }
     }
 }
@@ -1327,7 +1327,8 @@ fn sky_products(
                 latens::pipeline::confidence_region(&study.inner, kernel, &d.settings.search, basins, run, &observer)
             }
             Found::Joint(d) => {
-                latens::pipeline::confidence_region(&study.inner, &d.kernel, &d.settings.search, basins, run, &observer)
+                let (kernel, _) = d.posterior_kernel();
+                latens::pipeline::confidence_region(&study.inner, kernel, &d.settings.search, basins, run, &observer)
             }
         }?;
         products.add_confidence(&confidence);

@@ -589,6 +589,12 @@ pub struct JointSummaryFile {
     pub basins: Vec<JointBasinFile>,
     /// The search without the body that carries most of the signal.
     pub leave_one_out: Option<LeaveOneOutFile>,
+    /// A detection's best solution refined on the full nonlinear model of
+    /// every body (null without a detection).
+    pub refined_best_fit: Option<JointRefinedFile>,
+    /// Present when every body's kernel was recentred on the refined
+    /// solution (strong regime): the basins and the posterior come from it.
+    pub nonlinear_stage: Option<NonlinearStageFile>,
     /// The shared perturber's posterior (null when not sampled).
     pub posterior: Option<PosteriorFile>,
     pub evidence: Option<EvidenceFile>,
@@ -607,6 +613,44 @@ pub struct JointSummaryFile {
     /// What a joint run does not give (yet), so nobody looks for it.
     pub not_computed: Vec<String>,
     pub warnings: Vec<String>,
+}
+
+/// The best joint solution after the nonlinear refinement: the shared
+/// perturber's mass and orbit fitted with every body's orbit refitted.
+#[derive(Debug, Serialize, Clone)]
+pub struct JointRefinedFile {
+    /// Chi-square of the full nonlinear model with the perturber, all bodies.
+    pub chi2: f64,
+    /// The bodies' null chi-squares together minus `chi2`.
+    pub delta_chi2: f64,
+    pub mass_earth: f64,
+    /// Formal error, every body's orbit marginalised.
+    pub mass_sigma_earth: f64,
+    pub frame: String,
+    pub epoch_tdb_jd: f64,
+    pub a_au: f64,
+    pub e: f64,
+    pub inc_deg: f64,
+    pub node_deg: f64,
+    pub peri_deg: f64,
+    pub mean_anomaly_deg: f64,
+    pub state_icrf: [f64; 6],
+    /// Whether the perturber's orbit was fitted, or held at the grid solution
+    /// (its mass and every body's orbit fitted either way).
+    pub orbit_fitted: bool,
+    pub iterations: usize,
+    pub condition_number: f64,
+    pub note: String,
+    /// Each body's chi-square under the refined solution and its drop
+    /// against the body's null fit.
+    pub bodies: Vec<JointRefinedBodyFile>,
+}
+
+#[derive(Debug, Serialize, Clone)]
+pub struct JointRefinedBodyFile {
+    pub name: String,
+    pub chi2: f64,
+    pub delta_chi2: f64,
 }
 
 /// One body of a joint study.

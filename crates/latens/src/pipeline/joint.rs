@@ -20,11 +20,14 @@
 //! beyond the threshold are set aside and every body is fitted and searched
 //! again without them.
 //!
-//! The joint stage works in the linear kernel throughout; the full-model
-//! refinement and the recentred kernel of the one-body stage are not run
-//! (joint detection matters most where each body's signal is weak, which is
-//! where the linear kernel holds best; the posterior's samples are checked
-//! on the full model).
+//! A detection is refined on the full nonlinear model, every body's orbit
+//! refitted with the shared perturber ([`crate::perturber::joint_refine`]).
+//! In the strong regime (the linear kernel's error at the best solution
+//! changes the chi-square by more than 1) every body's kernel is recentred
+//! on the refined solution and the joint search runs again on them, as in
+//! the one-body stage: the basins the posterior starts from are then found
+//! where the linear model is exact. Outliers of a detection are judged
+//! against the refined full model.
 
 use rayon::prelude::*;
 
@@ -32,6 +35,7 @@ use super::detection::{OutlierJudge, Verdict};
 use super::{PipelineError, Study};
 use crate::astrometry::ObservingGeometry;
 use crate::io::observations::Observation;
+use crate::perturber::joint_refine::{JointPart, JointRefinement, refine_joint};
 use crate::perturber::{JointKernel, LinearKernel, Scored, SearchResult, SearchSettings, SignalKernel, grid_search};
 use crate::progress::{Observer, Quiet};
 use crate::reference::{ReferenceFit, ReferenceSettings, fit_reference_orbit, observing_geometry};
@@ -111,9 +115,42 @@ pub struct JointDetection {
     /// What outliers were judged against (each body's are in its
     /// [`BodyFit::set_aside`]).
     pub judged_against: OutlierJudge,
+    /// A detection's best solution refined on the full model.
+    pub refined: Option<JointRefinement>,
+    /// The joint kernel recentred on the refined solution (strong regime).
+    pub centred: Option<JointRecentred>,
+    /// The basins the posterior starts from, drops against the null model:
+    /// the search's, or those found on the recentred kernel.
+    pub basins: Vec<Scored>,
+    /// Rounds of refine-and-recentre run.
+    pub rounds: usize,
+    /// What the refinement stage warns of (a failed refinement).
+    pub refinement_warnings: Vec<String>,
+}
+
+/// The joint kernel recentred on a refined solution: each body's kernel
+/// recentred on its refitted orbit and the shared perturber (see
+/// [`crate::perturber::refine::Recentred`]); the offsets add over bodies.
+#[derive(Clone)]
+pub struct JointRecentred {
+    pub kernel: JointKernel,
+    /// Add to a chi-square drop on the recentred kernel to get the drop
+    /// against the null model.
+    pub delta_chi2_offset: f64,
+    /// The full model's chi-square at the centre, all bodies.
+    pub chi2_at_centre: f64,
 }
 
 impl JointDetection {
+    /// The kernel the posterior samples (recentred in the strong regime)
+    /// and the offset that puts its drops against the null model.
+    pub fn posterior_kernel(&self) -> (&JointKernel, f64) {
+        match &self.centred {
+            Some(c) => (&c.kernel, c.delta_chi2_offset),
+            None => (&self.kernel, 0.0),
+        }
+    }
+
     pub fn best_delta_chi2(&self) -> f64 {
         self.search.grid_best_delta_chi2
     }
@@ -175,6 +212,7 @@ impl JointDetection {
     pub fn warnings(&self) -> Vec<String> {
         let mut out: Vec<String> =
             self.bodies.iter().flat_map(|b| b.null.warnings.iter().map(move |w| format!("{}: {w}", b.name))).collect();
+        out.extend(self.refinement_warnings.iter().cloned());
         for b in self.bodies.iter().filter(|b| !b.set_aside.is_empty()) {
             out.push(format!(
                 "{}: {} observation(s) set aside beyond {} sigma against {}: {}",
@@ -276,6 +314,220 @@ fn chi2_per_observation(kernel: &JointKernel, best: Option<&Scored>) -> Vec<Vec<
         .collect()
 }
 
+/// Each body's observations' chi-square (both coordinates) against the
+/// refined full model: every body integrated from its refitted orbit with
+/// the refined perturber, in parallel over bodies.
+fn chi2_against_refined(
+    study: &Study,
+    bodies: &[BodyFit],
+    refined: &JointRefinement,
+) -> Result<Vec<Vec<f64>>, PipelineError> {
+    let ephemeris = study.ephemeris.as_ref();
+    bodies
+        .par_iter()
+        .zip(&study.bodies)
+        .zip(&refined.tracked_states)
+        .map(|((b, arc), state)| {
+            let failed = |e: crate::dynamics::PropagationError| {
+                PipelineError::failure("outlier check", format!("{}: {e}", b.name))
+            };
+            let mut m = crate::reference::OrbitModel::new(
+                &b.observations,
+                b.geometry.clone(),
+                b.null.epoch_tdb_days,
+                &arc.model,
+                ephemeris,
+            )
+            .map_err(failed)?;
+            m.perturbers = vec![refined.perturber];
+            let pred = m.predict_settled(state).map_err(failed)?;
+            let n = b.observations.len();
+            let mut w = vec![0.0; 2 * n];
+            crate::reference::whitened_residuals(&b.observations, &pred, &vec![true; n], &mut w);
+            Ok(w.chunks(2).map(|p| p[0] * p[0] + p[1] * p[1]).collect())
+        })
+        .collect()
+}
+
+/// What the refinement stage gives.
+struct Refined {
+    refined: Option<JointRefinement>,
+    centred: Option<JointRecentred>,
+    basins: Vec<Scored>,
+    rounds: usize,
+    warnings: Vec<String>,
+}
+
+/// Chi-square drop above which a detection counts as strong enough to
+/// recentre the kernels on its refined solution (the one-body stage's).
+const STRONG_DELTA_CHI2: f64 = 500.0;
+
+/// Rounds of refine-and-recentre at most (the one-body stage's).
+const MAX_RECENTRE_ROUNDS: usize = 3;
+
+/// A detection's best solution refined on the full model of every body
+/// and, in the strong regime, the kernels recentred on it and searched
+/// again (see the module's description). Nothing is refined without a
+/// detection.
+fn refine_stage(
+    study: &Study,
+    bodies: &[BodyFit],
+    kernel: &JointKernel,
+    search: &SearchResult,
+    detected: bool,
+    settings: &SearchSettings,
+    observer: &dyn Observer,
+) -> Result<Refined, PipelineError> {
+    use crate::perturber::refine::recentre;
+    let mut out =
+        Refined { refined: None, centred: None, basins: search.basins.clone(), rounds: 0, warnings: Vec::new() };
+    let Some(best) = search.best().copied().filter(|b| detected && b.gm_au3_per_day2 > 0.0) else {
+        return Ok(out);
+    };
+    let ephemeris = study.ephemeris.as_ref();
+    let parts: Vec<JointPart> = bodies
+        .iter()
+        .zip(&study.bodies)
+        .map(|(b, arc)| JointPart {
+            name: &b.name,
+            null: &b.null,
+            observations: &b.observations,
+            geometry: &b.geometry,
+            model: &arc.model,
+        })
+        .collect();
+    let refine_from = |s: &Scored| {
+        let start = crate::dynamics::Perturber {
+            gm_au3_per_day2: s.gm_au3_per_day2,
+            position_au: s.hypothesis.position_au,
+            velocity_au_per_day: s.hypothesis.velocity_au_per_day,
+        };
+        refine_joint(&parts, ephemeris, start, settings)
+    };
+    observer.note("Refining the best solution on the full nonlinear model of every body...");
+    let mut current = match refine_from(&best) {
+        Ok(r) => r,
+        Err(e) => {
+            out.warnings.push(format!("the joint nonlinear refinement failed ({e}); the grid solution stands"));
+            return Ok(out);
+        }
+    };
+    // The strong regime, as in the one-body stage: the linear kernel's
+    // error at the best solution, each body's error share f_b squared times
+    // its part of the drop, adds up to more than 1 in chi-square.
+    let gm_max = settings.mass_earth.1 * crate::units::GM_EARTH_MASS_AU3_PER_DAY2;
+    let strong = best.delta_chi2 > STRONG_DELTA_CHI2 && {
+        let mut s = vec![0.0; SignalKernel::n_residuals(kernel)];
+        let drops = match crate::perturber::search::score(kernel, &best.hypothesis, gm_max, 0.0, &mut s) {
+            Some(scored) => kernel.drops_by_body(&s, scored.gm_au3_per_day2),
+            None => vec![0.0; bodies.len()],
+        };
+        let errors: Vec<Result<f64, PipelineError>> = (0..bodies.len())
+            .into_par_iter()
+            .map(|b| {
+                if drops[b] <= 0.0 {
+                    return Ok(0.0);
+                }
+                let (_, f) = super::detection::linearisation_error(
+                    &best,
+                    &bodies[b].null,
+                    &kernel.bodies()[b],
+                    &bodies[b].observations,
+                    &bodies[b].geometry,
+                    &study.bodies[b].model,
+                    ephemeris,
+                )?;
+                Ok(f * f * drops[b])
+            })
+            .collect();
+        let mut total = 0.0;
+        for e in errors {
+            total += e?;
+        }
+        total > 1.0
+    };
+    if !strong {
+        out.refined = Some(current);
+        return Ok(out);
+    }
+    let quiet = SearchSettings { n_null: 0, ..settings.clone() };
+    for round in 1..=MAX_RECENTRE_ROUNDS {
+        observer.note(&format!(
+            "Recentring every body's kernel on the refined solution (round {round}) and searching again..."
+        ));
+        let recentred: Vec<Result<crate::perturber::refine::Recentred, PipelineError>> = (0..bodies.len())
+            .into_par_iter()
+            .map(|b| {
+                recentre(
+                    &kernel.bodies()[b],
+                    bodies[b].null.epoch_tdb_days,
+                    &current.tracked_states[b],
+                    &current.perturber,
+                    &bodies[b].observations,
+                    &bodies[b].geometry,
+                    &study.bodies[b].model,
+                    ephemeris,
+                )
+                .map_err(|e| PipelineError::failure("recentring the kernel", format!("{}: {e}", bodies[b].name)))
+            })
+            .collect();
+        let (mut kernels, mut offset, mut chi2) = (Vec::with_capacity(bodies.len()), 0.0, 0.0);
+        for r in recentred {
+            let r = r?;
+            offset += r.delta_chi2_offset;
+            chi2 += r.chi2_at_centre;
+            kernels.push(r.kernel);
+        }
+        let joint = JointKernel::new(kernels).map_err(|e| PipelineError::failure("recentring the kernel", e))?;
+        let centred = JointRecentred { kernel: joint, delta_chi2_offset: offset, chi2_at_centre: chi2 };
+        let again = grid_search(&centred.kernel, &quiet, &Quiet);
+        let centre = crate::perturber::Hypothesis {
+            position_au: current.perturber.position_au,
+            velocity_au_per_day: current.perturber.velocity_au_per_day,
+        };
+        let mut scratch = vec![0.0; SignalKernel::n_residuals(&centred.kernel)];
+        let mut basins: Vec<Scored> =
+            crate::perturber::search::score(&centred.kernel, &centre, gm_max, settings.min_separation_au, &mut scratch)
+                .into_iter()
+                .chain(again.basins.iter().copied())
+                .map(|s| Scored { delta_chi2: s.delta_chi2 + centred.delta_chi2_offset, ..s })
+                .collect();
+        basins.sort_by(|a, b| b.delta_chi2.total_cmp(&a.delta_chi2));
+        let null_chi2: f64 = bodies.iter().map(|b| b.null.chi2).sum();
+        let centre_delta = null_chi2 - current.chi2;
+        // A better place elsewhere on the recentred kernels: refine it.
+        let challenger = basins.iter().find(|b| {
+            let apart = b.hypothesis.position_au.unit().dot(centre.position_au.unit()) < 1f64.to_radians().cos()
+                || (b.hypothesis.position_au.norm() / centre.position_au.norm()).ln().abs() > 0.1;
+            apart && b.delta_chi2 > centre_delta + 1.0
+        });
+        let moved = match challenger.copied() {
+            Some(c) if round < MAX_RECENTRE_ROUNDS => match refine_from(&c) {
+                Ok(r) if r.chi2 < current.chi2 - 0.5 => {
+                    current = r;
+                    true
+                }
+                _ => false,
+            },
+            _ => false,
+        };
+        out.rounds = round;
+        if !moved {
+            out.basins = crate::perturber::search::distinct(
+                basins.into_iter(),
+                settings.basin_separation_deg,
+                2.0,
+                settings.basin_delta_chi2,
+                settings.max_basins,
+            );
+            out.centred = Some(centred);
+            break;
+        }
+    }
+    out.refined = Some(current);
+    Ok(out)
+}
+
 /// The verdict of a joint search.
 fn verdict_of(search: &SearchResult, settings: &SearchSettings) -> Verdict {
     let fap = search.false_alarm_probability();
@@ -310,21 +562,32 @@ pub fn detect_joint(
     };
     let mut search = searching(&bodies, &kernel);
     let mut verdict = verdict_of(&search, &settings.search);
+    let refining = |bodies: &[BodyFit], kernel: &JointKernel, search: &SearchResult, verdict: Verdict| {
+        refine_stage(study, bodies, kernel, search, verdict.detected(), &settings.search, observer)
+    };
+    let mut refined = refining(&bodies, &kernel, &search, verdict)?;
 
-    // Outliers are judged against the best model (the best joint solution
-    // when one is detected: in each body the largest residuals may be the
-    // signal), as in the one-body detection; those set aside, the bodies
-    // are fitted and searched again without them.
+    // Outliers are judged against the best model (the refined full model
+    // of a detection, else its best joint solution on the kernel: in each
+    // body the largest residuals may be the signal), as in the one-body
+    // detection; those set aside, the bodies are fitted, searched and
+    // refined again without them.
     let mut judged_against = OutlierJudge::NullModel;
     if let Some(limit) = settings.reject_sigma {
         let best = search.best().filter(|_| verdict.detected());
-        if best.is_some() {
-            judged_against = OutlierJudge::JointPerturber;
-        }
-        let keep: Vec<Vec<bool>> = chi2_per_observation(&kernel, best)
-            .iter()
-            .map(|c| c.iter().map(|&c| c <= limit * limit).collect())
-            .collect();
+        let chi2 = match &refined.refined {
+            Some(r) if verdict.detected() => {
+                judged_against = OutlierJudge::RefinedPerturber;
+                chi2_against_refined(study, &bodies, r)?
+            }
+            _ => {
+                if best.is_some() {
+                    judged_against = OutlierJudge::JointPerturber;
+                }
+                chi2_per_observation(&kernel, best)
+            }
+        };
+        let keep: Vec<Vec<bool>> = chi2.iter().map(|c| c.iter().map(|&c| c <= limit * limit).collect()).collect();
         if keep.iter().flatten().any(|k| !k) {
             for (b, k) in bodies.iter().zip(&keep) {
                 let kept = k.iter().filter(|&&k| k).count();
@@ -356,8 +619,10 @@ pub fn detect_joint(
             bodies.iter_mut().zip(set_aside).for_each(|(b, s)| b.set_aside = s);
             search = searching(&bodies, &kernel);
             verdict = verdict_of(&search, &settings.search);
+            refined = refining(&bodies, &kernel, &search, verdict)?;
         }
     }
+    let Refined { refined, centred, basins, rounds, warnings: refinement_warnings } = refined;
 
     // Each body's part of the best solution's drop.
     let gm_max = settings.search.mass_earth.1 * crate::units::GM_EARTH_MASS_AU3_PER_DAY2;
@@ -426,6 +691,11 @@ pub fn detect_joint(
         leave_one_out,
         verdict,
         judged_against,
+        refined,
+        centred,
+        basins,
+        rounds,
+        refinement_warnings,
     })
 }
 

@@ -7,9 +7,10 @@
 //! model as in the one-body stage, every body integrated with the sampled
 //! perturber and the bodies' log-likelihoods added: confirmed, reweighted,
 //! or (when the weights collapse) replaced by MCMC steps on the full model.
-//! The joint kernel is not recentred on a refined solution (no joint
-//! refinement on the full model yet); the check is what guards the
-//! strong-signal regime.
+//! In the strong regime the sampler runs on the joint kernel recentred on
+//! the refined solution (each body's kernel recentred on its refitted
+//! orbit), as the one-body stage does; the evidence is put back against
+//! the null model with the recentring offset.
 //!
 //! The alternatives are weighed on the same residuals, each as the bodies
 //! would need it:
@@ -78,7 +79,7 @@ pub fn posterior_joint(
     observer: &dyn Observer,
 ) -> Result<JointPosteriorOutcome, PipelineError> {
     settings.check()?;
-    let kernel = &detection.kernel;
+    let (kernel, delta_chi2_offset) = detection.posterior_kernel();
     let mut warnings = Vec::new();
     let (alternatives, body_alternatives) = weigh_alternatives(study, detection, settings, &mut warnings);
 
@@ -90,7 +91,7 @@ pub fn posterior_joint(
         min_separation_au: search_settings.min_separation_au,
         near_ecliptic_deg: search_settings.near_ecliptic_deg,
     };
-    let basins = &detection.search.basins;
+    let basins = &detection.basins;
     if !settings.sample || basins.is_empty() {
         return Ok(JointPosteriorOutcome {
             explanation: explain(None, &alternatives),
@@ -106,9 +107,7 @@ pub fn posterior_joint(
     let sampled = sample(&posterior, basins, settings, &fp, observer)?;
     let (mut diagnostics, mut sampling_warnings) = diagnose(&sampled, settings);
     warnings.append(&mut sampling_warnings);
-    // The joint kernel is not recentred: its likelihood is relative to the
-    // bodies' null residuals, as the evidence needs.
-    let evidence = evidence_of(&sampled, settings.runs, 0.0);
+    let evidence = evidence_of(&sampled, settings.runs, delta_chi2_offset);
     // The check on the full model: every body integrated with the sampled
     // perturber, the bodies' log-likelihoods added.
     let parts = detection
