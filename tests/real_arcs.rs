@@ -298,7 +298,10 @@ fn neptune_from_uranus_and_pluto_together() {
     let sep = centre.dot(d).clamp(-1.0, 1.0).acos().to_degrees();
     let area90 = v["sky"]["area90_deg2"].as_f64().unwrap();
     eprintln!(
-        "joint Uranus + Pluto: posterior centre {sep:.2} deg from Neptune, 90% region {area90:.1} sq deg, {method}"
+        "joint Uranus + Pluto: posterior centre {sep:.2} deg from Neptune, 90% region {area90:.1} sq deg, {method}; mass {:.2} (68% {:.2}-{:.2})",
+        m["median"].as_f64().unwrap(),
+        m["lo68"].as_f64().unwrap(),
+        m["hi68"].as_f64().unwrap()
     );
     assert!(sep < 2.5 * num(&forecast, "sigma_major_deg"), "posterior centre {sep:.2} deg from Neptune");
     let uranus = &v["bodies"][0];

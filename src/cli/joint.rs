@@ -351,12 +351,28 @@ fn report(
             b.solar_elongation_deg
         );
     }
+    if let Some(r) = &s.refined_best_fit {
+        let _ = writeln!(
+            text,
+            "  refined on the full model (every body's orbit refitted): delta chi2 {:.1}, {:.2} +/- {:.2} Earth masses, a {:.1} au, e {:.3}, i {:.1} deg; {}",
+            r.delta_chi2, r.mass_earth, r.mass_sigma_earth, r.a_au, r.e, r.inc_deg, r.note
+        );
+    }
+    if let Some(n) = &s.nonlinear_stage {
+        let _ = writeln!(
+            text,
+            "  every body's kernel recentred on the refined solution ({} round(s)): the basins and the posterior come from it",
+            n.rounds
+        );
+    }
     text.push_str(posterior_text);
     text.push_str(sky_text);
     for w in &s.warnings {
         let _ = writeln!(text, "Warning: {w}");
     }
-    let _ = writeln!(text, "Not computed in a joint study yet: {}.", s.not_computed.join("; "));
+    if !s.not_computed.is_empty() {
+        let _ = writeln!(text, "Not computed in a joint study yet: {}.", s.not_computed.join("; "));
+    }
     let _ = writeln!(text, "Files written in {}:", out.display());
     let _ = writeln!(
         text,
