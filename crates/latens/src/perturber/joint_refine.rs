@@ -318,9 +318,9 @@ pub fn refine_joint(
     let central_gm = first.model.central_gm_au3_per_day2();
     match full {
         Ok(f) => {
-            let gm = f.perturber.gm_au3_per_day2;
+            // sigma(GM) / GM = sigma(ln GM), the last parameter.
             let n = f.report.params.len();
-            let relative_mass_error = gm * f.report.covariance[n * n - 1].max(0.0).sqrt() / gm;
+            let relative_mass_error = f.report.covariance[n * n - 1].max(0.0).sqrt();
             match held_reason(
                 &f.perturber,
                 f.report.condition_number,
