@@ -32,6 +32,14 @@ pub struct Perturber {
     pub velocity_au_per_day: Vec3,
 }
 
+impl Perturber {
+    /// Its heliocentric ICRF state (x, y, z, vx, vy, vz), au and au/day.
+    pub fn state(&self) -> [f64; 6] {
+        let (r, v) = (self.position_au, self.velocity_au_per_day);
+        [r.x, r.y, r.z, v.x, v.y, v.z]
+    }
+}
+
 /// Heliocentric ICRF states of the propagated bodies at the reference epoch.
 #[derive(Clone, Debug, PartialEq)]
 pub struct InitialState {

@@ -281,14 +281,7 @@ pub fn refine_joint(
             p.name, p.null.epoch_tdb_days, first.name, first.null.epoch_tdb_days
         )));
     }
-    let orbit = [
-        start.position_au.x,
-        start.position_au.y,
-        start.position_au.z,
-        start.velocity_au_per_day.x,
-        start.velocity_au_per_day.y,
-        start.velocity_au_per_day.z,
-    ];
+    let orbit = start.state();
     let ln_gm = start.gm_au3_per_day2.max(1e-16).ln();
     let mut p7 = orbit.to_vec();
     p7.push(ln_gm);

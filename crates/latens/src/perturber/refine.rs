@@ -122,14 +122,7 @@ pub fn refine(
     searched: &super::search::SearchSettings,
 ) -> Result<Refinement, FitError> {
     let used: Vec<bool> = null.residuals.iter().map(|r| r.used).collect();
-    let perturber_state = [
-        start.position_au.x,
-        start.position_au.y,
-        start.position_au.z,
-        start.velocity_au_per_day.x,
-        start.velocity_au_per_day.y,
-        start.velocity_au_per_day.z,
-    ];
+    let perturber_state = start.state();
     let gm0 = start.gm_au3_per_day2.max(1e-16);
     let new_model = || {
         OrbitModel::new(observations, geometry.to_vec(), null.epoch_tdb_days, model, ephemeris)
