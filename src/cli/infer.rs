@@ -535,34 +535,18 @@ pub(super) fn execute(plan: &InferPlan) -> Result<InferSummary, CliError> {
 }
 
 fn refined_file(r: &latens::perturber::refine::Refinement, null: &ReferenceFit) -> latens::io::results::RefinedFile {
-    let gm_earth = latens::units::GM_EARTH_MASS_AU3_PER_DAY2;
-    let p = &r.perturber;
-    let el = OutputElements::from_icrf_state(p.position_au, p.velocity_au_per_day).unwrap_or(OutputElements::nan());
     latens::io::results::RefinedFile {
-        chi2: r.chi2,
-        delta_chi2: null.chi2 - r.chi2,
-        mass_earth: p.gm_au3_per_day2 / gm_earth,
-        mass_sigma_earth: r.gm_sigma / gm_earth,
-        frame: OUTPUT_FRAME.into(),
-        epoch_tdb_jd: J2000_JD + null.epoch_tdb_days,
-        a_au: el.a_au,
-        e: el.e,
-        inc_deg: el.inc_deg,
-        node_deg: el.node_deg,
-        peri_deg: el.peri_deg,
-        mean_anomaly_deg: el.mean_anomaly_deg,
-        state_icrf: [
-            p.position_au.x,
-            p.position_au.y,
-            p.position_au.z,
-            p.velocity_au_per_day.x,
-            p.velocity_au_per_day.y,
-            p.velocity_au_per_day.z,
-        ],
+        solution: latens::io::results::RefinedSolutionFile::new(
+            &r.perturber,
+            r.chi2,
+            null.chi2,
+            r.gm_sigma,
+            null.epoch_tdb_days,
+            r.iterations,
+            r.condition_number,
+            &r.note,
+        ),
         all_13_parameters: r.all_thirteen,
-        iterations: r.iterations,
-        condition_number: r.condition_number,
-        note: r.note.clone(),
     }
 }
 

@@ -19,7 +19,7 @@ const OVERVIEW_ROWS: usize = 24;
 use latens::dynamics::kepler::{OUTPUT_FRAME, OutputElements};
 use latens::io::results::{
     DetectionFile, JointBasinFile, JointBodyFile, JointRefinedBodyFile, JointRefinedFile, JointSummaryFile,
-    LeaveOneOutFile, NonlinearStageFile, OutlierFile, SearchStatsFile,
+    LeaveOneOutFile, NonlinearStageFile, OutlierFile, RefinedSolutionFile, SearchStatsFile,
 };
 use latens::io::write_atomically;
 use latens::perturber::{KeplerOrbit, Scored, SignalKernel};
@@ -355,7 +355,13 @@ fn report(
         let _ = writeln!(
             text,
             "  refined on the full model (every body's orbit refitted): delta chi2 {:.1}, {:.2} +/- {:.2} Earth masses, a {:.1} au, e {:.3}, i {:.1} deg; {}",
-            r.delta_chi2, r.mass_earth, r.mass_sigma_earth, r.a_au, r.e, r.inc_deg, r.note
+            r.solution.delta_chi2,
+            r.solution.mass_earth,
+            r.solution.mass_sigma_earth,
+            r.solution.a_au,
+            r.solution.e,
+            r.solution.inc_deg,
+            r.solution.note
         );
     }
     if let Some(n) = &s.nonlinear_stage {
@@ -398,35 +404,19 @@ fn report(
 
 /// The refined joint solution as `summary.json` gives it.
 fn refined_file(r: &latens::perturber::joint_refine::JointRefinement, found: &JointDetection) -> JointRefinedFile {
-    let gm_earth = latens::units::GM_EARTH_MASS_AU3_PER_DAY2;
-    let p = &r.perturber;
-    let el = OutputElements::from_icrf_state(p.position_au, p.velocity_au_per_day).unwrap_or(OutputElements::nan());
     let null_chi2: f64 = found.bodies.iter().map(|b| b.null.chi2).sum();
     JointRefinedFile {
-        chi2: r.chi2,
-        delta_chi2: null_chi2 - r.chi2,
-        mass_earth: p.gm_au3_per_day2 / gm_earth,
-        mass_sigma_earth: r.gm_sigma / gm_earth,
-        frame: OUTPUT_FRAME.into(),
-        epoch_tdb_jd: J2000_JD + found.epoch_tdb_days,
-        a_au: el.a_au,
-        e: el.e,
-        inc_deg: el.inc_deg,
-        node_deg: el.node_deg,
-        peri_deg: el.peri_deg,
-        mean_anomaly_deg: el.mean_anomaly_deg,
-        state_icrf: [
-            p.position_au.x,
-            p.position_au.y,
-            p.position_au.z,
-            p.velocity_au_per_day.x,
-            p.velocity_au_per_day.y,
-            p.velocity_au_per_day.z,
-        ],
+        solution: RefinedSolutionFile::new(
+            &r.perturber,
+            r.chi2,
+            null_chi2,
+            r.gm_sigma,
+            found.epoch_tdb_days,
+            r.iterations,
+            r.condition_number,
+            &r.note,
+        ),
         orbit_fitted: r.orbit_fitted,
-        iterations: r.iterations,
-        condition_number: r.condition_number,
-        note: r.note.clone(),
         bodies: found
             .bodies
             .iter()

@@ -498,14 +498,17 @@ pub struct SearchStatsFile {
     pub signal_subspace_energy: f64,
 }
 
-/// The best solution after the nonlinear refinement.
+/// A perturber solution refined on the full nonlinear model: what the
+/// one-body and the joint refinements both give (flattened into each).
 #[derive(Debug, Serialize, Clone)]
-pub struct RefinedFile {
-    /// Chi-square of the full nonlinear model with the perturber.
+pub struct RefinedSolutionFile {
+    /// Chi-square of the full nonlinear model with the perturber (all bodies
+    /// together in a joint study).
     pub chi2: f64,
-    /// Null chi-square minus `chi2`.
+    /// Null chi-square (summed over the bodies) minus `chi2`.
     pub delta_chi2: f64,
     pub mass_earth: f64,
+    /// Formal error, the tracked orbits marginalised.
     pub mass_sigma_earth: f64,
     pub frame: String,
     pub epoch_tdb_jd: f64,
@@ -516,11 +519,58 @@ pub struct RefinedFile {
     pub peri_deg: f64,
     pub mean_anomaly_deg: f64,
     pub state_icrf: [f64; 6],
-    /// Whether all 13 parameters were fitted, or the perturber's orbit was held.
-    pub all_13_parameters: bool,
     pub iterations: usize,
     pub condition_number: f64,
     pub note: String,
+}
+
+impl RefinedSolutionFile {
+    /// The file block of a refined perturber, `null_chi2` being the null
+    /// chi-square it is compared with and `epoch_tdb_days` its epoch (days
+    /// from J2000 TDB).
+    #[allow(clippy::too_many_arguments)]
+    pub fn new(
+        perturber: &crate::dynamics::Perturber,
+        chi2: f64,
+        null_chi2: f64,
+        gm_sigma: f64,
+        epoch_tdb_days: f64,
+        iterations: usize,
+        condition_number: f64,
+        note: &str,
+    ) -> Self {
+        use crate::dynamics::kepler::{OUTPUT_FRAME, OutputElements};
+        let gm_earth = crate::units::GM_EARTH_MASS_AU3_PER_DAY2;
+        let (r, v) = (perturber.position_au, perturber.velocity_au_per_day);
+        let el = OutputElements::from_icrf_state(r, v).unwrap_or(OutputElements::nan());
+        Self {
+            chi2,
+            delta_chi2: null_chi2 - chi2,
+            mass_earth: perturber.gm_au3_per_day2 / gm_earth,
+            mass_sigma_earth: gm_sigma / gm_earth,
+            frame: OUTPUT_FRAME.into(),
+            epoch_tdb_jd: crate::units::J2000_JD + epoch_tdb_days,
+            a_au: el.a_au,
+            e: el.e,
+            inc_deg: el.inc_deg,
+            node_deg: el.node_deg,
+            peri_deg: el.peri_deg,
+            mean_anomaly_deg: el.mean_anomaly_deg,
+            state_icrf: [r.x, r.y, r.z, v.x, v.y, v.z],
+            iterations,
+            condition_number,
+            note: note.to_string(),
+        }
+    }
+}
+
+/// The best solution after the nonlinear refinement.
+#[derive(Debug, Serialize, Clone)]
+pub struct RefinedFile {
+    #[serde(flatten)]
+    pub solution: RefinedSolutionFile,
+    /// Whether all 13 parameters were fitted, or the perturber's orbit was held.
+    pub all_13_parameters: bool,
 }
 
 /// `truth.json` of `latens simulate`: what the simulation put in.
@@ -619,28 +669,11 @@ pub struct JointSummaryFile {
 /// perturber's mass and orbit fitted with every body's orbit refitted.
 #[derive(Debug, Serialize, Clone)]
 pub struct JointRefinedFile {
-    /// Chi-square of the full nonlinear model with the perturber, all bodies.
-    pub chi2: f64,
-    /// The bodies' null chi-squares together minus `chi2`.
-    pub delta_chi2: f64,
-    pub mass_earth: f64,
-    /// Formal error, every body's orbit marginalised.
-    pub mass_sigma_earth: f64,
-    pub frame: String,
-    pub epoch_tdb_jd: f64,
-    pub a_au: f64,
-    pub e: f64,
-    pub inc_deg: f64,
-    pub node_deg: f64,
-    pub peri_deg: f64,
-    pub mean_anomaly_deg: f64,
-    pub state_icrf: [f64; 6],
+    #[serde(flatten)]
+    pub solution: RefinedSolutionFile,
     /// Whether the perturber's orbit was fitted, or held at the grid solution
     /// (its mass and every body's orbit fitted either way).
     pub orbit_fitted: bool,
-    pub iterations: usize,
-    pub condition_number: f64,
-    pub note: String,
     /// Each body's chi-square under the refined solution and its drop
     /// against the body's null fit.
     pub bodies: Vec<JointRefinedBodyFile>,

@@ -254,9 +254,12 @@ fn summarise(rep: &LmReport, held: Option<[f64; 6]>, all: bool, note: String) ->
 /// and P* elsewhere: the linear model is exact where the posterior lives,
 /// however strong the signal. (Phi stays that of the unperturbed orbit; the
 /// error this leaves is of order m*.m_H, second order in the masses.)
+///
+/// A joint study recentres every body's kernel and adds their offsets and
+/// chi-squares: `Recentred<JointKernel>`.
 #[derive(Clone)]
-pub struct Recentred {
-    pub kernel: LinearKernel,
+pub struct Recentred<K = LinearKernel> {
+    pub kernel: K,
     /// |P y_null|^2 - |P y'|^2: add it to a chi-square drop measured on the
     /// recentred kernel to get the drop against the null model.
     pub delta_chi2_offset: f64,
@@ -278,8 +281,7 @@ pub fn recentre(
 ) -> Result<Recentred, crate::dynamics::PropagationError> {
     let mut m = OrbitModel::new(observations, geometry.to_vec(), epoch_tdb_days, model, ephemeris)?;
     m.perturbers = vec![*centre];
-    m.predict(tracked_state, false)?;
-    let pred = m.predict(tracked_state, false)?;
+    let pred = m.predict_settled(tracked_state)?;
     let mut r = vec![0.0; 2 * observations.len()];
     whitened_residuals(observations, &pred, &null_kernel.used, &mut r);
     let chi2_at_centre = r.iter().map(|x| x * x).sum::<f64>();

@@ -387,10 +387,10 @@ fn solve3(a: [[f64; 3]; 3], b: [f64; 3]) -> Option<[f64; 3]> {
 
 /// Chi-square drop above which a detection counts as strong enough to
 /// recentre the kernel on its refined solution.
-const STRONG_DELTA_CHI2: f64 = 500.0;
+pub(super) const STRONG_DELTA_CHI2: f64 = 500.0;
 
 /// Rounds of refine-and-recentre at most.
-const MAX_RECENTRE_ROUNDS: usize = 3;
+pub(super) const MAX_RECENTRE_ROUNDS: usize = 3;
 
 /// The search on one set of observations: the null fit, the kernel, the
 /// grid, the refinement on the full model and, for a detection, the kernel
@@ -495,7 +495,7 @@ fn search(
         refine(&stage.null, &stage.observations, &stage.geometry, model, ephemeris, start, settings)
     };
     observer.note("Refining the best solution on the full nonlinear model...");
-    let mut current = match refine_from(&best, &stage) {
+    let current = match refine_from(&best, &stage) {
         Ok(r) => r,
         Err(e) => {
             stage.null.warnings.push(format!("the nonlinear refinement failed ({e}); the grid solution stands"));
@@ -524,34 +524,97 @@ fn search(
         stage.refined = Some(current);
         return Ok(stage);
     }
-    // Follow the data into the nonlinear regime: recentre the kernel on the
-    // refined solution, search again on it, and refine again when another
-    // place scores better there; every basin of the final search is kept
-    // for the posterior.
-    let gm_earth = crate::units::GM_EARTH_MASS_AU3_PER_DAY2;
-    let gm_max = settings.mass_earth.1 * gm_earth;
+    let followed = follow_nonlinear(
+        current,
+        stage.null.chi2,
+        settings,
+        observer,
+        "the linear kernel",
+        |c: &Refinement| {
+            recentre(
+                &stage.kernel,
+                stage.null.epoch_tdb_days,
+                &c.tracked_state,
+                &c.perturber,
+                &stage.observations,
+                &stage.geometry,
+                model,
+                ephemeris,
+            )
+            .map_err(PipelineError::failed("recentring the kernel"))
+        },
+        |s| refine_from(s, &stage).ok(),
+    )?;
+    stage.rounds = followed.rounds;
+    stage.basins = followed.basins;
+    stage.centred = Some(followed.centred);
+    stage.refined = Some(followed.refined);
+    Ok(stage)
+}
+
+/// What the recentring loop needs of a refined solution (one body's or a
+/// joint one).
+pub(super) trait RefinedCentre {
+    fn perturber(&self) -> &Perturber;
+    /// The full model's chi-square at the solution.
+    fn chi2(&self) -> f64;
+}
+
+impl RefinedCentre for Refinement {
+    fn perturber(&self) -> &Perturber {
+        &self.perturber
+    }
+    fn chi2(&self) -> f64 {
+        self.chi2
+    }
+}
+
+impl RefinedCentre for crate::perturber::joint_refine::JointRefinement {
+    fn perturber(&self) -> &Perturber {
+        &self.perturber
+    }
+    fn chi2(&self) -> f64 {
+        self.chi2
+    }
+}
+
+/// Where the strong regime's loop ended: the refined solution, the kernel
+/// recentred on it, the distinct basins found on that kernel (drops against
+/// the null model) and the number of rounds.
+pub(super) struct Followed<R, K> {
+    pub refined: R,
+    pub centred: Recentred<K>,
+    pub basins: Vec<Scored>,
+    pub rounds: usize,
+}
+
+/// Follows the data into the nonlinear regime, for one body or a joint
+/// study alike: recentres the kernel on the refined solution (`recentre`),
+/// searches again on it, and refines again (`refine_from`) when another
+/// place scores better there, for up to [`MAX_RECENTRE_ROUNDS`] rounds.
+/// Every distinct basin of the final search is kept for the posterior.
+/// `null_chi2` is the null model's chi-square (summed over the bodies).
+pub(super) fn follow_nonlinear<R: RefinedCentre, K: SignalKernel>(
+    mut current: R,
+    null_chi2: f64,
+    settings: &SearchSettings,
+    observer: &dyn Observer,
+    what: &str,
+    recentre: impl Fn(&R) -> Result<Recentred<K>, PipelineError>,
+    refine_from: impl Fn(&Scored) -> Option<R>,
+) -> Result<Followed<R, K>, PipelineError> {
+    let gm_max = settings.mass_earth.1 * crate::units::GM_EARTH_MASS_AU3_PER_DAY2;
     let quiet = SearchSettings { n_null: 0, ..settings.clone() };
-    for round in 1..=MAX_RECENTRE_ROUNDS {
-        observer.note(&format!(
-            "Recentring the linear kernel on the refined solution (round {round}) and searching again..."
-        ));
-        let centred = recentre(
-            &stage.kernel,
-            stage.null.epoch_tdb_days,
-            &current.tracked_state,
-            &current.perturber,
-            &stage.observations,
-            &stage.geometry,
-            model,
-            ephemeris,
-        )
-        .map_err(PipelineError::failed("recentring the kernel"))?;
+    let mut round = 0;
+    loop {
+        round += 1;
+        observer.note(&format!("Recentring {what} on the refined solution (round {round}) and searching again..."));
+        let centred = recentre(&current)?;
         let again = grid_search(&centred.kernel, &quiet, &crate::progress::Quiet);
-        let centre = crate::perturber::Hypothesis {
-            position_au: current.perturber.position_au,
-            velocity_au_per_day: current.perturber.velocity_au_per_day,
-        };
-        let mut scratch = vec![0.0; centred.kernel.n_residuals()];
+        let p = current.perturber();
+        let centre =
+            crate::perturber::Hypothesis { position_au: p.position_au, velocity_au_per_day: p.velocity_au_per_day };
+        let mut scratch = vec![0.0; SignalKernel::n_residuals(&centred.kernel)];
         let mut basins: Vec<Scored> =
             crate::perturber::search::score(&centred.kernel, &centre, gm_max, settings.min_separation_au, &mut scratch)
                 .into_iter()
@@ -559,7 +622,7 @@ fn search(
                 .map(|s| Scored { delta_chi2: s.delta_chi2 + centred.delta_chi2_offset, ..s })
                 .collect();
         basins.sort_by(|a, b| b.delta_chi2.total_cmp(&a.delta_chi2));
-        let centre_delta = stage.null.chi2 - current.chi2;
+        let centre_delta = null_chi2 - current.chi2();
         // A better place elsewhere on the recentred kernel: refine it.
         let challenger = basins.iter().find(|b| {
             let apart = b.hypothesis.position_au.unit().dot(centre.position_au.unit()) < 1f64.to_radians().cos()
@@ -567,8 +630,8 @@ fn search(
             apart && b.delta_chi2 > centre_delta + 1.0
         });
         let moved = match challenger.copied() {
-            Some(c) if round < MAX_RECENTRE_ROUNDS => match refine_from(&c, &stage) {
-                Ok(r) if r.chi2 < current.chi2 - 0.5 => {
+            Some(c) if round < MAX_RECENTRE_ROUNDS => match refine_from(&c) {
+                Some(r) if r.chi2() < current.chi2() - 0.5 => {
                     current = r;
                     true
                 }
@@ -576,21 +639,16 @@ fn search(
             },
             _ => false,
         };
-        stage.rounds = round;
         if !moved {
             // Distinct basins within the usual window of the best, as the grid keeps them.
-            let kept = crate::perturber::search::distinct(
+            let basins = crate::perturber::search::distinct(
                 basins.into_iter(),
                 settings.basin_separation_deg,
                 2.0,
                 settings.basin_delta_chi2,
                 settings.max_basins,
             );
-            stage.basins = kept;
-            stage.centred = Some(centred);
-            break;
+            return Ok(Followed { refined: current, centred, basins, rounds: round });
         }
     }
-    stage.refined = Some(current);
-    Ok(stage)
 }

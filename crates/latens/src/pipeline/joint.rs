@@ -31,7 +31,7 @@
 
 use rayon::prelude::*;
 
-use super::detection::{OutlierJudge, Verdict};
+use super::detection::{OutlierJudge, STRONG_DELTA_CHI2, Verdict, follow_nonlinear};
 use super::{PipelineError, Study};
 use crate::astrometry::ObservingGeometry;
 use crate::io::observations::Observation;
@@ -131,15 +131,7 @@ pub struct JointDetection {
 /// The joint kernel recentred on a refined solution: each body's kernel
 /// recentred on its refitted orbit and the shared perturber (see
 /// [`crate::perturber::refine::Recentred`]); the offsets add over bodies.
-#[derive(Clone)]
-pub struct JointRecentred {
-    pub kernel: JointKernel,
-    /// Add to a chi-square drop on the recentred kernel to get the drop
-    /// against the null model.
-    pub delta_chi2_offset: f64,
-    /// The full model's chi-square at the centre, all bodies.
-    pub chi2_at_centre: f64,
-}
+pub type JointRecentred = crate::perturber::refine::Recentred<JointKernel>;
 
 impl JointDetection {
     /// The kernel the posterior samples (recentred in the strong regime)
@@ -358,13 +350,6 @@ struct Refined {
     warnings: Vec<String>,
 }
 
-/// Chi-square drop above which a detection counts as strong enough to
-/// recentre the kernels on its refined solution (the one-body stage's).
-const STRONG_DELTA_CHI2: f64 = 500.0;
-
-/// Rounds of refine-and-recentre at most (the one-body stage's).
-const MAX_RECENTRE_ROUNDS: usize = 3;
-
 /// A detection's best solution refined on the full model of every body
 /// and, in the strong regime, the kernels recentred on it and searched
 /// again (see the module's description). Nothing is refined without a
@@ -405,7 +390,7 @@ fn refine_stage(
         refine_joint(&parts, ephemeris, start, settings)
     };
     observer.note("Refining the best solution on the full nonlinear model of every body...");
-    let mut current = match refine_from(&best) {
+    let current = match refine_from(&best) {
         Ok(r) => r,
         Err(e) => {
             out.warnings.push(format!("the joint nonlinear refinement failed ({e}); the grid solution stands"));
@@ -450,81 +435,46 @@ fn refine_stage(
         out.refined = Some(current);
         return Ok(out);
     }
-    let quiet = SearchSettings { n_null: 0, ..settings.clone() };
-    for round in 1..=MAX_RECENTRE_ROUNDS {
-        observer.note(&format!(
-            "Recentring every body's kernel on the refined solution (round {round}) and searching again..."
-        ));
-        let recentred: Vec<Result<crate::perturber::refine::Recentred, PipelineError>> = (0..bodies.len())
-            .into_par_iter()
-            .map(|b| {
-                recentre(
-                    &kernel.bodies()[b],
-                    bodies[b].null.epoch_tdb_days,
-                    &current.tracked_states[b],
-                    &current.perturber,
-                    &bodies[b].observations,
-                    &bodies[b].geometry,
-                    &study.bodies[b].model,
-                    ephemeris,
-                )
-                .map_err(|e| PipelineError::failure("recentring the kernel", format!("{}: {e}", bodies[b].name)))
-            })
-            .collect();
-        let (mut kernels, mut offset, mut chi2) = (Vec::with_capacity(bodies.len()), 0.0, 0.0);
-        for r in recentred {
-            let r = r?;
-            offset += r.delta_chi2_offset;
-            chi2 += r.chi2_at_centre;
-            kernels.push(r.kernel);
-        }
-        let joint = JointKernel::new(kernels).map_err(|e| PipelineError::failure("recentring the kernel", e))?;
-        let centred = JointRecentred { kernel: joint, delta_chi2_offset: offset, chi2_at_centre: chi2 };
-        let again = grid_search(&centred.kernel, &quiet, &Quiet);
-        let centre = crate::perturber::Hypothesis {
-            position_au: current.perturber.position_au,
-            velocity_au_per_day: current.perturber.velocity_au_per_day,
-        };
-        let mut scratch = vec![0.0; SignalKernel::n_residuals(&centred.kernel)];
-        let mut basins: Vec<Scored> =
-            crate::perturber::search::score(&centred.kernel, &centre, gm_max, settings.min_separation_au, &mut scratch)
-                .into_iter()
-                .chain(again.basins.iter().copied())
-                .map(|s| Scored { delta_chi2: s.delta_chi2 + centred.delta_chi2_offset, ..s })
+    let null_chi2: f64 = bodies.iter().map(|b| b.null.chi2).sum();
+    let followed = follow_nonlinear(
+        current,
+        null_chi2,
+        settings,
+        observer,
+        "every body's kernel",
+        |c: &JointRefinement| {
+            let recentred: Vec<Result<crate::perturber::refine::Recentred, PipelineError>> = (0..bodies.len())
+                .into_par_iter()
+                .map(|b| {
+                    recentre(
+                        &kernel.bodies()[b],
+                        bodies[b].null.epoch_tdb_days,
+                        &c.tracked_states[b],
+                        &c.perturber,
+                        &bodies[b].observations,
+                        &bodies[b].geometry,
+                        &study.bodies[b].model,
+                        ephemeris,
+                    )
+                    .map_err(|e| PipelineError::failure("recentring the kernel", format!("{}: {e}", bodies[b].name)))
+                })
                 .collect();
-        basins.sort_by(|a, b| b.delta_chi2.total_cmp(&a.delta_chi2));
-        let null_chi2: f64 = bodies.iter().map(|b| b.null.chi2).sum();
-        let centre_delta = null_chi2 - current.chi2;
-        // A better place elsewhere on the recentred kernels: refine it.
-        let challenger = basins.iter().find(|b| {
-            let apart = b.hypothesis.position_au.unit().dot(centre.position_au.unit()) < 1f64.to_radians().cos()
-                || (b.hypothesis.position_au.norm() / centre.position_au.norm()).ln().abs() > 0.1;
-            apart && b.delta_chi2 > centre_delta + 1.0
-        });
-        let moved = match challenger.copied() {
-            Some(c) if round < MAX_RECENTRE_ROUNDS => match refine_from(&c) {
-                Ok(r) if r.chi2 < current.chi2 - 0.5 => {
-                    current = r;
-                    true
-                }
-                _ => false,
-            },
-            _ => false,
-        };
-        out.rounds = round;
-        if !moved {
-            out.basins = crate::perturber::search::distinct(
-                basins.into_iter(),
-                settings.basin_separation_deg,
-                2.0,
-                settings.basin_delta_chi2,
-                settings.max_basins,
-            );
-            out.centred = Some(centred);
-            break;
-        }
-    }
-    out.refined = Some(current);
+            let (mut kernels, mut offset, mut chi2) = (Vec::with_capacity(bodies.len()), 0.0, 0.0);
+            for r in recentred {
+                let r = r?;
+                offset += r.delta_chi2_offset;
+                chi2 += r.chi2_at_centre;
+                kernels.push(r.kernel);
+            }
+            let joint = JointKernel::new(kernels).map_err(|e| PipelineError::failure("recentring the kernel", e))?;
+            Ok(JointRecentred { kernel: joint, delta_chi2_offset: offset, chi2_at_centre: chi2 })
+        },
+        |s| refine_from(s).ok(),
+    )?;
+    out.rounds = followed.rounds;
+    out.basins = followed.basins;
+    out.centred = Some(followed.centred);
+    out.refined = Some(followed.refined);
     Ok(out)
 }
 
