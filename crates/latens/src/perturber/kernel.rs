@@ -159,6 +159,12 @@ pub struct LinearKernel {
     pub residuals: Vec<f64>,
     pub used: Vec<bool>,
     gm_sun: f64,
+    /// The far-perturber bound (see [`LinearKernel::far_signal_bound`]):
+    /// the largest heliocentric distance at the nodes (au), the signal's
+    /// gain per unit acceleration and the residuals' norm.
+    r_max_au: f64,
+    signal_gain: f64,
+    residual_norm: f64,
 }
 
 impl LinearKernel {
@@ -290,7 +296,68 @@ impl LinearKernel {
             residuals,
             used,
             gm_sun: model.central_gm_au3_per_day2(),
-        })
+            r_max_au: 0.0,
+            signal_gain: 0.0,
+            residual_norm: 0.0,
+        }
+        .with_far_bound())
+    }
+
+    /// Sets the constants of [`LinearKernel::far_signal_bound`]. With
+    /// |a_i| <= a at every node, the integrand's two halves (its position
+    /// and velocity parts, rows of Psi_i) are at most ||Psi_i^r||_F a and
+    /// ||Psi_i^v||_F a; the running integral's halves at observation k at
+    /// most a sum_i c_ki ||Psi_i^r||_F and a sum_i c_ki ||Psi_i^v||_F (c_ki
+    /// the quadrature's coefficients, made positive); and its whitened
+    /// signal at most ||M_k^r||_F times the first plus ||M_k^v||_F times the
+    /// second (M_k^r, M_k^v: the columns of position and velocity). Kept
+    /// apart, the halves' units do not mix: one norm over all six would
+    /// multiply the velocity columns (growing with time) by the position
+    /// part (growing with its square) and lose a factor of the arc's length.
+    fn with_far_bound(mut self) -> LinearKernel {
+        let frob = |rows: &[[f64; 3]]| rows.iter().flatten().map(|x| x * x).sum::<f64>().sqrt();
+        let psi: Vec<[f64; 2]> = self.node_psi.iter().map(|m| [frob(&m[..3]), frob(&m[3..])]).collect();
+        let mut before = vec![[0.0; 2]; self.n_panels + 1];
+        for p in 0..self.n_panels {
+            let mut next = before[p];
+            for j in 0..4 {
+                for h in 0..2 {
+                    next[h] += 0.5 * GL4_W[j] * self.panel_days * psi[4 * p + j][h];
+                }
+            }
+            before[p + 1] = next;
+        }
+        let mut gain2 = 0.0;
+        for (k, (&p, w)) in self.obs_panel.iter().zip(&self.obs_w).enumerate() {
+            if !self.used[k] {
+                continue;
+            }
+            let mut bound = 0.0;
+            for h in 0..2 {
+                let integral = before[p][h] + (0..4).map(|j| w[j].abs() * psi[4 * p + j][h]).sum::<f64>();
+                let m: f64 =
+                    self.obs_m[k].iter().map(|row| row[3 * h..3 * h + 3].iter().map(|x| x * x).sum::<f64>()).sum();
+                bound += m.sqrt() * integral;
+            }
+            gain2 += bound * bound;
+        }
+        self.signal_gain = gain2.sqrt();
+        self.r_max_au = self.node_r.iter().map(|r| r.norm()).fold(0.0, f64::max);
+        self.residual_norm = dot(&self.residuals, &self.residuals).sqrt();
+        self
+    }
+
+    /// An upper bound on the norm of the whitened signal (orbit correction
+    /// removed or not) of a perturber on `orbit` with GM up to `gm_max`,
+    /// and a lower bound on its closest approach (au), when the orbit stays
+    /// outside every node of the tracked body's (periapsis q beyond the
+    /// largest distance R); `None` otherwise. The perturbing acceleration
+    /// f(r_p - r) - f(r_p), f(d) = d/|d|^3, is at most 2 R / (q - R)^3 by
+    /// the mean-value theorem (the Jacobian of f has norm 2/|d|^3 and
+    /// |d| >= q - R on the segment).
+    pub fn far_signal_bound(&self, orbit: &KeplerOrbit, gm_max: f64) -> Option<(f64, f64)> {
+        let gap = orbit.a * (1.0 - orbit.e) - self.r_max_au;
+        (gap > 0.0).then(|| (gm_max * self.signal_gain * 2.0 * self.r_max_au / gap.powi(3), gap))
     }
 
     /// The same kernel with other whitened residuals (for simulated data
@@ -307,6 +374,7 @@ impl LinearKernel {
         }
         let mut r = std::mem::take(&mut k.residuals);
         k.project(&mut r);
+        k.residual_norm = dot(&r, &r).sqrt();
         k.residuals = r;
         k
     }
@@ -532,8 +600,30 @@ pub trait SignalKernel: Sync {
     /// The whitened signal per unit GM of a perturber on `orbit` into `out`,
     /// orbit corrections not removed; returns the closest approach, au.
     fn signal(&self, orbit: &KeplerOrbit, out: &mut [f64]) -> f64;
+    /// [`SignalKernel::signal`] for a search that allows GMs up to
+    /// `gm_max`: a joint kernel leaves out (zeroes) the parts of the bodies
+    /// such a perturber cannot reach (see [`JointKernel::far_bodies`]), and
+    /// the closest approach it returns is then a lower bound.
+    fn signal_up_to(&self, orbit: &KeplerOrbit, gm_max: f64, out: &mut [f64]) -> f64 {
+        let _ = gm_max;
+        self.signal(orbit, out)
+    }
     /// Removes the orbit corrections from a whitened signal.
     fn project(&self, signal: &mut [f64]);
+    /// The kernel's parts (each body's rows of a joint kernel; one part for
+    /// one body), for work done a part at a time.
+    #[allow(clippy::single_range_in_vec_init)] // one range, the whole: meant
+    fn parts(&self) -> Vec<std::ops::Range<usize>> {
+        vec![0..self.n_residuals()]
+    }
+    /// Part `p` of what [`SignalKernel::signal_up_to`] then
+    /// [`SignalKernel::project`] give for `orbit`, into `out` (the part's
+    /// length).
+    fn projected_part(&self, p: usize, orbit: &KeplerOrbit, gm_max: f64, out: &mut [f64]) {
+        debug_assert_eq!(p, 0);
+        self.signal_up_to(orbit, gm_max, out);
+        self.project(out);
+    }
     /// The chi-square drop and the best GM in [0, gm_max] for a projected
     /// signal per unit GM.
     fn profile(&self, projected: &[f64], gm_max: f64) -> (f64, f64) {
@@ -577,6 +667,21 @@ impl SignalKernel for LinearKernel {
         LinearKernel::project(self, signal)
     }
 }
+
+/// Bodies too far from a perturber to feel it cost nothing in a joint
+/// search: body b is left out of a hypothesis's signal when the bound of
+/// [`LinearKernel::far_signal_bound`] on its whitened signal, at the
+/// search's largest GM, is at most eps_b = min(FAR_SIGNAL_TOTAL,
+/// FAR_CHI2_TOTAL / (2 |y_b| + 3 FAR_SIGNAL_TOTAL)) / (number of bodies),
+/// y_b its whitened residuals. Leaving it out changes the chi-square of any
+/// mass up to the cap by at most 2 |y_b - m s_b| eps_b + eps_b^2 <=
+/// eps_b (2 |y_b| + 3 eps_b), so every hypothesis's profiled drop moves by
+/// at most FAR_CHI2_TOTAL summed over all bodies, and its signal (hence its
+/// null statistics, through the subspace) by at most FAR_SIGNAL_TOTAL in
+/// whitened norm.
+pub const FAR_SIGNAL_TOTAL: f64 = 1e-3;
+/// See [`FAR_SIGNAL_TOTAL`].
+pub const FAR_CHI2_TOTAL: f64 = 0.01;
 
 /// Several tracked bodies' kernels side by side, for one perturber shared
 /// by all: a hypothesis's signal is the concatenation of each body's
@@ -653,6 +758,22 @@ impl JointKernel {
         JointKernel::new(bodies).expect("the same epochs as before")
     }
 
+    /// Whether a perturber on `orbit` with a GM up to `gm_max` is too far
+    /// from body `b` to matter, by a bound (see [`FAR_SIGNAL_TOTAL`]):
+    /// `Some(lower bound on the closest approach, au)` when it is.
+    fn far(&self, b: usize, orbit: &KeplerOrbit, gm_max: f64) -> Option<f64> {
+        let k = &self.bodies[b];
+        let (bound, gap) = k.far_signal_bound(orbit, gm_max)?;
+        let per_body = FAR_SIGNAL_TOTAL.min(FAR_CHI2_TOTAL / (2.0 * k.residual_norm + 3.0 * FAR_SIGNAL_TOTAL));
+        (bound <= per_body / self.bodies.len() as f64).then_some(gap)
+    }
+
+    /// How many bodies a search with GMs up to `gm_max` leaves out of a
+    /// perturber on `orbit`'s signal as too far to matter.
+    pub fn far_bodies(&self, orbit: &KeplerOrbit, gm_max: f64) -> usize {
+        (0..self.bodies.len()).filter(|&b| self.far(b, orbit, gm_max).is_some()).count()
+    }
+
     /// The joint kernel without body `b` (`None` when it is the only one).
     pub fn without(&self, b: usize) -> Option<JointKernel> {
         let rest: Vec<LinearKernel> =
@@ -681,9 +802,34 @@ impl SignalKernel for JointKernel {
         }
         closest
     }
+    fn signal_up_to(&self, orbit: &KeplerOrbit, gm_max: f64, out: &mut [f64]) -> f64 {
+        let mut closest = f64::INFINITY;
+        for (b, k) in self.bodies.iter().enumerate() {
+            let part = &mut out[self.part(b)];
+            closest = closest.min(match self.far(b, orbit, gm_max) {
+                Some(gap) => {
+                    part.fill(0.0);
+                    gap
+                }
+                None => k.signal(orbit, part),
+            });
+        }
+        closest
+    }
     fn project(&self, signal: &mut [f64]) {
         for (b, k) in self.bodies.iter().enumerate() {
             k.project(&mut signal[self.part(b)]);
+        }
+    }
+    fn parts(&self) -> Vec<std::ops::Range<usize>> {
+        (0..self.bodies.len()).map(|b| self.part(b)).collect()
+    }
+    fn projected_part(&self, p: usize, orbit: &KeplerOrbit, gm_max: f64, out: &mut [f64]) {
+        if self.far(p, orbit, gm_max).is_some() {
+            out.fill(0.0);
+        } else {
+            self.bodies[p].signal(orbit, out);
+            self.bodies[p].project(out);
         }
     }
 }

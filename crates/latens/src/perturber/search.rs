@@ -317,7 +317,7 @@ pub fn score<K: SignalKernel + ?Sized>(
 ) -> Option<Scored> {
     let orbit =
         KeplerOrbit::from_state(kernel.central_gm(), h.position_au, h.velocity_au_per_day, kernel.epoch_tdb_days())?;
-    let closest = kernel.signal(&orbit, scratch);
+    let closest = kernel.signal_up_to(&orbit, gm_max, scratch);
     if closest < min_sep {
         return None;
     }
@@ -727,45 +727,80 @@ fn signal_subspace<K: SignalKernel + ?Sized>(
 ) -> Mat<f64> {
     let n_res = kernel.n_residuals();
     // About 1000 signals, fewer for populations of many bodies (at most
-    // 250 million numbers, 2 GB, but never fewer than 300 signals).
+    // 250 million numbers, the cost of computing it twice below, but never
+    // fewer than 300 signals).
     let target = (250_000_000 / n_res.max(1)).clamp(300, 1000);
     let stride = (hyps.len() / target).max(1);
     let picked: Vec<&Hypothesis> = hyps.iter().step_by(stride).collect();
-    // The sample's signals, normalised, straight into the columns of one
-    // matrix, a chunk at a time (no second copy of the sample).
-    let mut columns: Vec<Vec<f64>> = Vec::new();
-    let chunk = (CHUNK_NUMBERS / n_res.max(1)).clamp(8, 256);
-    let mut all = Mat::<f64>::zeros(n_res, picked.len());
-    let mut n_sample = 0;
-    for hs in picked.chunks(chunk) {
-        columns.clear();
-        columns.par_extend(hs.par_iter().filter_map(|h| {
+    // The sample's norms first (the whole signal of each, one at a time);
+    // then its normalised signals a block of rows (bodies) at a time, never
+    // the whole sample at once.
+    let sample: Vec<(KeplerOrbit, f64)> = picked
+        .par_iter()
+        .filter_map(|h| {
             let mut s = vec![0.0; n_res];
             score(kernel, h, gm_max, settings.min_separation_au, &mut s)?;
             let norm = s.iter().map(|x| x * x).sum::<f64>().sqrt();
-            (norm > 0.0).then(|| s.into_iter().map(|x| x / norm).collect())
-        }));
-        for c in &columns {
-            all.col_mut(n_sample).iter_mut().zip(c).for_each(|(a, b)| *a = *b);
-            n_sample += 1;
-        }
-    }
-    drop(columns);
+            let orbit = KeplerOrbit::from_state(
+                kernel.central_gm(),
+                h.position_au,
+                h.velocity_au_per_day,
+                kernel.epoch_tdb_days(),
+            )?;
+            (norm > 0.0).then_some((orbit, norm))
+        })
+        .collect();
+    let n_sample = sample.len();
     if n_sample == 0 {
         return Mat::zeros(n_res, 0);
     }
-    let m = all.subcols(0, n_sample);
-    // The leading left singular vectors from the sample's Gram matrix
-    // G = M^T M = V S^2 V^T: U = M V S^-1. This holds only the sample and
-    // the basis, where a thin SVD of the tall sample peaked at 2.9 times
-    // the sample: a 1000-body shard in 2.81 GB instead of 5.89 GB
-    // (docs/performance.md). The vectors kept have S^2 at least
-    // 1e-6 of the largest at 99.99% of the energy, where the Gram
-    // matrix's rounding (1e-16 of the largest) should leave them
-    // orthonormal to about 1e-10 (an estimate from the usual eigenvector
-    // error bound, not measured; `tests/perturber.rs` checks what it
-    // feeds: the null maxima against the exact search maxima).
-    let g = m.transpose() * m;
+    // Consecutive parts in blocks of about CHUNK_NUMBERS / 4 numbers of the
+    // sample (at least one part a block).
+    let parts = kernel.parts();
+    let mut blocks: Vec<std::ops::Range<usize>> = Vec::new();
+    let mut start = 0;
+    for (i, p) in parts.iter().enumerate() {
+        let rows = p.end - parts[start].start;
+        if rows * n_sample >= CHUNK_NUMBERS / 4 || i + 1 == parts.len() {
+            blocks.push(start..i + 1);
+            start = i + 1;
+        }
+    }
+    // The sample's rows of a block of parts, normalised (rows x sample).
+    let rows_of = |block: &std::ops::Range<usize>| -> Mat<f64> {
+        let first = parts[block.start].start;
+        let n_rows = parts[block.end - 1].end - first;
+        let columns: Vec<Vec<f64>> = sample
+            .par_iter()
+            .map(|(orbit, norm)| {
+                let mut c = vec![0.0; n_rows];
+                for p in block.clone() {
+                    let r = parts[p].clone();
+                    kernel.projected_part(p, orbit, gm_max, &mut c[r.start - first..r.end - first]);
+                }
+                c.iter_mut().for_each(|x| *x /= norm);
+                c
+            })
+            .collect();
+        Mat::<f64>::from_fn(n_rows, n_sample, |i, j| columns[j][i])
+    };
+    // The leading left singular vectors of the sample M from its Gram
+    // matrix G = M^T M = V S^2 V^T, a sum over blocks of rows: U = M V S^-1,
+    // again a block of rows at a time. Only G, one block and the basis are
+    // held: the sample itself (a 1000-body shard: 2 GB, 416 signals of
+    // 600 000 residuals) never is, at the cost of computing it twice (the
+    // sample is under 2% of a shard's hypotheses; docs/performance.md).
+    // The vectors kept have S^2 at least 1e-6 of the largest at 99.99% of
+    // the energy, where the Gram matrix's rounding (1e-16 of the largest)
+    // should leave them orthonormal to about 1e-10 (an estimate from the
+    // usual eigenvector error bound, not measured; `tests/perturber.rs`
+    // checks what it feeds: the null maxima against the exact search
+    // maxima).
+    let mut g = Mat::<f64>::zeros(n_sample, n_sample);
+    for block in &blocks {
+        let m = rows_of(block);
+        g += m.transpose() * &m;
+    }
     let Ok(eig) = g.self_adjoint_eigen(faer::Side::Lower) else {
         return Mat::zeros(n_res, 0);
     };
@@ -787,7 +822,14 @@ fn signal_subspace<K: SignalKernel + ?Sized>(
     }
     let v = eig.U();
     let scaled = Mat::<f64>::from_fn(n_sample, k, |i, j| v[(i, order[j])] / lambda[order[j]].sqrt());
-    m * &scaled
+    let mut basis = Mat::<f64>::zeros(n_res, k);
+    for block in &blocks {
+        let first = parts[block.start].start;
+        let rows = rows_of(block);
+        let n_rows = rows.nrows();
+        basis.as_mut().subrows_mut(first, n_rows).copy_from(rows * &scaled);
+    }
+    basis
 }
 
 #[cfg(test)]
