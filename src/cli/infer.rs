@@ -587,12 +587,7 @@ fn describe(
         mass_earth: s.mass_earth(),
         frame: OUTPUT_FRAME.into(),
         epoch_tdb_jd: J2000_JD + t0,
-        a_au: el.a_au,
-        e: el.e,
-        inc_deg: el.inc_deg,
-        node_deg: el.node_deg,
-        peri_deg: el.peri_deg,
-        mean_anomaly_deg: el.mean_anomaly_deg,
+        elements: el,
         state_icrf: [
             h.position_au.x,
             h.position_au.y,

@@ -211,12 +211,7 @@ fn basin_file(b: &Scored, found: &JointDetection, search: &SearchGeometry) -> Op
         mass_earth: b.mass_earth(),
         frame: OUTPUT_FRAME.into(),
         epoch_tdb_jd: J2000_JD + t0,
-        a_au: el.a_au,
-        e: el.e,
-        inc_deg: el.inc_deg,
-        node_deg: el.node_deg,
-        peri_deg: el.peri_deg,
-        mean_anomaly_deg: el.mean_anomaly_deg,
+        elements: el,
         state_icrf: [r.x, r.y, r.z, v.x, v.y, v.z],
         ra_deg: radec.ra_rad / RAD_PER_DEG,
         dec_deg: radec.dec_rad / RAD_PER_DEG,
@@ -358,9 +353,9 @@ fn report(
             r.solution.delta_chi2,
             r.solution.mass_earth,
             r.solution.mass_sigma_earth,
-            r.solution.a_au,
-            r.solution.e,
-            r.solution.inc_deg,
+            r.solution.elements.a_au,
+            r.solution.elements.e,
+            r.solution.elements.inc_deg,
             r.solution.note
         );
     }

@@ -317,7 +317,10 @@ pub fn state_from_elements(gm_au3_per_day2: f64, el: &Elements) -> Result<(Vec3,
 /// degrees, computed with the GM of the Sun alone, whatever a force model
 /// folds into the central body (the one rule, so files from different
 /// models compare; the dynamics use the model's own central GM).
-#[derive(Clone, Copy, Debug, PartialEq)]
+///
+/// Result files flatten it (`#[serde(flatten)]`): its six fields appear in
+/// them by these names.
+#[derive(Clone, Copy, Debug, PartialEq, serde::Serialize)]
 pub struct OutputElements {
     pub a_au: f64,
     pub e: f64,

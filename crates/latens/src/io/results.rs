@@ -459,12 +459,9 @@ pub struct PerturberFile {
     pub mass_earth: f64,
     pub frame: String,
     pub epoch_tdb_jd: f64,
-    pub a_au: f64,
-    pub e: f64,
-    pub inc_deg: f64,
-    pub node_deg: f64,
-    pub peri_deg: f64,
-    pub mean_anomaly_deg: f64,
+    /// a_au, e, inc_deg, node_deg, peri_deg, mean_anomaly_deg.
+    #[serde(flatten)]
+    pub elements: crate::dynamics::kepler::OutputElements,
     /// Heliocentric ICRF state at the reference epoch.
     pub state_icrf: [f64; 6],
     /// Geocentric astrometric position at the search epoch.
@@ -512,12 +509,9 @@ pub struct RefinedSolutionFile {
     pub mass_sigma_earth: f64,
     pub frame: String,
     pub epoch_tdb_jd: f64,
-    pub a_au: f64,
-    pub e: f64,
-    pub inc_deg: f64,
-    pub node_deg: f64,
-    pub peri_deg: f64,
-    pub mean_anomaly_deg: f64,
+    /// a_au, e, inc_deg, node_deg, peri_deg, mean_anomaly_deg.
+    #[serde(flatten)]
+    pub elements: crate::dynamics::kepler::OutputElements,
     pub state_icrf: [f64; 6],
     pub iterations: usize,
     pub condition_number: f64,
@@ -550,12 +544,7 @@ impl RefinedSolutionFile {
             mass_sigma_earth: gm_sigma / gm_earth,
             frame: OUTPUT_FRAME.into(),
             epoch_tdb_jd: crate::units::J2000_JD + epoch_tdb_days,
-            a_au: el.a_au,
-            e: el.e,
-            inc_deg: el.inc_deg,
-            node_deg: el.node_deg,
-            peri_deg: el.peri_deg,
-            mean_anomaly_deg: el.mean_anomaly_deg,
+            elements: el,
             state_icrf: [r.x, r.y, r.z, v.x, v.y, v.z],
             iterations,
             condition_number,
@@ -724,12 +713,9 @@ pub struct JointBasinFile {
     pub mass_earth: f64,
     pub frame: String,
     pub epoch_tdb_jd: f64,
-    pub a_au: f64,
-    pub e: f64,
-    pub inc_deg: f64,
-    pub node_deg: f64,
-    pub peri_deg: f64,
-    pub mean_anomaly_deg: f64,
+    /// a_au, e, inc_deg, node_deg, peri_deg, mean_anomaly_deg.
+    #[serde(flatten)]
+    pub elements: crate::dynamics::kepler::OutputElements,
     pub state_icrf: [f64; 6],
     /// Geocentric astrometric place at the search epoch.
     pub ra_deg: f64,
