@@ -344,12 +344,20 @@ impl SearchChart {
         if let Some((d, label)) = &self.truth {
             let p = hammer(*d);
             chart.draw_series([EmptyElement::at(p) + diamond(0, 0, 9, TRUTH.filled())]).map_err(e)?;
+            // Beside the diamond, or above it where a mode's label (drawn
+            // to the lower right of its cross) would run into it.
+            let crowded = self.marks.iter().any(|(m, _)| {
+                let q = hammer(*m);
+                (q.0 - p.0).abs() < 0.6 && (q.1 - p.1).abs() < 0.2
+            });
+            let text_at = if crowded { (p.0 + 0.02, p.1 + 0.2) } else { (p.0 + 0.05, p.1 - 0.1) };
+            // Near the map's right edge (x up to 2 sqrt 2) the label goes to
+            // the left of the diamond (about 0.04 map units a character at
+            // this size), so it never runs into the legend.
+            let width = 0.04 * label.chars().count() as f64;
+            let text_at = if text_at.0 + width > 2.7 { (p.0 - 0.05 - width, text_at.1) } else { text_at };
             chart
-                .draw_series([Text::new(
-                    label.clone(),
-                    (p.0 + 0.05, p.1 - 0.1),
-                    ("sans-serif", 18).into_font().color(&TRUTH),
-                )])
+                .draw_series([Text::new(label.clone(), text_at, ("sans-serif", 18).into_font().color(&TRUTH))])
                 .map_err(e)?;
         }
         // Legend, drawn by hand to the right of the map.
@@ -546,6 +554,21 @@ fn draw_zoom<DB: DrawingBackend>(
     {
         chart.draw_series([EmptyElement::at(p) + diamond(0, 0, 8, TRUTH.filled())]).map_err(e)?;
         let text_at = (p.0 - 0.03 * h, p.1 + 0.03 * h);
+        // A pale patch behind the label keeps it legible on the density's
+        // dark core (about 7 px a character and 18 px high at this size;
+        // x runs from +h on the left to -h on the right).
+        let (plot_w, plot_h) = chart.plotting_area().dim_in_pixel();
+        let (ux, uy) = (2.0 * h / f64::from(plot_w.max(1)), 2.0 * h / f64::from(plot_h.max(1)));
+        let chars = label.chars().count() as f64;
+        chart
+            .draw_series([Rectangle::new(
+                [
+                    (text_at.0 + 2.0 * ux, text_at.1 + 2.0 * uy),
+                    (text_at.0 - (7.0 * chars + 4.0) * ux, text_at.1 - 18.0 * uy),
+                ],
+                WHITE.mix(0.8).filled(),
+            )])
+            .map_err(e)?;
         chart
             .draw_series([Text::new(label.clone(), text_at, ("sans-serif", 15).into_font().color(&TRUTH))])
             .map_err(e)?;
