@@ -103,7 +103,9 @@ fn far_bodies_are_left_out_only_within_the_stated_bound() {
     // profiled chi-square drop by at most FAR_CHI2_TOTAL. Perturbers on
     // circular orbits in 200 directions (a golden-angle spiral) at 50 to
     // 3000 au; the cap is lowered to 0.01 Earth masses so that bodies are
-    // left out at all (at the default cap of 5000 none is, below).
+    // left out at all (at the default cap of 5000 none is, below). The
+    // bound is algebra (mean-value theorem), checked against the kernel's
+    // own signals: no outside reference applies.
     use latens::perturber::kernel::{FAR_CHI2_TOTAL, FAR_SIGNAL_TOTAL};
     use latens::vec3::Vec3;
     let joint = first_bodies(3);

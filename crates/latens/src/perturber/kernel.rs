@@ -697,6 +697,9 @@ pub struct JointKernel {
     /// Start of each body's part, and the total length at the end.
     offsets: Vec<usize>,
     residuals: Vec<f64>,
+    /// Per body, the largest bound on its signal at which a hypothesis
+    /// leaves it out (eps_b of [`FAR_SIGNAL_TOTAL`]).
+    far_limits: Vec<f64>,
 }
 
 impl JointKernel {
@@ -724,7 +727,12 @@ impl JointKernel {
             residuals.extend_from_slice(&b.residuals);
             offsets.push(residuals.len());
         }
-        Ok(JointKernel { bodies, offsets, residuals })
+        let n = bodies.len() as f64;
+        let far_limits = bodies
+            .iter()
+            .map(|k| FAR_SIGNAL_TOTAL.min(FAR_CHI2_TOTAL / (2.0 * k.residual_norm + 3.0 * FAR_SIGNAL_TOTAL)) / n)
+            .collect();
+        Ok(JointKernel { bodies, offsets, residuals, far_limits })
     }
 
     /// The bodies' own kernels, in order.
@@ -762,10 +770,21 @@ impl JointKernel {
     /// from body `b` to matter, by a bound (see [`FAR_SIGNAL_TOTAL`]):
     /// `Some(lower bound on the closest approach, au)` when it is.
     fn far(&self, b: usize, orbit: &KeplerOrbit, gm_max: f64) -> Option<f64> {
-        let k = &self.bodies[b];
-        let (bound, gap) = k.far_signal_bound(orbit, gm_max)?;
-        let per_body = FAR_SIGNAL_TOTAL.min(FAR_CHI2_TOTAL / (2.0 * k.residual_norm + 3.0 * FAR_SIGNAL_TOTAL));
-        (bound <= per_body / self.bodies.len() as f64).then_some(gap)
+        let (bound, gap) = self.bodies[b].far_signal_bound(orbit, gm_max)?;
+        (bound <= self.far_limits[b]).then_some(gap)
+    }
+
+    /// Body `b`'s part of [`SignalKernel::signal_up_to`] into `out` (its
+    /// part's length): zero when it is out of reach, else its signal.
+    /// Returns its closest approach (a lower bound when out of reach).
+    fn body_signal_up_to(&self, b: usize, orbit: &KeplerOrbit, gm_max: f64, out: &mut [f64]) -> f64 {
+        match self.far(b, orbit, gm_max) {
+            Some(gap) => {
+                out.fill(0.0);
+                gap
+            }
+            None => self.bodies[b].signal(orbit, out),
+        }
     }
 
     /// How many bodies a search with GMs up to `gm_max` leaves out of a
@@ -803,18 +822,9 @@ impl SignalKernel for JointKernel {
         closest
     }
     fn signal_up_to(&self, orbit: &KeplerOrbit, gm_max: f64, out: &mut [f64]) -> f64 {
-        let mut closest = f64::INFINITY;
-        for (b, k) in self.bodies.iter().enumerate() {
-            let part = &mut out[self.part(b)];
-            closest = closest.min(match self.far(b, orbit, gm_max) {
-                Some(gap) => {
-                    part.fill(0.0);
-                    gap
-                }
-                None => k.signal(orbit, part),
-            });
-        }
-        closest
+        (0..self.bodies.len())
+            .map(|b| self.body_signal_up_to(b, orbit, gm_max, &mut out[self.part(b)]))
+            .fold(f64::INFINITY, f64::min)
     }
     fn project(&self, signal: &mut [f64]) {
         for (b, k) in self.bodies.iter().enumerate() {
@@ -825,12 +835,8 @@ impl SignalKernel for JointKernel {
         (0..self.bodies.len()).map(|b| self.part(b)).collect()
     }
     fn projected_part(&self, p: usize, orbit: &KeplerOrbit, gm_max: f64, out: &mut [f64]) {
-        if self.far(p, orbit, gm_max).is_some() {
-            out.fill(0.0);
-        } else {
-            self.bodies[p].signal(orbit, out);
-            self.bodies[p].project(out);
-        }
+        self.body_signal_up_to(p, orbit, gm_max, out);
+        self.bodies[p].project(out);
     }
 }
 
